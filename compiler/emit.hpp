@@ -1,0 +1,28 @@
+// Emit: a checked, bound model -> standalone C++ (a header and a source).
+#pragma once
+
+#include <string>
+#include <vector>
+
+#include "../runtime/model.hpp"
+
+namespace meander {
+
+struct EmitOptions {
+    Precision precision = Precision::float32;
+    bool c_api = false;             // also an extern "C" entry point prefixed with the model name
+    std::string content_hash;       // hex, of description and weights; printed in the banner
+    std::string meander_version;    // printed in the banner
+    // Self-test vectors: inputs and the outputs eval gives for them (empty: no self-test source).
+    std::vector<std::vector<double>> self_test_inputs;
+    std::vector<std::vector<double>> self_test_outputs;
+};
+
+struct EmittedFile {
+    std::string name;               // file name only: "<model>.hpp", "<model>.cpp", ...
+    std::string text;
+};
+
+std::vector<EmittedFile> emit_model(const Model& model, const EmitOptions& opts);
+
+}  // namespace meander

@@ -1,0 +1,248 @@
+#include "source.hpp"
+
+#include <fmt/format.h>
+
+#include <cerrno>
+#include <cstdio>
+#include <cstring>
+#include <filesystem>
+#include <fstream>
+#include <sstream>
+#include <system_error>
+
+namespace meander {
+
+Source::Source(std::string p, std::string t) : path(std::move(p)), text(std::move(t)) {
+    line_starts.push_back(0);
+    for (std::size_t i = 0; i < text.size(); ++i)
+        if (text[i] == '\n') line_starts.push_back(i + 1);
+}
+
+std::string_view Source::line_text(int line) const {
+    if (line < 1 || static_cast<std::size_t>(line) > line_starts.size()) return {};
+    std::size_t begin = line_starts[static_cast<std::size_t>(line - 1)];
+    std::size_t end = text.find('\n', begin);
+    if (end == std::string::npos) end = text.size();
+    if (end > begin && text[end - 1] == '\r') --end;
+    return std::string_view(text).substr(begin, end - begin);
+}
+
+Loc Source::loc_of(std::size_t offset) const {
+    // Last line start <= offset.
+    std::size_t lo = 0, hi = line_starts.size();
+    while (hi - lo > 1) {
+        std::size_t mid = (lo + hi) / 2;
+        if (line_starts[mid] <= offset) lo = mid; else hi = mid;
+    }
+    return Loc{static_cast<int>(lo + 1), static_cast<int>(offset - line_starts[lo] + 1)};
+}
+
+void Diagnostics::report(Severity s, const Source* src, Loc loc, std::string message) {
+    Diagnostic d;
+    d.severity = s;
+    if (src) {
+        d.file = src->path;
+        d.loc = loc;
+        if (loc.line > 0) d.line_text = std::string(src->line_text(loc.line));
+    }
+    d.message = std::move(message);
+    if (s == Severity::error) ++errors_;
+    items_.push_back(std::move(d));
+}
+
+void Diagnostics::error(std::string file, std::string message) {
+    Diagnostic d;
+    d.file = std::move(file);
+    d.message = std::move(message);
+    ++errors_;
+    items_.push_back(std::move(d));
+}
+
+void Diagnostics::warning(std::string file, std::string message) {
+    Diagnostic d;
+    d.severity = Severity::warning;
+    d.file = std::move(file);
+    d.message = std::move(message);
+    items_.push_back(std::move(d));
+}
+
+std::string Diagnostics::render(const Diagnostic& d) {
+    const char* sev = d.severity == Severity::error ? "error" : d.severity == Severity::warning ? "warning" : "note";
+    std::string out;
+    if (!d.file.empty()) {
+        out += d.file;
+        if (d.loc.line > 0) out += fmt::format(":{}:{}", d.loc.line, d.loc.col);
+        out += ": ";
+    }
+    out += fmt::format("{}: {}\n", sev, d.message);
+    if (d.loc.line > 0) {
+        out += d.line_text;
+        out += '\n';
+        // Keep tabs so the caret lines up in any tab width.
+        std::string pad;
+        for (int i = 0; i + 1 < d.loc.col; ++i) {
+            char c = static_cast<std::size_t>(i) < d.line_text.size() ? d.line_text[static_cast<std::size_t>(i)] : ' ';
+            pad += c == '\t' ? '\t' : ' ';
+        }
+        out += pad;
+        out += "^\n";
+    }
+    return out;
+}
+
+std::string Diagnostics::render() const {
+    std::string out;
+    for (const auto& d : items_) out += render(d);
+    return out;
+}
+
+std::optional<std::string> read_file(const std::string& path, Diagnostics& diags) {
+    std::error_code ec;
+    if (std::filesystem::is_directory(path, ec)) {
+        diags.error(path, "cannot read file: it is a directory");
+        return std::nullopt;
+    }
+    std::ifstream in(path, std::ios::binary);
+    if (!in) {
+        diags.error(path, fmt::format("cannot read file: {}", std::strerror(errno)));
+        return std::nullopt;
+    }
+    std::ostringstream ss;
+    ss << in.rdbuf();
+    if (in.bad()) {
+        diags.error(path, "cannot read file: read failed");
+        return std::nullopt;
+    }
+    return ss.str();
+}
+
+std::optional<Source> load_source(const std::string& path, Diagnostics& diags) {
+    auto text = read_file(path, diags);
+    if (!text) return std::nullopt;
+    return Source(path, std::move(*text));
+}
+
+bool write_file_atomic(const std::string& path, std::string_view content, Diagnostics& diags) {
+    namespace fs = std::filesystem;
+    fs::path target(path);
+    fs::path tmp = target;
+    tmp += ".meander-tmp";
+    {
+        std::ofstream out(tmp, std::ios::binary | std::ios::trunc);
+        if (!out) {
+            diags.error(path, fmt::format("cannot write file: {}", std::strerror(errno)));
+            return false;
+        }
+        out.write(content.data(), static_cast<std::streamsize>(content.size()));
+        out.flush();
+        if (!out) {
+            out.close();
+            std::error_code ec;
+            fs::remove(tmp, ec);
+            diags.error(path, "cannot write file: write failed");
+            return false;
+        }
+    }
+    std::error_code ec;
+    fs::rename(tmp, target, ec);
+    if (ec) {
+        fs::remove(tmp, ec);
+        diags.error(path, fmt::format("cannot write file: {}", ec.message()));
+        return false;
+    }
+    return true;
+}
+
+std::uint64_t fnv1a64(std::string_view bytes, std::uint64_t seed) {
+    std::uint64_t h = seed;
+    for (unsigned char c : bytes) {
+        h ^= c;
+        h *= 0x100000001b3ULL;
+    }
+    return h;
+}
+
+namespace {
+
+bool is_blank(std::string_view s) {
+    for (char c : s)
+        if (c != ' ' && c != '\t' && c != '\r') return false;
+    return true;
+}
+
+// Parses one number spanning exactly [b, e) (spaces around allowed).
+bool parse_number(std::string_view field, double& out) {
+    std::size_t b = 0, e = field.size();
+    while (b < e && (field[b] == ' ' || field[b] == '\t')) ++b;
+    while (e > b && (field[e - 1] == ' ' || field[e - 1] == '\t' || field[e - 1] == '\r')) --e;
+    if (b == e) return false;
+    std::string tmp(field.substr(b, e - b));
+    // strtod is locale-dependent for the decimal point; the "C" locale is the
+    // default in our programs, which never call setlocale.
+    char* end = nullptr;
+    errno = 0;
+    out = std::strtod(tmp.c_str(), &end);
+    return end == tmp.c_str() + tmp.size() && errno != ERANGE;
+}
+
+}  // namespace
+
+std::optional<std::vector<std::vector<double>>> read_csv_rows(const std::string& path, int width, Diagnostics& diags) {
+    auto text = read_file(path, diags);
+    if (!text) return std::nullopt;
+    Source src(path, *text);
+    std::vector<std::vector<double>> rows;
+    bool first_content = true;
+    int errors_before = diags.error_count();
+    for (std::size_t li = 1; li <= src.line_starts.size(); ++li) {
+        std::string_view line = src.line_text(static_cast<int>(li));
+        if (is_blank(line) || line.front() == '#') continue;
+        std::vector<double> row;
+        std::vector<std::size_t> starts;
+        bool bad = false;
+        std::size_t bad_col = 0;
+        std::size_t pos = 0;
+        while (true) {
+            std::size_t comma = line.find(',', pos);
+            std::string_view field = line.substr(pos, comma == std::string_view::npos ? std::string_view::npos : comma - pos);
+            double v = 0;
+            if (!parse_number(field, v)) {
+                if (!bad) bad_col = pos;
+                bad = true;
+            }
+            row.push_back(v);
+            starts.push_back(pos);
+            if (comma == std::string_view::npos) break;
+            pos = comma + 1;
+        }
+        if (bad && first_content) {  // a header line of names
+            first_content = false;
+            if (static_cast<int>(row.size()) != width)
+                diags.error(src, Loc{static_cast<int>(li), 1},
+                            fmt::format("header names {} columns, expected {}", row.size(), width));
+            continue;
+        }
+        first_content = false;
+        if (bad) {
+            diags.error(src, Loc{static_cast<int>(li), static_cast<int>(bad_col + 1)}, "expected a number");
+            continue;
+        }
+        if (static_cast<int>(row.size()) != width) {
+            diags.error(src, Loc{static_cast<int>(li), 1},
+                        fmt::format("row has {} values, expected {}", row.size(), width));
+            continue;
+        }
+        rows.push_back(std::move(row));
+    }
+    if (diags.error_count() != errors_before) return std::nullopt;
+    if (rows.empty()) {
+        diags.error(path, "no input rows");
+        return std::nullopt;
+    }
+    return rows;
+}
+
+std::string format_double(double v) { return fmt::format("{}", v); }
+std::string format_float(float v) { return fmt::format("{}", v); }
+
+}  // namespace meander

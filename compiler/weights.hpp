@@ -1,0 +1,43 @@
+// Weights: read NumPy .npy/.npz, a folder of .npy files, or a weight listing
+// (.mnw), and bind the tensors to the model's layers.
+#pragma once
+
+#include <cstddef>
+#include <optional>
+#include <string>
+#include <vector>
+
+#include "../runtime/model.hpp"
+#include "source.hpp"
+
+namespace meander {
+
+struct Tensor {
+    std::string name;
+    std::vector<std::size_t> shape;
+    std::vector<double> values;     // C order, converted exactly from the stored dtype
+    std::string dtype;              // "float32" or "float64"
+};
+
+struct TensorSet {
+    std::string path;
+    std::vector<Tensor> tensors;    // in file order
+    const Tensor* find(const std::string& name) const;
+};
+
+// By the path: "*.npz", "*.npy" (one tensor, named after the file's stem),
+// a folder (every "*.npy" in it, named after their stems, sorted by name),
+// "*.mnw" (weight listing).
+std::optional<TensorSet> read_weights(const std::string& path, Diagnostics& diags);
+
+// Fills every Dense's weight and bias; reports missing, extra, misshapen and
+// non-finite tensors at the layer's position in the description.
+bool bind_weights(Model& model, const Source& src, const TensorSet& set, Diagnostics& diags);
+
+// The weight listing text of a tensor set (round-trips exactly).
+std::string write_listing(const TensorSet& set);
+
+// Raw bytes of the weights source, for the content hash (a folder: its files in name order).
+std::optional<std::string> weights_bytes(const std::string& path, Diagnostics& diags);
+
+}  // namespace meander

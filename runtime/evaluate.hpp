@@ -1,0 +1,32 @@
+// The reference evaluator: the whole model in double precision on Eigen.
+#pragma once
+
+#include <Eigen/Dense>
+#include <string>
+
+#include "integrate.hpp"
+#include "model.hpp"
+
+namespace meander {
+
+enum class EvalStatus { ok, input_not_finite, state_not_finite, step_limit, step_too_small };
+std::string_view eval_status_name(EvalStatus s);  // "ok", "step_limit", ... (the emitted result names)
+
+struct EvalResult {
+    EvalStatus status = EvalStatus::ok;
+    Eigen::VectorXd output;         // valid when status == ok
+    IntegrateStats stats;           // summed over every continuous block of the model
+    std::string block;              // name of the block that failed, when status != ok
+};
+
+// `model` must have passed check_model and bind_weights.
+EvalResult evaluate(const Model& model, const Eigen::VectorXd& input);
+
+// One field evaluation of a continuous block: dy = f(t, y), y of size block.state().
+void eval_field(const Continuous& block, double t, const Eigen::VectorXd& y, Eigen::VectorXd& dy);
+
+// Multiply-accumulates of one field evaluation, and of a dense layer.
+long dense_macs(const Dense& d);
+long field_macs(const Continuous& block);
+
+}  // namespace meander

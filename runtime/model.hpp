@@ -1,0 +1,111 @@
+// The bound model: plain data shared by every stage after parsing.
+// The parser fills names, sizes and locations; bind_weights fills the
+// matrices. Nothing here knows about text or files.
+#pragma once
+
+#include <Eigen/Dense>
+#include <optional>
+#include <string>
+#include <string_view>
+#include <vector>
+
+namespace meander {
+
+// 1-based line and byte column in the description; 0 means "no position".
+struct Loc {
+    int line = 0;
+    int col = 0;
+};
+
+enum class Precision { float32, float64 };
+
+enum class Activation { identity, relu, leaky_relu, tanh, sigmoid, softplus, silu, gelu, elu, softmax };
+
+// Spelling used in descriptions ("leaky-relu", "gelu", ...).
+std::string_view activation_name(Activation a);
+std::optional<Activation> activation_from_name(std::string_view s);
+
+struct Dense {
+    std::string name;
+    Loc loc;                        // position of the layer's name
+    int in = 0;                     // declared input width, without time
+    bool time_input = false;        // "+ t": t joins the input as its last column
+    int out = 0;
+    Activation act = Activation::identity;
+    double act_param = 0.0;         // leaky-relu slope, elu alpha (defaults applied by the parser)
+    std::string weight_tensor;      // resolved tensor names (default "<name>.weight"/"<name>.bias")
+    std::string bias_tensor;
+    bool has_bias = true;
+    Eigen::MatrixXd weight;         // out x (in + time_input); filled by bind_weights
+    Eigen::VectorXd bias;           // out (size 0 when !has_bias); filled by bind_weights
+
+    int in_total() const { return in + (time_input ? 1 : 0); }
+};
+
+enum class Controller { integral, pi };
+
+struct SolverSpec {
+    std::string method;             // key of a tableau in runtime/tableau.hpp
+    Loc loc;                        // position of the method name
+    int steps = 0;                  // fixed-step methods: number of equal steps
+    double rtol = 0.0;              // adaptive methods
+    double atol = 0.0;
+    int max_steps = 0;              // adaptive: attempted steps (accepted + rejected) allowed
+    double first_step = 0.0;        // adaptive: 0 = automatic (HNW I, II.4)
+    Controller controller = Controller::integral;
+    double safety = 0.9;
+    double min_factor = 0.2;
+    double max_factor = 10.0;
+    double pi_alpha = 0.7;          // PI controller (Gustafsson 1991): exponents alpha/k and beta/k,
+    double pi_beta = 0.4;           // k = embedded order + 1
+    // Which options were written, so the canonical form and diagnostics can tell defaults apart.
+    std::vector<std::string> written;
+};
+
+struct Block;
+
+struct Residual {
+    std::string name;
+    Loc loc;
+    int width = 0;
+    std::vector<Block> body;        // dense layers and residual blocks; output width == width
+};
+
+struct Continuous {
+    std::string name;
+    Loc loc;
+    int width = 0;                  // width of the incoming state
+    int augment = 0;                // zero-filled extra state dimensions (Dupont et al. 2019)
+    double t0 = 0.0;
+    double t1 = 1.0;
+    Loc interval_loc;
+    std::vector<Block> field;       // f(h, t): maps width+augment -> width+augment
+    SolverSpec solver;
+    std::optional<SolverSpec> trained;  // solver the model was trained with, if recorded
+
+    int state() const { return width + augment; }  // also the block's output width
+};
+
+struct Block {
+    enum class Kind { dense, residual, continuous };
+    Kind kind = Kind::dense;
+    Dense dense;
+    Residual residual;
+    Continuous continuous;
+};
+
+struct Model {
+    std::string name;               // becomes the C++ namespace
+    Loc loc;
+    std::string weights_path;       // as written; relative to the description's folder
+    Loc weights_loc;
+    std::string input_name;
+    int input_size = 0;
+    Loc input_loc;
+    std::string output_name;
+    int output_size = 0;
+    Loc output_loc;
+    std::vector<Block> blocks;
+};
+
+}  // namespace meander
