@@ -1,4 +1,68 @@
-# meander_generate(TARGET name DESCRIPTION file.mnd [OUTPUT_DIR dir] [PRECISION float32|float64])
-# Regenerates the emitted C++ whenever the description, its weights or the
-# meander binary change, and adds the result to an object library `name`.
-# (Filled in by the build-integration work.)
+# meander_generate(<target> DESCRIPTION <file.mnd>
+#                  [OUTPUT_DIR <dir>] [PRECISION float32|float64] [C_API])
+#
+# Emits C++ for a description at build time and makes it a static library
+# <target> whose include folder holds <model>.hpp. The emitted files are
+# regenerated whenever the description, its weights or the meander binary
+# change. Inside this project the freshly built `meander` target is used;
+# elsewhere set MEANDER_EXECUTABLE or put meander on PATH.
+function(meander_generate target)
+  cmake_parse_arguments(MG "C_API" "DESCRIPTION;OUTPUT_DIR;PRECISION" "" ${ARGN})
+  if(NOT MG_DESCRIPTION)
+    message(FATAL_ERROR "meander_generate(${target}): DESCRIPTION is required")
+  endif()
+  get_filename_component(desc "${MG_DESCRIPTION}" ABSOLUTE)
+  get_filename_component(desc_dir "${desc}" DIRECTORY)
+  if(NOT MG_OUTPUT_DIR)
+    set(MG_OUTPUT_DIR "${CMAKE_CURRENT_BINARY_DIR}/${target}")
+  endif()
+  if(NOT MG_PRECISION)
+    set(MG_PRECISION float32)
+  endif()
+
+  # The model name and the weights path, read from the description so the
+  # outputs and dependencies are known when CMake configures.
+  file(STRINGS "${desc}" model_line REGEX "^[ \t]*model[ \t]+[A-Za-z_][A-Za-z0-9_]*" LIMIT_COUNT 1)
+  string(REGEX REPLACE "^[ \t]*model[ \t]+([A-Za-z_][A-Za-z0-9_]*).*" "\\1" model "${model_line}")
+  if(NOT model)
+    message(FATAL_ERROR "meander_generate(${target}): no 'model NAME' line in ${desc}")
+  endif()
+  file(STRINGS "${desc}" weights_line REGEX "^[ \t]*weights[ \t]+\"[^\"]*\"" LIMIT_COUNT 1)
+  string(REGEX REPLACE "^[ \t]*weights[ \t]+\"([^\"]*)\".*" "\\1" weights "${weights_line}")
+  set(deps "${desc}")
+  if(weights)
+    get_filename_component(weights "${weights}" ABSOLUTE BASE_DIR "${desc_dir}")
+    if(IS_DIRECTORY "${weights}")
+      file(GLOB weight_files CONFIGURE_DEPENDS "${weights}/*.npy")
+      list(APPEND deps ${weight_files})
+    else()
+      list(APPEND deps "${weights}")
+    endif()
+  endif()
+
+  if(TARGET meander)
+    set(tool "$<TARGET_FILE:meander>")
+    list(APPEND deps meander)
+  else()
+    if(NOT MEANDER_EXECUTABLE)
+      find_program(MEANDER_EXECUTABLE meander REQUIRED)
+    endif()
+    set(tool "${MEANDER_EXECUTABLE}")
+    list(APPEND deps "${MEANDER_EXECUTABLE}")
+  endif()
+
+  set(extra)
+  if(MG_C_API)
+    list(APPEND extra --c-api)
+  endif()
+  set(outputs "${MG_OUTPUT_DIR}/${model}.hpp" "${MG_OUTPUT_DIR}/${model}.cpp")
+  add_custom_command(
+    OUTPUT ${outputs}
+    COMMAND "${tool}" compile "${desc}" -o "${MG_OUTPUT_DIR}" --precision ${MG_PRECISION} ${extra}
+    DEPENDS ${deps}
+    COMMENT "meander: emitting ${model} from ${MG_DESCRIPTION}"
+    VERBATIM)
+  add_library(${target} STATIC "${MG_OUTPUT_DIR}/${model}.cpp")
+  target_include_directories(${target} PUBLIC "${MG_OUTPUT_DIR}")
+  target_compile_features(${target} PUBLIC cxx_std_17)
+endfunction()

@@ -1,2 +1,317 @@
-// Command line: calls the stages in a line. (Being written.)
-int main() { return 2; }
+// The command line: reads the arguments, then calls the stages in a line:
+// source -> parse -> check -> weights -> (eval | emit | verify | cost | format).
+#include <CLI/CLI.hpp>
+#include <fmt/format.h>
+
+#include <cstdio>
+#include <filesystem>
+#include <iostream>
+#include <map>
+
+#include "compiler/check.hpp"
+#include "compiler/cost.hpp"
+#include "compiler/dump.hpp"
+#include "compiler/emit.hpp"
+#include "compiler/format.hpp"
+#include "compiler/lower.hpp"
+#include "compiler/parse.hpp"
+#include "compiler/source.hpp"
+#include "compiler/verify.hpp"
+#include "compiler/weights.hpp"
+#include "runtime/evaluate.hpp"
+
+namespace fs = std::filesystem;
+using namespace meander;
+
+namespace {
+
+constexpr int kModelError = 1;
+constexpr int kUsageError = 2;
+
+// Prints what was collected; returns true when there were no errors.
+bool flush(const Diagnostics& diags) {
+    std::string text = diags.render();
+    if (!text.empty()) std::fputs(text.c_str(), stderr);
+    return diags.ok();
+}
+
+struct Loaded {
+    Source source;
+    Model model;
+    std::string content_hash;
+};
+
+// The front of every command: parse, check, read and bind the weights.
+std::optional<Loaded> load_model(const std::string& path, Precision precision, Diagnostics& diags,
+                                 bool with_weights = true) {
+    auto src = load_source(path, diags);
+    if (!src) return std::nullopt;
+    auto model = parse_description(*src, diags);
+    if (!model || !diags.ok()) return std::nullopt;
+    CheckOptions copts;
+    copts.precision = precision;
+    if (!check_model(*model, *src, copts, diags)) return std::nullopt;
+    Loaded out{*src, std::move(*model), {}};
+    std::uint64_t hash = fnv1a64(out.source.text);
+    if (with_weights) {
+        fs::path wpath = fs::path(out.model.weights_path);
+        if (wpath.is_relative()) wpath = fs::path(path).parent_path() / wpath;
+        auto set = read_weights(wpath.lexically_normal().string(), diags);
+        if (!set) return std::nullopt;
+        if (!bind_weights(out.model, out.source, *set, diags)) return std::nullopt;
+        auto bytes = weights_bytes(wpath.lexically_normal().string(), diags);
+        if (!bytes) return std::nullopt;
+        hash = fnv1a64(*bytes, hash);
+    }
+    out.content_hash = fmt::format("fnv1a64:{:016x}", hash);
+    return out;
+}
+
+Precision precision_of(const std::string& s) { return s == "float64" ? Precision::float64 : Precision::float32; }
+
+std::vector<Eigen::VectorXd> to_vectors(const std::vector<std::vector<double>>& rows) {
+    std::vector<Eigen::VectorXd> v;
+    for (const auto& r : rows) v.push_back(Eigen::Map<const Eigen::VectorXd>(r.data(), static_cast<Eigen::Index>(r.size())));
+    return v;
+}
+
+std::string csv_header(const Model& m) {
+    std::string h;
+    for (int i = 0; i < m.output_size; ++i) h += fmt::format("{}{}.{}", i ? "," : "", m.output_name, i);
+    return h + "\n";
+}
+
+int cmd_check(const std::string& model_path, const std::string& precision) {
+    Diagnostics diags;
+    auto loaded = load_model(model_path, precision_of(precision), diags);
+    flush(diags);
+    if (!loaded) return kModelError;
+    std::printf("%s: ok (%s, content %s)\n", model_path.c_str(), loaded->model.name.c_str(), loaded->content_hash.c_str());
+    return 0;
+}
+
+int cmd_eval(const std::string& model_path, const std::string& input, const std::string& output, bool stats) {
+    Diagnostics diags;
+    auto loaded = load_model(model_path, Precision::float64, diags);
+    if (!loaded) return flush(diags), kModelError;
+    auto rows = read_csv_rows(input, loaded->model.input_size, diags);
+    if (!rows) return flush(diags), kModelError;
+    std::string csv = csv_header(loaded->model);
+    std::string stat_text;
+    if (stats) stat_text = "row  field_evals  steps_taken  steps_rejected  h_min  h_max\n";
+    int row = 0;
+    for (const auto& in : to_vectors(*rows)) {
+        ++row;
+        EvalResult r = evaluate(loaded->model, in);
+        if (r.status != EvalStatus::ok) {
+            diags.error(input, fmt::format("row {}: {}{}", row, eval_status_name(r.status),
+                                           r.block.empty() ? "" : fmt::format(" in block '{}'", r.block)));
+            continue;
+        }
+        for (Eigen::Index i = 0; i < r.output.size(); ++i) csv += (i ? "," : "") + format_double(r.output[i]);
+        csv += "\n";
+        if (stats)
+            stat_text += fmt::format("{}  {}  {}  {}  {}  {}\n", row, r.stats.field_evals, r.stats.steps_taken,
+                                     r.stats.steps_rejected, format_double(r.stats.h_min), format_double(r.stats.h_max));
+    }
+    if (!diags.ok()) return flush(diags), kModelError;
+    if (output.empty()) {
+        std::fputs(csv.c_str(), stdout);
+    } else if (!write_file_atomic(output, csv, diags)) {
+        return flush(diags), kModelError;
+    }
+    flush(diags);
+    if (stats) std::fputs(stat_text.c_str(), stderr);
+    return 0;
+}
+
+EmitOptions emit_options(const Loaded& l, Precision p, bool c_api) {
+    EmitOptions o;
+    o.precision = p;
+    o.c_api = c_api;
+    o.content_hash = l.content_hash;
+    o.meander_version = MEANDER_VERSION;
+    return o;
+}
+
+int cmd_compile(const std::string& model_path, const std::string& outdir, const std::string& precision, bool c_api,
+                const std::string& self_test, const std::string& dump) {
+    Diagnostics diags;
+    Precision p = precision_of(precision);
+    auto loaded = load_model(model_path, p, diags);
+    if (!loaded) return flush(diags), kModelError;
+    EmitOptions opts = emit_options(*loaded, p, c_api);
+    if (!self_test.empty()) {
+        auto rows = read_csv_rows(self_test, loaded->model.input_size, diags);
+        if (!rows) return flush(diags), kModelError;
+        int row = 0;
+        for (const auto& in : to_vectors(*rows)) {
+            ++row;
+            EvalResult r = evaluate(loaded->model, in);
+            if (r.status != EvalStatus::ok) {
+                diags.error(self_test, fmt::format("row {}: {} in the reference evaluation; a golden vector must evaluate",
+                                                   row, eval_status_name(r.status)));
+                continue;
+            }
+            opts.self_test_inputs.emplace_back(in.data(), in.data() + in.size());
+            opts.self_test_outputs.emplace_back(r.output.data(), r.output.data() + r.output.size());
+        }
+        if (!diags.ok()) return flush(diags), kModelError;
+    }
+    if (dump == "parse") std::fputs(dump_model(loaded->model).c_str(), stdout);
+    if (dump == "lower") std::fputs(dump_lowered(lower_model(loaded->model, p)).c_str(), stdout);
+    auto files = emit_model(loaded->model, opts);
+    if (dump == "emit")
+        for (const auto& f : files) std::fputs(fmt::format("// ---- {}\n{}", f.name, f.text).c_str(), stdout);
+    std::error_code ec;
+    fs::create_directories(outdir, ec);
+    if (ec) {
+        diags.error(outdir, fmt::format("cannot create folder: {}", ec.message()));
+        return flush(diags), kModelError;
+    }
+    for (const auto& f : files)
+        if (!write_file_atomic((fs::path(outdir) / f.name).string(), f.text, diags)) return flush(diags), kModelError;
+    flush(diags);
+    return 0;
+}
+
+int cmd_verify(const std::string& model_path, const std::string& input, const std::string& precision, double tol,
+               const std::string& cxx, const std::string& keep, bool show) {
+    Diagnostics diags;
+    Precision p = precision_of(precision);
+    auto loaded = load_model(model_path, p, diags);
+    if (!loaded) return flush(diags), kModelError;
+    auto rows = read_csv_rows(input, loaded->model.input_size, diags);
+    if (!rows) return flush(diags), kModelError;
+    VerifyOptions vo;
+    vo.tolerance = tol;
+    vo.cxx = cxx;
+    vo.keep_dir = keep;
+    auto rep = verify_model(loaded->model, emit_options(*loaded, p, false), *rows, vo, diags);
+    flush(diags);
+    if (!rep) return kModelError;
+    if (show) std::fputs(render_verify_rows(*rep).c_str(), stdout);
+    std::fputs(render_verify(*rep, p).c_str(), stdout);
+    return rep->passed() ? 0 : kModelError;
+}
+
+int cmd_cost(const std::string& model_path, const std::string& input, const std::string& precision,
+             const std::string& core, double cycles_per_mac, bool json) {
+    Diagnostics diags;
+    Precision p = precision_of(precision);
+    auto loaded = load_model(model_path, p, diags);
+    if (!loaded) return flush(diags), kModelError;
+    CostOptions co;
+    co.precision = p;
+    co.core = core;
+    co.cycles_per_mac = cycles_per_mac;
+    if (!input.empty()) {
+        auto rows = read_csv_rows(input, loaded->model.input_size, diags);
+        if (!rows) return flush(diags), kModelError;
+        co.inputs = *rows;
+    }
+    co.emit = emit_options(*loaded, p, false);
+    auto rep = measure_cost(loaded->model, co, diags);
+    flush(diags);
+    if (!rep) return kModelError;
+    std::fputs((json ? render_cost_json(*rep) : render_cost_text(*rep)).c_str(), stdout);
+    return 0;
+}
+
+int cmd_format(const std::string& model_path, bool in_place, bool check_only) {
+    Diagnostics diags;
+    auto src = load_source(model_path, diags);
+    if (!src) return flush(diags), kModelError;
+    auto text = format_description(*src, diags);
+    if (!text) return flush(diags), kModelError;
+    flush(diags);
+    if (check_only) {
+        if (*text == src->text) return 0;
+        std::fprintf(stderr, "%s: not in canonical form (run meander format --in-place)\n", model_path.c_str());
+        return kModelError;
+    }
+    if (in_place) {
+        if (*text == src->text) return 0;
+        return write_file_atomic(model_path, *text, diags) ? 0 : (flush(diags), kModelError);
+    }
+    std::fputs(text->c_str(), stdout);
+    return 0;
+}
+
+}  // namespace
+
+int main(int argc, char** argv) {
+    CLI::App app{"meander: compiles networks with continuous-depth blocks into standalone C++ for microcontrollers"};
+    app.set_version_flag("--version", std::string("meander ") + MEANDER_VERSION);
+    app.require_subcommand(1);
+
+    const std::vector<std::string> precisions{"float32", "float64"};
+    std::string model, input, output, outdir, precision = "float32", self_test, dump, cxx, keep, core = "cortex-m4f";
+    double tol = -1.0, cycles_per_mac = -1.0;
+    bool stats = false, show = false, c_api = false, json = false, in_place = false, check_only = false;
+
+    auto* check = app.add_subcommand("check", "parse the description, check shapes, read and bind the weights");
+    check->add_option("model", model, "description (.mnd)")->required();
+    check->add_option("--precision", precision, "precision the code will be emitted in")->check(CLI::IsMember(precisions));
+
+    auto* eval = app.add_subcommand("eval", "evaluate the model in double precision; CSV in, CSV out");
+    eval->add_option("model", model, "description (.mnd)")->required();
+    eval->add_option("--input", input, "CSV of input rows")->required();
+    eval->add_option("--output", output, "write the CSV here instead of standard output");
+    eval->add_flag("--stats", stats, "print field evaluations, accepted/rejected steps and step sizes per row (stderr)");
+
+    auto* compile = app.add_subcommand("compile", "emit standalone C++ for the model");
+    compile->add_option("model", model, "description (.mnd)")->required();
+    compile->add_option("-o,--output-dir", outdir, "folder for the emitted files")->required();
+    compile->add_option("--precision", precision, "float32 (default) or float64")->check(CLI::IsMember(precisions));
+    compile->add_flag("--c-api", c_api, "also emit an extern \"C\" entry point");
+    compile->add_option("--self-test", self_test, "CSV of golden inputs: emit a self-test with eval's outputs for them");
+    compile->add_option("--dump", dump, "print an intermediate form: parse, lower, emit")
+        ->check(CLI::IsMember({"parse", "lower", "emit"}));
+
+    auto* verify = app.add_subcommand("verify", "build the emitted code with the host compiler and compare it with eval");
+    verify->add_option("model", model, "description (.mnd)")->required();
+    verify->add_option("--input", input, "CSV of input rows")->required();
+    verify->add_option("--precision", precision, "float32 (default) or float64")->check(CLI::IsMember(precisions));
+    verify->add_option("--tolerance", tol, "fail when |emitted - eval| > tolerance * max(1, |eval|)")
+        ->check(CLI::PositiveNumber);
+    verify->add_option("--cxx", cxx, "host C++ compiler (default: $CXX, else c++)");
+    verify->add_option("--keep", keep, "build in this folder and keep the files");
+    verify->add_flag("--show", show, "print every output beside eval's");
+
+    auto* cost = app.add_subcommand("cost", "flash, RAM, stack, multiply-accumulates and field evaluations");
+    cost->add_option("model", model, "description (.mnd)")->required();
+    cost->add_option("--input", input, "CSV of input rows: measure field evaluations over them");
+    cost->add_option("--precision", precision, "float32 (default) or float64")->check(CLI::IsMember(precisions));
+    cost->add_option("--core", core, "core class for the cycle estimate")
+        ->check(CLI::IsMember({"cortex-m0", "cortex-m3", "cortex-m4f", "cortex-m7"}));
+    cost->add_option("--cycles-per-mac", cycles_per_mac, "override the core's cycles per multiply-accumulate")
+        ->check(CLI::PositiveNumber);
+    cost->add_flag("--json", json, "JSON for tools instead of text");
+
+    auto* format = app.add_subcommand("format", "print the description in canonical layout");
+    format->add_option("model", model, "description (.mnd)")->required();
+    format->add_flag("-i,--in-place", in_place, "rewrite the file");
+    format->add_flag("--check", check_only, "exit 1 if the file is not in canonical layout");
+
+    try {
+        app.parse(argc, argv);
+    } catch (const CLI::ParseError& e) {
+        int rc = app.exit(e);
+        return rc == 0 ? 0 : kUsageError;
+    }
+
+    try {
+        if (*check) return cmd_check(model, precision);
+        if (*eval) return cmd_eval(model, input, output, stats);
+        if (*compile) return cmd_compile(model, outdir, precision, c_api, self_test, dump);
+        if (*verify) return cmd_verify(model, input, precision, tol, cxx, keep, show);
+        if (*cost) return cmd_cost(model, input, precision, core, cycles_per_mac, json);
+        if (*format) return cmd_format(model, in_place, check_only);
+    } catch (const std::exception& e) {
+        // Every expected failure is a diagnostic; this is a last line against a crash.
+        std::fprintf(stderr, "meander: internal error: %s\n", e.what());
+        return kModelError;
+    }
+    return kUsageError;
+}

@@ -1,0 +1,230 @@
+#include "verify.hpp"
+
+#include <fmt/format.h>
+
+#include <cmath>
+#include <cstdio>
+#include <cstdlib>
+#include <filesystem>
+#include <sstream>
+
+#include "../runtime/evaluate.hpp"
+
+namespace meander {
+
+namespace fs = std::filesystem;
+
+double default_tolerance(Precision p) { return p == Precision::float32 ? 1e-4 : 1e-10; }
+
+namespace {
+
+std::string literal(double v, Precision p) {
+    if (p == Precision::float64) {
+        std::string s = format_double(v);
+        if (s.find_first_of(".eEn") == std::string::npos) s += ".0";
+        return s;
+    }
+    std::string s = format_float(static_cast<float>(v));
+    if (s.find_first_of(".eEn") == std::string::npos) s += ".0";
+    return s + "f";
+}
+
+// A driver that runs every input row and prints, per row, the result code,
+// the counters and the outputs with enough digits to round-trip.
+std::string driver_source(const Model& m, const std::vector<std::vector<double>>& inputs, Precision p) {
+    std::string s;
+    s += fmt::format("#include \"{}.hpp\"\n#include <cstdio>\n\n", m.name);
+    s += fmt::format("static const {0}::real kInputs[{1}][{2}] = {{\n", m.name, inputs.size(), m.input_size);
+    for (const auto& row : inputs) {
+        s += "    {";
+        for (std::size_t i = 0; i < row.size(); ++i) s += (i ? ", " : "") + literal(row[i], p);
+        s += "},\n";
+    }
+    s += "};\n\n";
+    s += fmt::format(
+        "int main() {{\n"
+        "    static {0}::context ctx;\n"
+        "    {0}::real out[{0}::output_size];\n"
+        "    for (unsigned r = 0; r < {1}u; ++r) {{\n"
+        "        {0}::result res = {0}::infer(ctx, kInputs[r], out);\n"
+        "        std::printf(\"%u %u %u %u\", static_cast<unsigned>(res), static_cast<unsigned>(ctx.count.field_evals),\n"
+        "                    static_cast<unsigned>(ctx.count.steps_taken), static_cast<unsigned>(ctx.count.steps_rejected));\n"
+        "        for (unsigned i = 0; i < {0}::output_size; ++i) std::printf(\" %.{2}g\", static_cast<double>(out[i]));\n"
+        "        std::printf(\"\\n\");\n"
+        "    }}\n"
+        "    return 0;\n"
+        "}}\n",
+        m.name, inputs.size(), p == Precision::float32 ? 9 : 17);
+    return s;
+}
+
+std::string quote(const std::string& s) {
+    std::string q = "'";
+    for (char c : s) {
+        if (c == '\'') q += "'\\''"; else q += c;
+    }
+    return q + "'";
+}
+
+std::optional<std::string> run_capture(const std::string& cmd) {
+    FILE* pipe = popen(cmd.c_str(), "r");
+    if (!pipe) return std::nullopt;
+    std::string out;
+    char buf[4096];
+    std::size_t n;
+    while ((n = std::fread(buf, 1, sizeof buf, pipe)) > 0) out.append(buf, n);
+    int rc = pclose(pipe);
+    if (rc != 0) return std::nullopt;
+    return out;
+}
+
+unsigned status_code(EvalStatus s) {
+    // The emitted result enumerators carry the same order (DEVELOPERS.md, emitted API).
+    return static_cast<unsigned>(s);
+}
+
+}  // namespace
+
+std::optional<VerifyReport> verify_model(const Model& model, const EmitOptions& emit_opts,
+                                         const std::vector<std::vector<double>>& inputs,
+                                         const VerifyOptions& opts, Diagnostics& diags) {
+    const Precision p = emit_opts.precision;
+    std::error_code ec;
+    fs::path dir;
+    bool keep = !opts.keep_dir.empty();
+    if (keep) {
+        dir = opts.keep_dir;
+        fs::create_directories(dir, ec);
+        if (ec) {
+            diags.error(opts.keep_dir, fmt::format("cannot create folder: {}", ec.message()));
+            return std::nullopt;
+        }
+    } else {
+        std::string tmpl = (fs::temp_directory_path(ec) / "meander-verify-XXXXXX").string();
+        if (!mkdtemp(tmpl.data())) {
+            diags.error(tmpl, "cannot create a temporary folder");
+            return std::nullopt;
+        }
+        dir = tmpl;
+    }
+    struct Cleanup {
+        fs::path d;
+        bool keep;
+        ~Cleanup() {
+            std::error_code e;
+            if (!keep) fs::remove_all(d, e);
+        }
+    } cleanup{dir, keep};
+
+    for (const auto& f : emit_model(model, emit_opts))
+        if (!write_file_atomic((dir / f.name).string(), f.text, diags)) return std::nullopt;
+    if (!write_file_atomic((dir / "verify_driver.cpp").string(), driver_source(model, inputs, p), diags))
+        return std::nullopt;
+
+    std::string cxx = opts.cxx;
+    if (cxx.empty()) {
+        const char* env = std::getenv("CXX");
+        cxx = env && *env ? env : "c++";
+    }
+    // The flags users are told to build with: the emitted code must pass them.
+    std::string cmd = fmt::format(
+        "{} -std=c++17 -O2 -Wall -Wextra -Wconversion -Wdouble-promotion -Wshadow -Werror -fno-exceptions -fno-rtti "
+        "-o {} {} {} > {} 2>&1",
+        cxx, quote((dir / "verify_driver").string()), quote((dir / "verify_driver.cpp").string()),
+        quote((dir / (model.name + ".cpp")).string()), quote((dir / "build.log").string()));
+    if (std::system(cmd.c_str()) != 0) {
+        std::string log;
+        Diagnostics quiet;
+        if (auto text = read_file((dir / "build.log").string(), quiet)) log = *text;
+        if (log.size() > 4000) log = log.substr(0, 4000) + "\n[...]";
+        diags.error(cxx, fmt::format("building the emitted code failed:\n{}", log));
+        return std::nullopt;
+    }
+    auto out = run_capture(quote((dir / "verify_driver").string()));
+    if (!out) {
+        diags.error((dir / "verify_driver").string(), "the verify driver did not run to completion");
+        return std::nullopt;
+    }
+
+    VerifyReport rep;
+    rep.rows = static_cast<int>(inputs.size());
+    rep.outputs = model.output_size;
+    rep.tolerance = opts.tolerance >= 0 ? opts.tolerance : default_tolerance(p);
+    std::istringstream lines(*out);
+    for (std::size_t r = 0; r < inputs.size(); ++r) {
+        std::string line;
+        if (!std::getline(lines, line)) {
+            diags.error("verify", fmt::format("the driver printed {} rows, expected {}", r, inputs.size()));
+            return std::nullopt;
+        }
+        std::istringstream fields(line);
+        unsigned status = 0, evals = 0, taken = 0, rejected = 0;
+        fields >> status >> evals >> taken >> rejected;
+        rep.field_evals += evals;
+        rep.steps_taken += taken;
+        rep.steps_rejected += rejected;
+        Eigen::VectorXd in = Eigen::Map<const Eigen::VectorXd>(inputs[r].data(), static_cast<Eigen::Index>(inputs[r].size()));
+        EvalResult ref = evaluate(model, in);
+        rep.eval_field_evals += ref.stats.field_evals;
+        rep.emitted.emplace_back();
+        rep.reference.emplace_back();
+        if (status != status_code(ref.status)) {
+            ++rep.status_mismatches;
+            continue;
+        }
+        if (ref.status != EvalStatus::ok) continue;
+        for (int c = 0; c < model.output_size; ++c) {
+            std::string tok;
+            fields >> tok;
+            double got = std::strtod(tok.c_str(), nullptr);
+            double want = ref.output[c];
+            rep.emitted.back().push_back(got);
+            rep.reference.back().push_back(want);
+            double abs_err = std::fabs(got - want);
+            if (!(abs_err <= rep.tolerance * std::max(1.0, std::fabs(want)))) ++rep.failures;
+            if (!(abs_err <= rep.max_abs)) {
+                rep.max_abs = abs_err;
+                rep.max_abs_row = static_cast<int>(r);
+                rep.max_abs_col = c;
+            }
+            if (want != 0.0 && !(abs_err / std::fabs(want) <= rep.max_rel)) {
+                rep.max_rel = abs_err / std::fabs(want);
+                rep.max_rel_row = static_cast<int>(r);
+                rep.max_rel_col = c;
+            }
+        }
+    }
+    return rep;
+}
+
+std::string render_verify(const VerifyReport& r, Precision p) {
+    std::string s;
+    s += fmt::format("rows                 {}\n", r.rows);
+    s += fmt::format("outputs per row      {}\n", r.outputs);
+    s += fmt::format("precision            {}\n", p == Precision::float32 ? "float32" : "float64");
+    s += fmt::format("largest abs. error   {:.3g} (row {}, output {})\n", r.max_abs, r.max_abs_row + 1, r.max_abs_col);
+    s += fmt::format("largest rel. error   {:.3g} (row {}, output {})\n", r.max_rel, r.max_rel_row + 1, r.max_rel_col);
+    s += fmt::format("tolerance            {:.3g} x max(1, |eval|){}\n", r.tolerance,
+                     r.tolerance == default_tolerance(p) ? " (default for this precision)" : "");
+    s += fmt::format("field evaluations    emitted {}, eval {}\n", r.field_evals, r.eval_field_evals);
+    s += fmt::format("steps                {} accepted, {} rejected\n", r.steps_taken, r.steps_rejected);
+    if (r.status_mismatches) s += fmt::format("result codes         {} rows differ from eval\n", r.status_mismatches);
+    s += fmt::format("verdict              {}\n", r.passed() ? "agrees" : fmt::format("DISAGREES ({} outputs beyond tolerance)", r.failures));
+    return s;
+}
+
+std::string render_verify_rows(const VerifyReport& r) {
+    std::string s = fmt::format("{:>4}  {:>16}  {:>16}  {:>10}\n", "row", "emitted", "eval", "abs. error");
+    for (std::size_t i = 0; i < r.emitted.size(); ++i) {
+        if (r.emitted[i].empty()) {
+            s += fmt::format("{:>4}  result code differs from eval\n", i + 1);
+            continue;
+        }
+        for (std::size_t c = 0; c < r.emitted[i].size(); ++c)
+            s += fmt::format("{:>4}  {:>16.9g}  {:>16.9g}  {:>10.2e}\n", c == 0 ? fmt::format("{}", i + 1) : "",
+                             r.emitted[i][c], r.reference[i][c], std::fabs(r.emitted[i][c] - r.reference[i][c]));
+    }
+    return s;
+}
+
+}  // namespace meander

@@ -1,0 +1,51 @@
+// Verify: build the emitted code with the host compiler, run it on inputs and
+// compare every output with the reference evaluator.
+#pragma once
+
+#include <optional>
+#include <string>
+#include <vector>
+
+#include "../runtime/model.hpp"
+#include "emit.hpp"
+#include "source.hpp"
+
+namespace meander {
+
+struct VerifyOptions {
+    double tolerance = -1.0;        // < 0: the default for the precision (default_tolerance)
+    std::string cxx;                // host compiler; empty: $CXX, else "c++"
+    std::string keep_dir;           // non-empty: build there and keep the files
+};
+
+// The stated default: a deviation fails when |emitted - eval| > tol * max(1, |eval|).
+// float32: 1e-4 (float carries ~7 digits; errors grow through the layers and
+// the steps of a continuous block, and an adaptive solver in float can take
+// slightly different steps); float64: 1e-10.
+double default_tolerance(Precision p);
+
+struct VerifyReport {
+    int rows = 0;
+    int outputs = 0;
+    double tolerance = 0.0;
+    double max_abs = 0.0;           // largest |emitted - eval|
+    int max_abs_row = 0, max_abs_col = 0;
+    double max_rel = 0.0;           // largest |emitted - eval| / |eval| (where eval != 0)
+    int max_rel_row = 0, max_rel_col = 0;
+    int failures = 0;               // outputs beyond the tolerance
+    int status_mismatches = 0;      // rows whose result code differs from eval's status
+    long field_evals = 0, steps_taken = 0, steps_rejected = 0;  // emitted code, summed over rows
+    long eval_field_evals = 0;      // reference evaluator, summed over rows
+    std::vector<std::vector<double>> emitted, reference;  // per row (empty rows where a result code differs)
+    bool passed() const { return failures == 0 && status_mismatches == 0; }
+};
+
+std::optional<VerifyReport> verify_model(const Model& model, const EmitOptions& emit_opts,
+                                         const std::vector<std::vector<double>>& inputs,
+                                         const VerifyOptions& opts, Diagnostics& diags);
+
+std::string render_verify(const VerifyReport& r, Precision p);
+// Every row: the emitted code's outputs beside eval's.
+std::string render_verify_rows(const VerifyReport& r);
+
+}  // namespace meander

@@ -1,0 +1,196 @@
+// End-to-end tests of the meander command line on every sample: check, eval
+// against the trainer's own NumPy forward pass, compile (deterministic bytes),
+// verify (emitted code built under strict warnings agrees with eval), and the
+// guarantees about output files and exit codes.
+#include <gtest/gtest.h>
+
+#include <sys/wait.h>
+
+#include <cmath>
+#include <cstdio>
+#include <filesystem>
+#include <fstream>
+#include <sstream>
+#include <string>
+#include <vector>
+
+namespace fs = std::filesystem;
+
+namespace {
+
+struct Run {
+    int status = -1;
+    std::string out;  // stdout and stderr together
+};
+
+Run run(const std::string& args) {
+    std::string cmd = std::string(MEANDER_BINARY) + " " + args + " 2>&1";
+    Run r;
+    FILE* p = popen(cmd.c_str(), "r");
+    if (!p) return r;
+    char buf[4096];
+    std::size_t n;
+    while ((n = std::fread(buf, 1, sizeof buf, p)) > 0) r.out.append(buf, n);
+    int st = pclose(p);
+    r.status = WIFEXITED(st) ? WEXITSTATUS(st) : -1;
+    return r;
+}
+
+std::string slurp(const fs::path& p) {
+    std::ifstream in(p, std::ios::binary);
+    std::ostringstream ss;
+    ss << in.rdbuf();
+    return ss.str();
+}
+
+std::vector<std::vector<double>> read_csv(const std::string& text) {
+    std::vector<std::vector<double>> rows;
+    std::istringstream lines(text);
+    std::string line;
+    bool header = true;
+    while (std::getline(lines, line)) {
+        if (line.empty() || line[0] == '#') continue;
+        if (header) {  // both files start with a line of names
+            header = false;
+            continue;
+        }
+        std::vector<double> row;
+        std::istringstream fields(line);
+        std::string f;
+        while (std::getline(fields, f, ',')) row.push_back(std::strtod(f.c_str(), nullptr));
+        rows.push_back(row);
+    }
+    return rows;
+}
+
+std::vector<fs::path> samples() {
+    std::vector<fs::path> out;
+    for (const auto& dir : fs::directory_iterator(fs::path(MEANDER_SOURCE_DIR) / "samples")) {
+        if (!dir.is_directory()) continue;
+        for (const auto& f : fs::directory_iterator(dir.path()))
+            if (f.path().extension() == ".mnd") out.push_back(f.path());
+    }
+    std::sort(out.begin(), out.end());
+    return out;
+}
+
+fs::path scratch(const std::string& name) {
+    fs::path d = fs::path(MEANDER_BINARY_DIR) / "cli-scratch" / name;
+    fs::remove_all(d);
+    fs::create_directories(d);
+    return d;
+}
+
+TEST(Samples, ThereAreAtLeastTwo) { EXPECT_GE(samples().size(), 2u); }
+
+class SampleTest : public ::testing::TestWithParam<fs::path> {};
+
+TEST_P(SampleTest, ChecksClean) {
+    Run r = run("check " + GetParam().string());
+    EXPECT_EQ(r.status, 0) << r.out;
+    EXPECT_EQ(r.out.find("warning"), std::string::npos) << r.out;
+}
+
+// expected.csv comes from the sample's trainer (its own float64 NumPy forward
+// pass, samples/*/train.py), independent of meander's evaluator.
+TEST_P(SampleTest, EvalMatchesTrainerForwardPass) {
+    fs::path dir = GetParam().parent_path();
+    Run r = run("eval " + GetParam().string() + " --input " + (dir / "inputs.csv").string());
+    ASSERT_EQ(r.status, 0) << r.out;
+    auto got = read_csv(r.out);
+    auto want = read_csv(slurp(dir / "expected.csv"));
+    ASSERT_EQ(got.size(), want.size());
+    for (std::size_t i = 0; i < got.size(); ++i) {
+        ASSERT_EQ(got[i].size(), want[i].size()) << "row " << i;
+        for (std::size_t j = 0; j < got[i].size(); ++j)
+            EXPECT_NEAR(got[i][j], want[i][j], 1e-9 * std::max(1.0, std::fabs(want[i][j]))) << "row " << i << " col " << j;
+    }
+}
+
+TEST_P(SampleTest, CompileIsByteIdenticalTwice) {
+    std::string stem = GetParam().stem().string();
+    fs::path a = scratch(stem + "-a"), b = scratch(stem + "-b");
+    ASSERT_EQ(run("compile " + GetParam().string() + " -o " + a.string()).status, 0);
+    ASSERT_EQ(run("compile " + GetParam().string() + " -o " + b.string()).status, 0);
+    int files = 0;
+    for (const auto& f : fs::directory_iterator(a)) {
+        ++files;
+        EXPECT_EQ(slurp(f.path()), slurp(b / f.path().filename())) << f.path().filename();
+    }
+    EXPECT_GE(files, 2);
+}
+
+TEST_P(SampleTest, VerifyFloat32) {
+    fs::path dir = GetParam().parent_path();
+    Run r = run("verify " + GetParam().string() + " --input " + (dir / "inputs.csv").string());
+    EXPECT_EQ(r.status, 0) << r.out;
+    EXPECT_NE(r.out.find("agrees"), std::string::npos) << r.out;
+}
+
+TEST_P(SampleTest, VerifyFloat64) {
+    fs::path dir = GetParam().parent_path();
+    Run r = run("verify " + GetParam().string() + " --precision float64 --input " + (dir / "inputs.csv").string());
+    EXPECT_EQ(r.status, 0) << r.out;
+    EXPECT_NE(r.out.find("agrees"), std::string::npos) << r.out;
+}
+
+TEST_P(SampleTest, FormatIsIdempotent) {
+    std::string stem = GetParam().stem().string();
+    Run once = run("format " + GetParam().string());
+    ASSERT_EQ(once.status, 0) << once.out;
+    fs::path f = scratch(stem + "-fmt") / (stem + ".mnd");
+    std::ofstream(f) << once.out;
+    Run twice = run("format " + f.string());
+    ASSERT_EQ(twice.status, 0) << twice.out;
+    EXPECT_EQ(once.out, twice.out);
+}
+
+INSTANTIATE_TEST_SUITE_P(All, SampleTest, ::testing::ValuesIn(samples()),
+                         [](const ::testing::TestParamInfo<fs::path>& info) { return info.param.stem().string(); });
+
+// A failing compile leaves an existing output untouched and writes nothing new.
+TEST(Outputs, FailedCompileLeavesExistingFilesAlone) {
+    fs::path d = scratch("atomic");
+    fs::path mnd = d / "broken.mnd";
+    std::ofstream(mnd) << "model broken\nweights \"none.npz\"\ninput x[2]\ndense a: 3 -> 2\noutput y[2]\n";
+    fs::create_directories(d / "out");
+    std::ofstream(d / "out" / "broken.hpp") << "previous contents\n";
+    Run r = run("compile " + mnd.string() + " -o " + (d / "out").string());
+    EXPECT_EQ(r.status, 1) << r.out;
+    EXPECT_EQ(slurp(d / "out" / "broken.hpp"), "previous contents\n");
+    int entries = 0;
+    for ([[maybe_unused]] const auto& e : fs::directory_iterator(d / "out")) ++entries;
+    EXPECT_EQ(entries, 1);
+}
+
+TEST(Outputs, FailedEvalLeavesExistingCsvAlone) {
+    auto all = samples();
+    ASSERT_FALSE(all.empty());
+    fs::path d = scratch("atomic-eval");
+    std::ofstream(d / "in.csv") << "1,2\n";  // wrong width for every sample
+    std::ofstream(d / "out.csv") << "previous\n";
+    Run r = run("eval " + all.front().string() + " --input " + (d / "in.csv").string() + " --output " +
+                (d / "out.csv").string());
+    EXPECT_EQ(r.status, 1) << r.out;
+    EXPECT_EQ(slurp(d / "out.csv"), "previous\n");
+}
+
+TEST(ExitCodes, UsageErrorIsTwo) {
+    EXPECT_EQ(run("compile").status, 2);
+    EXPECT_EQ(run("frobnicate x.mnd").status, 2);
+    EXPECT_EQ(run("eval x.mnd --input a.csv --no-such-option").status, 2);
+}
+
+TEST(ExitCodes, MissingFileIsOneWithDiagnostic) {
+    Run r = run("check /nonexistent/model.mnd");
+    EXPECT_EQ(r.status, 1);
+    EXPECT_EQ(r.out, "/nonexistent/model.mnd: error: cannot read file: No such file or directory\n");
+}
+
+TEST(Version, PrintsName) {
+    Run r = run("--version");
+    EXPECT_EQ(r.status, 0);
+    EXPECT_EQ(r.out.rfind("meander ", 0), 0u) << r.out;
+}
+
+}  // namespace
