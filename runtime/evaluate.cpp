@@ -1,0 +1,145 @@
+#include "evaluate.hpp"
+
+#include "activation.hpp"
+
+namespace meander {
+
+namespace {
+
+void apply_dense(const Dense& d, double t, const Eigen::VectorXd& x, Eigen::VectorXd& y) {
+    if (d.time_input) {
+        Eigen::VectorXd xt(x.size() + 1);
+        xt << x, t;  // time is the last input column
+        y = d.weight * xt;
+    } else {
+        y = d.weight * x;
+    }
+    if (d.has_bias) y += d.bias;
+    if (d.act == Activation::softmax) {
+        // Max-subtracted: exp never overflows and the largest term is 1.
+        const Eigen::ArrayXd z = (y.array() - y.maxCoeff()).exp();
+        y = (z / z.sum()).matrix();
+        return;
+    }
+    for (Eigen::Index i = 0; i < y.size(); ++i) y[i] = activate(d.act, y[i], d.act_param);
+}
+
+// Dense layers and residual blocks in order (a residual body or a field).
+void apply_sequence(const std::vector<Block>& blocks, double t, const Eigen::VectorXd& x, Eigen::VectorXd& y);
+
+void apply_residual(const Residual& r, double t, const Eigen::VectorXd& x, Eigen::VectorXd& y) {
+    Eigen::VectorXd g;
+    apply_sequence(r.body, t, x, g);
+    y = x + g;
+}
+
+void apply_sequence(const std::vector<Block>& blocks, double t, const Eigen::VectorXd& x, Eigen::VectorXd& y) {
+    Eigen::VectorXd cur = x;
+    Eigen::VectorXd next;
+    for (const Block& b : blocks) {
+        if (b.kind == Block::Kind::dense)
+            apply_dense(b.dense, t, cur, next);
+        else if (b.kind == Block::Kind::residual)
+            apply_residual(b.residual, t, cur, next);
+        else
+            next = cur;  // a continuous block cannot sit inside a field or a residual body
+        cur.swap(next);
+    }
+    y = cur;
+}
+
+EvalStatus from_integrate(IntegrateStatus s) {
+    switch (s) {
+    case IntegrateStatus::ok: return EvalStatus::ok;
+    case IntegrateStatus::state_not_finite: return EvalStatus::state_not_finite;
+    case IntegrateStatus::step_limit: return EvalStatus::step_limit;
+    case IntegrateStatus::step_too_small: return EvalStatus::step_too_small;
+    }
+    return EvalStatus::state_not_finite;
+}
+
+void add_stats(IntegrateStats& total, const IntegrateStats& s) {
+    if (s.steps_taken > 0) {
+        if (total.steps_taken == 0 || s.h_min < total.h_min) total.h_min = s.h_min;
+        if (total.steps_taken == 0 || s.h_max > total.h_max) total.h_max = s.h_max;
+    }
+    total.field_evals += s.field_evals;
+    total.steps_taken += s.steps_taken;
+    total.steps_rejected += s.steps_rejected;
+}
+
+long sequence_macs(const std::vector<Block>& blocks) {
+    long macs = 0;
+    for (const Block& b : blocks) {
+        if (b.kind == Block::Kind::dense) macs += dense_macs(b.dense);
+        if (b.kind == Block::Kind::residual) macs += sequence_macs(b.residual.body);
+    }
+    return macs;
+}
+
+}  // namespace
+
+std::string_view eval_status_name(EvalStatus s) {
+    switch (s) {
+    case EvalStatus::ok: return "ok";
+    case EvalStatus::input_not_finite: return "input_not_finite";
+    case EvalStatus::state_not_finite: return "state_not_finite";
+    case EvalStatus::step_limit: return "step_limit";
+    case EvalStatus::step_too_small: return "step_too_small";
+    }
+    return "state_not_finite";
+}
+
+void eval_field(const Continuous& block, double t, const Eigen::VectorXd& y, Eigen::VectorXd& dy) {
+    apply_sequence(block.field, t, y, dy);
+}
+
+EvalResult evaluate(const Model& model, const Eigen::VectorXd& input) {
+    EvalResult r;
+    if (!input.allFinite()) {
+        r.status = EvalStatus::input_not_finite;
+        return r;
+    }
+    Eigen::VectorXd x = input;
+    Eigen::VectorXd y;
+    for (const Block& b : model.blocks) {
+        std::string_view name;
+        if (b.kind == Block::Kind::dense) {
+            name = b.dense.name;
+            apply_dense(b.dense, 0.0, x, y);
+        } else if (b.kind == Block::Kind::residual) {
+            name = b.residual.name;
+            apply_residual(b.residual, 0.0, x, y);
+        } else {
+            const Continuous& c = b.continuous;
+            name = c.name;
+            y = Eigen::VectorXd::Zero(c.state());
+            y.head(c.width) = x;  // augmented dimensions start at zero
+            const Field field = [&c](double t, const Eigen::VectorXd& state, Eigen::VectorXd& dstate) {
+                eval_field(c, t, state, dstate);
+            };
+            IntegrateStats stats;
+            const IntegrateStatus s = integrate(field, c.t0, c.t1, y, c.solver, stats);
+            add_stats(r.stats, stats);
+            if (s != IntegrateStatus::ok) {
+                r.status = from_integrate(s);
+                r.block = std::string(name);
+                return r;
+            }
+        }
+        if (!y.allFinite()) {
+            r.status = EvalStatus::state_not_finite;
+            r.block = std::string(name);
+            return r;
+        }
+        x.swap(y);
+    }
+    r.output = x;
+    return r;
+}
+
+long dense_macs(const Dense& d) { return static_cast<long>(d.out) * d.in_total(); }
+
+long field_macs(const Continuous& block) { return sequence_macs(block.field); }
+
+}  // namespace meander
