@@ -1,0 +1,82 @@
+// Error messages of the grammar's must<> points (grammar/meander.hpp).
+// The parser's control (compiler/parse.cpp) reports error_message<Rule> at
+// the first character of the offending token; a must<> point without a
+// message here fails to compile.
+#pragma once
+
+#include "meander.hpp"
+
+namespace meander::grammar {
+
+template< typename Rule >
+inline constexpr const char* error_message = nullptr;
+
+// Statements
+template<> inline constexpr const char* error_message< model_first > = "expected 'model NAME' as the first statement";
+template<> inline constexpr const char* error_message< top_statement > = "expected a statement: weights, input, dense, residual, continuous or output";
+template<> inline constexpr const char* error_message< body_statement > = "expected a statement inside the block: dense, residual, augment, solver, trained-with or '}'";
+template<> inline constexpr const char* error_message< statement_end > = "expected the end of the statement";
+template<> inline constexpr const char* error_message< dense_end > = "expected ',' before another layer option, or the end of the layer";
+template<> inline constexpr const char* error_message< solver_end > = "expected ',' before another solver option, or the end of the solver line";
+
+// Names
+template<> inline constexpr const char* error_message< model_name > = "expected the model's name (a letter or '_', then letters, digits or '_')";
+template<> inline constexpr const char* error_message< input_name > = "expected the input's name";
+template<> inline constexpr const char* error_message< output_name > = "expected the output's name";
+template<> inline constexpr const char* error_message< layer_name > = "expected the layer's name";
+template<> inline constexpr const char* error_message< residual_name > = "expected the residual block's name";
+template<> inline constexpr const char* error_message< continuous_name > = "expected the continuous block's name";
+
+// Punctuation
+template<> inline constexpr const char* error_message< colon > = "expected ':'";
+template<> inline constexpr const char* error_message< comma > = "expected ','";
+template<> inline constexpr const char* error_message< arrow > = "expected '->'";
+template<> inline constexpr const char* error_message< open_bracket > = "expected '['";
+template<> inline constexpr const char* error_message< close_bracket > = "expected ']'";
+template<> inline constexpr const char* error_message< open_brace > = "expected '{'";
+// Reported with the block's kind, name and line when a block is open (see unclosed_block below).
+template<> inline constexpr const char* error_message< close_brace > = "expected '}'";
+template<> inline constexpr const char* error_message< kw_t > = "expected 't'";
+template<> inline constexpr const char* error_message< kw_in > = "expected 'in'";
+template<> inline constexpr const char* error_message< interval > = "expected '[' and the time interval";
+// Reported at the opening quote.
+template<> inline constexpr const char* error_message< string_close > = "expected '\"' to end this string on the same line";
+
+// Strings
+template<> inline constexpr const char* error_message< weights_path > = "expected a quoted path after 'weights'";
+template<> inline constexpr const char* error_message< weight_tensor > = "expected a quoted tensor name after 'weight'";
+template<> inline constexpr const char* error_message< bias_tensor > = "expected a quoted tensor name after 'bias'";
+template<> inline constexpr const char* error_message< from_prefix > = "expected a quoted tensor name prefix after 'from'";
+
+// Numbers
+template<> inline constexpr const char* error_message< input_size > = "expected the input size (an integer)";
+template<> inline constexpr const char* error_message< output_size > = "expected the output size (an integer)";
+template<> inline constexpr const char* error_message< in_width > = "expected the layer's input width (an integer)";
+template<> inline constexpr const char* error_message< out_width > = "expected the layer's output width (an integer)";
+template<> inline constexpr const char* error_message< block_width > = "expected the block's width (an integer)";
+template<> inline constexpr const char* error_message< augment_size > = "expected the number of augmented dimensions (an integer)";
+template<> inline constexpr const char* error_message< t0_value > = "expected the start time (a number)";
+template<> inline constexpr const char* error_message< t1_value > = "expected the end time (a number)";
+
+// Layer options
+template<> inline constexpr const char* error_message< dense_option > = "expected a layer option: an activation (identity, relu, leaky-relu, tanh, sigmoid, softplus, silu, gelu, elu, softmax), 'weight', 'bias', 'from' or 'no-bias'";
+
+// Solver lines
+template<> inline constexpr const char* error_message< solver_method > = "expected a solver method (such as rk4 or dormand-prince)";
+template<> inline constexpr const char* error_message< solver_option > = "expected a solver option: steps, rtol, atol, max-steps, first-step, controller, safety, min-factor, max-factor, pi-alpha or pi-beta";
+template<> inline constexpr const char* error_message< steps_value > = "expected the number of steps (an integer) after 'steps'";
+template<> inline constexpr const char* error_message< max_steps_value > = "expected the step limit (an integer) after 'max-steps'";
+template<> inline constexpr const char* error_message< rtol_value > = "expected a number after 'rtol'";
+template<> inline constexpr const char* error_message< atol_value > = "expected a number after 'atol'";
+template<> inline constexpr const char* error_message< first_step_value > = "expected a number after 'first-step'";
+template<> inline constexpr const char* error_message< safety_value > = "expected a number after 'safety'";
+template<> inline constexpr const char* error_message< min_factor_value > = "expected a number after 'min-factor'";
+template<> inline constexpr const char* error_message< max_factor_value > = "expected a number after 'max-factor'";
+template<> inline constexpr const char* error_message< pi_alpha_value > = "expected a number after 'pi-alpha'";
+template<> inline constexpr const char* error_message< pi_beta_value > = "expected a number after 'pi-beta'";
+template<> inline constexpr const char* error_message< controller_kind > = "expected 'integral' or 'pi' after 'controller'";
+
+// The closing-brace message when a block is open: kind, name, line of the block's name.
+inline constexpr const char* unclosed_block = "expected '}}' to close {} '{}' (opened on line {})";
+
+}  // namespace meander::grammar

@@ -1,0 +1,188 @@
+// The meander description language: the grammar, as PEGTL rules only.
+// The actions that build a Model live in compiler/parse.cpp, the error
+// messages of the must<> points in grammar/errors.hpp; LANGUAGE.md lists the
+// same grammar in PEG form.
+//
+// Conventions: a statement rule starts at its first token and ends at its
+// last one; the separator `sep` (blanks and comments) sits between tokens and
+// after each statement. Names used by actions or error messages are distinct
+// structs, so each position can carry its own action and message.
+#pragma once
+
+#include <tao/pegtl.hpp>
+
+namespace meander::grammar {
+
+using namespace tao::pegtl;
+
+// ---- Lexical ----------------------------------------------------------------
+struct comment : seq< one< '#' >, star< not_one< '\n' > > > {};
+struct blank : one< ' ', '\t', '\r', '\n' > {};
+struct sep : star< sor< blank, comment > > {};
+struct word_char : ranges< 'a', 'z', 'A', 'Z', '0', '9', '_', '_', '-' > {};
+struct word_end : not_at< word_char > {};
+struct identifier : seq< ranges< 'a', 'z', 'A', 'Z', '_' >, star< ranges< 'a', 'z', 'A', 'Z', '0', '9', '_' > > > {};
+struct integer : seq< plus< digit >, not_at< sor< one< '.', '_' >, alpha > > > {};
+struct fraction : seq< one< '.' >, star< digit > > {};
+struct exponent : seq< one< 'e', 'E' >, opt< one< '+', '-' > >, plus< digit > > {};
+struct mantissa : sor< seq< plus< digit >, opt< fraction > >, seq< one< '.' >, plus< digit > > > {};
+struct real : seq< opt< one< '+', '-' > >, mantissa, opt< exponent >, not_at< sor< one< '.', '_' >, alpha > > > {};
+struct string_open : one< '"' > {};
+struct string_close : one< '"' > {};
+struct string_chars : star< not_one< '"', '\n', '\r' > > {};
+struct colon : one< ':' > {};
+struct comma : one< ',' > {};
+struct arrow : string< '-', '>' > {};
+struct open_bracket : one< '[' > {};
+struct close_bracket : one< ']' > {};
+struct open_brace : one< '{' > {};
+struct close_brace : one< '}' > {};
+
+// ---- Keywords (a keyword ends where a word character cannot follow) ----------
+struct kw_model : seq< TAO_PEGTL_STRING( "model" ), word_end > {};
+struct kw_weights : seq< TAO_PEGTL_STRING( "weights" ), word_end > {};
+struct kw_input : seq< TAO_PEGTL_STRING( "input" ), word_end > {};
+struct kw_output : seq< TAO_PEGTL_STRING( "output" ), word_end > {};
+struct kw_dense : seq< TAO_PEGTL_STRING( "dense" ), word_end > {};
+struct kw_residual : seq< TAO_PEGTL_STRING( "residual" ), word_end > {};
+struct kw_continuous : seq< TAO_PEGTL_STRING( "continuous" ), word_end > {};
+struct kw_augment : seq< TAO_PEGTL_STRING( "augment" ), word_end > {};
+struct kw_solver : seq< TAO_PEGTL_STRING( "solver" ), word_end > {};
+struct kw_trained_with : seq< TAO_PEGTL_STRING( "trained-with" ), word_end > {};
+struct kw_t : seq< one< 't' >, word_end > {};
+struct kw_in : seq< TAO_PEGTL_STRING( "in" ), word_end > {};
+struct kw_weight : seq< TAO_PEGTL_STRING( "weight" ), word_end > {};
+struct kw_bias : seq< TAO_PEGTL_STRING( "bias" ), word_end > {};
+struct kw_from : seq< TAO_PEGTL_STRING( "from" ), word_end > {};
+struct kw_no_bias : seq< TAO_PEGTL_STRING( "no-bias" ), word_end > {};
+struct kw_identity : seq< TAO_PEGTL_STRING( "identity" ), word_end > {};
+struct kw_relu : seq< TAO_PEGTL_STRING( "relu" ), word_end > {};
+struct kw_leaky_relu : seq< TAO_PEGTL_STRING( "leaky-relu" ), word_end > {};
+struct kw_tanh : seq< TAO_PEGTL_STRING( "tanh" ), word_end > {};
+struct kw_sigmoid : seq< TAO_PEGTL_STRING( "sigmoid" ), word_end > {};
+struct kw_softplus : seq< TAO_PEGTL_STRING( "softplus" ), word_end > {};
+struct kw_silu : seq< TAO_PEGTL_STRING( "silu" ), word_end > {};
+struct kw_gelu : seq< TAO_PEGTL_STRING( "gelu" ), word_end > {};
+struct kw_elu : seq< TAO_PEGTL_STRING( "elu" ), word_end > {};
+struct kw_softmax : seq< TAO_PEGTL_STRING( "softmax" ), word_end > {};
+struct kw_steps : seq< TAO_PEGTL_STRING( "steps" ), word_end > {};
+struct kw_rtol : seq< TAO_PEGTL_STRING( "rtol" ), word_end > {};
+struct kw_atol : seq< TAO_PEGTL_STRING( "atol" ), word_end > {};
+struct kw_max_steps : seq< TAO_PEGTL_STRING( "max-steps" ), word_end > {};
+struct kw_first_step : seq< TAO_PEGTL_STRING( "first-step" ), word_end > {};
+struct kw_controller : seq< TAO_PEGTL_STRING( "controller" ), word_end > {};
+struct kw_safety : seq< TAO_PEGTL_STRING( "safety" ), word_end > {};
+struct kw_min_factor : seq< TAO_PEGTL_STRING( "min-factor" ), word_end > {};
+struct kw_max_factor : seq< TAO_PEGTL_STRING( "max-factor" ), word_end > {};
+struct kw_pi_alpha : seq< TAO_PEGTL_STRING( "pi-alpha" ), word_end > {};
+struct kw_pi_beta : seq< TAO_PEGTL_STRING( "pi-beta" ), word_end > {};
+struct kw_integral : seq< TAO_PEGTL_STRING( "integral" ), word_end > {};
+struct kw_pi : seq< TAO_PEGTL_STRING( "pi" ), word_end > {};
+
+// Words that begin a statement; skipping after an error stops before them.
+struct statement_keyword : sor< kw_model, kw_weights, kw_input, kw_output, kw_dense, kw_residual, kw_continuous, kw_augment, kw_solver, kw_trained_with > {};
+// Statements that cannot appear inside a block: meeting one there means a '}' is missing.
+struct top_only_keyword : sor< kw_model, kw_weights, kw_input, kw_output, kw_continuous > {};
+// A statement ends at the end of its line, or where the next statement (or a '}') begins;
+// an unknown word on a later line is then reported as an unknown statement.
+struct statement_boundary : sor< eof, close_brace, statement_keyword > {};
+struct line_rest : seq< star< one< ' ', '\t', '\r' > >, opt< comment >, sor< one< '\n' >, eof > > {};
+struct statement_end : at< sor< line_rest, seq< sep, statement_boundary > > > {};
+struct dense_end : at< sor< line_rest, seq< sep, statement_boundary > > > {};
+struct solver_end : at< sor< line_rest, seq< sep, statement_boundary > > > {};
+
+// ---- model, weights, input, output -------------------------------------------
+struct model_first : at< kw_model > {};
+struct model_name : identifier {};
+struct model_line : seq< kw_model, sep, must< model_name >, must< statement_end > > {};
+struct weights_path_text : string_chars {};
+struct weights_path : seq< string_open, weights_path_text, must< string_close > > {};
+struct weights_line : seq< kw_weights, sep, must< weights_path >, must< statement_end > > {};
+struct input_name : identifier {};
+struct input_size : integer {};
+struct input_line : seq< kw_input, sep, must< input_name >, sep, must< open_bracket >, sep, must< input_size >, sep, must< close_bracket >, must< statement_end > > {};
+struct output_name : identifier {};
+struct output_size : integer {};
+struct output_line : seq< kw_output, sep, must< output_name >, sep, must< open_bracket >, sep, must< output_size >, sep, must< close_bracket >, must< statement_end > > {};
+
+// ---- dense layers ---------------------------------------------------------------
+struct layer_name : identifier {};
+struct in_width : integer {};
+struct out_width : integer {};
+struct time_input : seq< one< '+' >, sep, must< kw_t > > {};
+struct activation_name : sor< kw_identity, kw_relu, kw_leaky_relu, kw_tanh, kw_sigmoid, kw_softplus, kw_silu, kw_gelu, kw_elu, kw_softmax > {};
+struct activation_param : real {};
+struct activation_option : seq< activation_name, opt< sep, activation_param > > {};
+struct weight_tensor_text : string_chars {};
+struct weight_tensor : seq< string_open, weight_tensor_text, must< string_close > > {};
+struct weight_option : seq< kw_weight, sep, must< weight_tensor > > {};
+struct bias_tensor_text : string_chars {};
+struct bias_tensor : seq< string_open, bias_tensor_text, must< string_close > > {};
+struct bias_option : seq< kw_bias, sep, must< bias_tensor > > {};
+struct from_prefix_text : string_chars {};
+struct from_prefix : seq< string_open, from_prefix_text, must< string_close > > {};
+struct from_option : seq< kw_from, sep, must< from_prefix > > {};
+struct no_bias_option : kw_no_bias {};
+struct dense_option : sor< activation_option, weight_option, bias_option, from_option, no_bias_option > {};
+struct dense_line : seq< kw_dense, sep, must< layer_name >, sep, must< colon >, sep, must< in_width >, sep, opt< time_input, sep >, must< arrow >, sep, must< out_width >, star< sep, comma, sep, must< dense_option > >, must< dense_end > > {};
+
+// ---- solver lines ---------------------------------------------------------------
+struct solver_method : seq< alpha, star< word_char > > {};
+struct steps_value : integer {};
+struct rtol_value : real {};
+struct atol_value : real {};
+struct max_steps_value : integer {};
+struct first_step_value : real {};
+struct controller_kind : sor< kw_integral, kw_pi > {};
+struct safety_value : real {};
+struct min_factor_value : real {};
+struct max_factor_value : real {};
+struct pi_alpha_value : real {};
+struct pi_beta_value : real {};
+struct steps_option : seq< kw_steps, sep, must< steps_value > > {};
+struct rtol_option : seq< kw_rtol, sep, must< rtol_value > > {};
+struct atol_option : seq< kw_atol, sep, must< atol_value > > {};
+struct max_steps_option : seq< kw_max_steps, sep, must< max_steps_value > > {};
+struct first_step_option : seq< kw_first_step, sep, must< first_step_value > > {};
+struct controller_option : seq< kw_controller, sep, must< controller_kind > > {};
+struct safety_option : seq< kw_safety, sep, must< safety_value > > {};
+struct min_factor_option : seq< kw_min_factor, sep, must< min_factor_value > > {};
+struct max_factor_option : seq< kw_max_factor, sep, must< max_factor_value > > {};
+struct pi_alpha_option : seq< kw_pi_alpha, sep, must< pi_alpha_value > > {};
+struct pi_beta_option : seq< kw_pi_beta, sep, must< pi_beta_value > > {};
+struct solver_option : sor< steps_option, rtol_option, atol_option, max_steps_option, first_step_option, controller_option, safety_option, min_factor_option, max_factor_option, pi_alpha_option, pi_beta_option > {};
+struct solver_options : seq< sep, must< solver_method >, star< sep, comma, sep, must< solver_option > >, must< solver_end > > {};
+struct solver_line : seq< kw_solver, solver_options > {};
+struct trained_line : seq< kw_trained_with, solver_options > {};
+struct augment_size : integer {};
+struct augment_line : seq< kw_augment, sep, must< augment_size >, must< statement_end > > {};
+
+// ---- error recovery: skip to the next statement keyword, over braced groups ----
+struct skip_string : seq< one< '"' >, star< not_one< '"', '\n' > >, opt< one< '"' > > > {};
+struct skip_token : sor< plus< blank >, comment, skip_string, plus< word_char >, not_one< '{', '}' > > {};
+struct skip_group : seq< open_brace, star< not_at< top_only_keyword >, sor< skip_group, skip_token, open_brace > >, opt< close_brace > > {};
+struct skip_unit : sor< skip_group, skip_token, open_brace > {};
+struct top_skip : seq< sor< skip_unit, close_brace >, star< not_at< statement_keyword >, sor< skip_unit, close_brace > > > {};
+struct body_skip : seq< skip_unit, star< not_at< sor< statement_keyword, close_brace > >, skip_unit > > {};
+
+// ---- blocks ------------------------------------------------------------------------
+struct residual_block;
+struct body_statement : sor< dense_line, residual_block, augment_line, solver_line, trained_line > {};
+struct body_attempt : must< body_statement > {};
+struct body_item : seq< not_at< sor< close_brace, top_only_keyword, eof > >, sor< body_attempt, body_skip >, sep > {};
+struct block_width : integer {};
+struct residual_name : identifier {};
+struct residual_block : seq< kw_residual, sep, must< residual_name >, sep, must< colon >, sep, must< block_width >, sep, must< open_brace >, sep, star< body_item >, must< close_brace > > {};
+struct continuous_name : identifier {};
+struct t0_value : real {};
+struct t1_value : real {};
+struct interval : seq< open_bracket, sep, must< t0_value >, sep, must< comma >, sep, must< t1_value >, sep, must< close_bracket > > {};
+struct continuous_block : seq< kw_continuous, sep, must< continuous_name >, sep, must< colon >, sep, must< block_width >, sep, must< comma >, sep, must< kw_t >, sep, must< kw_in >, sep, must< interval >, sep, must< open_brace >, sep, star< body_item >, must< close_brace > > {};
+
+// ---- the description ------------------------------------------------------------
+struct top_statement : sor< model_line, weights_line, input_line, output_line, dense_line, residual_block, continuous_block, augment_line, solver_line, trained_line > {};
+struct top_attempt : must< top_statement > {};
+struct top_item : seq< not_at< eof >, sor< top_attempt, top_skip >, sep > {};
+struct description : seq< sep, must< model_first >, star< top_item >, eof > {};
+
+}  // namespace meander::grammar

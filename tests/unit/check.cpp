@@ -1,0 +1,234 @@
+// check_model: shapes and solver settings. Each expected message follows the
+// rules of grammar/LANGUAGE.md; the precision limits come from FLT_EPSILON and
+// DBL_EPSILON (<cfloat>), the warning text for a changed discretisation from
+// the project brief (Ott et al., "ResNet After All?", ICLR 2021).
+#include <gtest/gtest.h>
+
+#include <cfloat>
+#include <cmath>
+#include <limits>
+
+#include "compiler/check.hpp"
+#include "compiler/parse.hpp"
+
+namespace meander {
+namespace {
+
+struct Result {
+    bool ok;
+    std::string text;
+};
+
+Result check(const std::string& description, Precision p = Precision::float32) {
+    Source src("m.mnd", description);
+    Diagnostics diags;
+    auto model = parse_description(src, diags);
+    EXPECT_TRUE(model.has_value()) << diags.render();
+    if (!model) return {false, diags.render()};
+    CheckOptions opts;
+    opts.precision = p;
+    bool ok = check_model(*model, src, opts, diags);
+    EXPECT_EQ(ok, diags.ok());
+    return {ok, diags.render()};
+}
+
+// A continuous block of width 3 with the given solver lines.
+std::string with_solver(const std::string& lines) {
+    return "model m\ninput x[3]\ncontinuous c: 3, t in [0, 1] {\n  dense f: 3 + t -> 3, tanh\n" + lines + "}\noutput y[3]\n";
+}
+
+TEST(Check, CleanModelHasNoDiagnostics) {
+    Result r = check(
+        "model orchard\ninput leaf[4]\ndense lift: 4 -> 6, relu\n"
+        "continuous grow: 6, t in [0, 1] {\n  augment 2\n  dense f1: 8 + t -> 10, softplus\n  dense f2: 10 -> 8\n"
+        "  solver rk4, steps 6\n}\n"
+        "residual tidy: 8 {\n  dense r1: 8 -> 8, tanh\n  residual deeper: 8 {\n    dense r2: 8 -> 8\n  }\n}\n"
+        "dense head: 8 -> 2, softmax\noutput kind[2]\n");
+    EXPECT_TRUE(r.ok);
+    EXPECT_EQ(r.text, "");
+}
+
+TEST(Check, AdaptiveSolverWithAllOptions) {
+    Result r = check(with_solver("  solver tsitouras, rtol 1e-3, atol 1e-6, max-steps 100, first-step 0.01, controller pi, "
+                                 "safety 0.8, min-factor 0.25, max-factor 5, pi-alpha 0.6, pi-beta 0.3\n"));
+    EXPECT_TRUE(r.ok);
+    EXPECT_EQ(r.text, "");
+}
+
+TEST(Check, Float32RtolFloorIsAWarning) {
+    // sqrt(FLT_EPSILON) = 3.4526698e-4 > 1e-4 >= 100 * FLT_EPSILON = 1.1920929e-5
+    ASSERT_GT(std::sqrt(static_cast<double>(FLT_EPSILON)), 1e-4);
+    ASSERT_LT(100 * static_cast<double>(FLT_EPSILON), 1e-4);
+    Result r = check(with_solver("  solver dormand-prince, rtol 1e-4, atol 1e-7, max-steps 64\n"));
+    EXPECT_TRUE(r.ok);
+    EXPECT_EQ(r.text,
+              "m.mnd:5:10: warning: solver line of continuous 'c': rtol 1e-4 is below sqrt(float32 epsilon) = 3.45e-4; "
+              "the error control may not reach it in float32\n"
+              "  solver dormand-prince, rtol 1e-4, atol 1e-7, max-steps 64\n"
+              "         ^\n");
+}
+
+TEST(Check, Float64AcceptsTighterRtol) {
+    Result r = check(with_solver("  solver dormand-prince, rtol 1e-10, atol 1e-12, max-steps 500\n"), Precision::float64);
+    EXPECT_TRUE(r.ok);
+    EXPECT_EQ(r.text, "");
+    // 100 * DBL_EPSILON = 2.22e-14 > 1e-14
+    ASSERT_GT(100 * DBL_EPSILON, 1e-14);
+    Result tight = check(with_solver("  solver dormand-prince, rtol 1e-14, atol 1e-12, max-steps 500\n"), Precision::float64);
+    EXPECT_FALSE(tight.ok);
+    EXPECT_EQ(tight.text,
+              "m.mnd:5:10: error: solver line of continuous 'c': rtol 1e-14 is below what float64 arithmetic can deliver "
+              "(100 x epsilon = 2.22e-14)\n"
+              "  solver dormand-prince, rtol 1e-14, atol 1e-12, max-steps 500\n"
+              "         ^\n");
+}
+
+TEST(Check, Float32RtolBelowHundredEpsilonIsAnError) {
+    Result r = check(with_solver("  solver bogacki-shampine, rtol 1e-5, atol 1e-6, max-steps 64\n"));
+    EXPECT_FALSE(r.ok);
+    EXPECT_NE(r.text.find("error: solver line of continuous 'c': rtol 1e-5 is below what float32 arithmetic can deliver "
+                          "(100 x epsilon = 1.19e-5)"),
+              std::string::npos)
+        << r.text;
+}
+
+TEST(Check, TrainedWithAnotherSolverWarns) {
+    Result r = check(with_solver("  solver rk4, steps 8\n  trained-with rk38, steps 8\n"));
+    EXPECT_TRUE(r.ok);
+    EXPECT_EQ(r.text,
+              "m.mnd:5:10: warning: block 'c' is deployed with rk4, steps 8 but was trained with rk38, steps 8; "
+              "a model can lose accuracy under another discretisation (Ott et al., ICLR 2021)\n"
+              "  solver rk4, steps 8\n"
+              "         ^\n");
+}
+
+TEST(Check, TrainedWithOtherSettingsWarns) {
+    Result r = check(with_solver("  solver dormand-prince, rtol 1e-3, atol 1e-6, max-steps 50\n"
+                                 "  trained-with dormand-prince, rtol 1e-3, atol 1e-6, max-steps 50, safety 0.8\n"));
+    EXPECT_TRUE(r.ok);
+    EXPECT_NE(r.text.find("warning: block 'c' is deployed with dormand-prince, rtol 1e-3, atol 1e-6, max-steps 50 but was "
+                          "trained with dormand-prince, rtol 1e-3, atol 1e-6, max-steps 50, safety 0.8;"),
+              std::string::npos)
+        << r.text;
+}
+
+TEST(Check, TrainedWithTheSameSolverIsQuiet) {
+    // Writing a default explicitly does not change the discretisation.
+    Result r = check(with_solver("  solver dormand-prince, rtol 1e-3, atol 1e-6, max-steps 50\n"
+                                 "  trained-with dormand-prince, max-steps 50, atol 1e-6, rtol 1e-3, safety 0.9\n"));
+    EXPECT_TRUE(r.ok);
+    EXPECT_EQ(r.text, "");
+}
+
+TEST(Check, TrainedWithFollowsTheSolverRules) {
+    Result r = check(with_solver("  solver rk4, steps 8\n  trained-with rk4, steps 0, rtol 1e-3\n"));
+    EXPECT_FALSE(r.ok);
+    EXPECT_EQ(r.text,
+              "m.mnd:6:16: error: trained-with line of continuous 'c': steps must be at least 1, got 0\n"
+              "  trained-with rk4, steps 0, rtol 1e-3\n"
+              "               ^\n"
+              "m.mnd:6:16: error: trained-with line of continuous 'c': fixed-step method 'rk4' takes no 'rtol' option "
+              "(it applies to adaptive methods)\n"
+              "  trained-with rk4, steps 0, rtol 1e-3\n"
+              "               ^\n"
+              "m.mnd:5:10: warning: block 'c' is deployed with rk4, steps 8 but was trained with rk4, steps 0, rtol 1e-3; "
+              "a model can lose accuracy under another discretisation (Ott et al., ICLR 2021)\n"
+              "  solver rk4, steps 8\n"
+              "         ^\n");
+}
+
+TEST(Check, PiExponentsWithIntegralControllerWarn) {
+    Result r = check(with_solver("  solver cash-karp, rtol 1e-3, atol 1e-6, max-steps 50, pi-beta 0.3\n"));
+    EXPECT_TRUE(r.ok);
+    EXPECT_NE(r.text.find("warning: solver line of continuous 'c': 'pi-beta' has no effect with the integral controller"),
+              std::string::npos)
+        << r.text;
+}
+
+TEST(Check, EveryFixedStepMethodOfTheTableIsKnown) {
+    for (const char* method : {"euler", "midpoint", "heun", "rk4", "rk38"}) {
+        Result r = check(with_solver(std::string("  solver ") + method + ", steps 2\n"));
+        EXPECT_TRUE(r.ok) << method << "\n" << r.text;
+    }
+    for (const char* method : {"bogacki-shampine", "dormand-prince", "tsitouras", "cash-karp"}) {
+        Result r = check(with_solver(std::string("  solver ") + method + ", rtol 1e-3, atol 1e-6, max-steps 9\n"));
+        EXPECT_TRUE(r.ok) << method << "\n" << r.text;
+    }
+}
+
+// Values the grammar cannot spell (infinities, NaN, negative augment) may still reach
+// check_model from a Model built in code.
+TEST(Check, NonFiniteNumbersAndNegativeAugment) {
+    Source src("m.mnd", with_solver("  solver dormand-prince, rtol 1e-3, atol 1e-6, max-steps 50\n"));
+    Diagnostics diags;
+    auto model = parse_description(src, diags);
+    ASSERT_TRUE(model.has_value()) << diags.render();
+    Continuous& c = model->blocks[0].continuous;
+    c.t1 = std::numeric_limits<double>::infinity();
+    c.solver.atol = std::numeric_limits<double>::quiet_NaN();
+    c.augment = -1;
+    c.field[0].dense.in = 2;  // keeps the field consistent with the state of width 3 - 1
+    c.field[0].dense.out = 2;
+    c.field[0].dense.act = Activation::elu;
+    c.field[0].dense.act_param = -std::numeric_limits<double>::infinity();
+    EXPECT_FALSE(check_model(*model, src, CheckOptions{}, diags));
+    std::vector<std::string> messages;
+    for (const auto& d : diags.all()) messages.push_back(d.message);
+    const std::vector<std::string> expected = {
+        "continuous 'c' has augment -1; it must be 0 or more",
+        "the end time of continuous 'c' is not finite",
+        "the elu parameter of layer 'f' is not finite",
+        "solver line of continuous 'c': atol is not finite",
+        "solver line of continuous 'c': atol must be greater than 0, got nan",
+        "output 'y' has size 3, but continuous 'c' gives 2",
+    };
+    EXPECT_EQ(messages, expected);
+}
+
+TEST(Check, ReportsEveryProblemInOneRun) {
+    Result r = check(
+        "model m\ninput x[3]\n"
+        "continuous c: 3, t in [0, 0] {\n  augment 1\n  dense f: 3 + t -> 3\n"
+        "  solver dormand-prince, atol 0, safety 1.5, min-factor 2, max-factor 0.5\n}\n"
+        "dense g: 3 + t -> 4\noutput y[4]\n");
+    EXPECT_FALSE(r.ok);
+    EXPECT_EQ(r.text,
+              "m.mnd:3:23: error: continuous 'c' integrates over the empty interval [0, 0]; t0 and t1 must differ\n"
+              "continuous c: 3, t in [0, 0] {\n"
+              "                      ^\n"
+              "m.mnd:5:9: error: layer 'f' takes 3 inputs, but the state of continuous 'c' (3 + augment 1) gives 4\n"
+              "  dense f: 3 + t -> 3\n"
+              "        ^\n"
+              "m.mnd:3:12: error: the field of continuous 'c' must map width 4 (3 + augment 1) to width 4, but ends with "
+              "width 3 (layer 'f')\n"
+              "continuous c: 3, t in [0, 0] {\n"
+              "           ^\n"
+              "m.mnd:6:10: error: solver line of continuous 'c': adaptive method 'dormand-prince' needs 'rtol X'\n"
+              "  solver dormand-prince, atol 0, safety 1.5, min-factor 2, max-factor 0.5\n"
+              "         ^\n"
+              "m.mnd:6:10: error: solver line of continuous 'c': atol must be greater than 0, got 0\n"
+              "  solver dormand-prince, atol 0, safety 1.5, min-factor 2, max-factor 0.5\n"
+              "         ^\n"
+              "m.mnd:6:10: error: solver line of continuous 'c': adaptive method 'dormand-prince' needs 'max-steps N': "
+              "without a step limit an inference has no time bound\n"
+              "  solver dormand-prince, atol 0, safety 1.5, min-factor 2, max-factor 0.5\n"
+              "         ^\n"
+              "m.mnd:6:10: error: solver line of continuous 'c': safety must lie strictly between 0 and 1, got 1.5\n"
+              "  solver dormand-prince, atol 0, safety 1.5, min-factor 2, max-factor 0.5\n"
+              "         ^\n"
+              "m.mnd:6:10: error: solver line of continuous 'c': min-factor must satisfy 0 < min-factor <= 1, got 2\n"
+              "  solver dormand-prince, atol 0, safety 1.5, min-factor 2, max-factor 0.5\n"
+              "         ^\n"
+              "m.mnd:6:10: error: solver line of continuous 'c': max-factor must be at least 1, got 0.5\n"
+              "  solver dormand-prince, atol 0, safety 1.5, min-factor 2, max-factor 0.5\n"
+              "         ^\n"
+              "m.mnd:8:7: error: layer 'g' takes 3 inputs, but continuous 'c' gives 4\n"
+              "dense g: 3 + t -> 4\n"
+              "      ^\n"
+              "m.mnd:8:7: error: layer 'g' uses '+ t', but time exists only inside a continuous block\n"
+              "dense g: 3 + t -> 4\n"
+              "      ^\n");
+}
+
+}  // namespace
+}  // namespace meander
