@@ -16,6 +16,7 @@
 #include "compiler/lower.hpp"
 #include "compiler/parse.hpp"
 #include "compiler/source.hpp"
+#include "compiler/tune.hpp"
 #include "compiler/verify.hpp"
 #include "compiler/weights.hpp"
 #include "runtime/evaluate.hpp"
@@ -53,6 +54,10 @@ std::optional<Loaded> load_model(const std::string& path, Precision precision, D
     if (!check_model(*model, *src, copts, diags)) return std::nullopt;
     Loaded out{*src, std::move(*model), {}};
     std::uint64_t hash = fnv1a64(out.source.text);
+    if (with_weights && out.model.weights_path.empty()) {
+        diags.error(out.source, out.model.loc, "the description names no weights: add a line 'weights \"FILE\"'");
+        return std::nullopt;
+    }
     if (with_weights) {
         fs::path wpath = fs::path(out.model.weights_path);
         if (wpath.is_relative()) wpath = fs::path(path).parent_path() / wpath;
@@ -218,6 +223,27 @@ int cmd_cost(const std::string& model_path, const std::string& input, const std:
     return 0;
 }
 
+int cmd_tune(const std::string& model_path, const std::string& input, const std::string& precision, double target,
+             const std::vector<std::string>& methods, int sweep, bool json) {
+    Diagnostics diags;
+    Precision p = precision_of(precision);
+    auto loaded = load_model(model_path, p, diags);
+    if (!loaded) return flush(diags), kModelError;
+    auto rows = read_csv_rows(input, loaded->model.input_size, diags);
+    if (!rows) return flush(diags), kModelError;
+    TuneOptions to;
+    to.target = target;
+    to.methods = methods;
+    to.max_steps_sweep = sweep;
+    to.precision = p;
+    to.inputs = *rows;
+    auto rep = tune_model(loaded->model, to, diags);
+    flush(diags);
+    if (!rep) return kModelError;
+    std::fputs((json ? render_tune_json(*rep) : render_tune_text(*rep)).c_str(), stdout);
+    return 0;
+}
+
 int cmd_format(const std::string& model_path, bool in_place, bool check_only) {
     Diagnostics diags;
     auto src = load_source(model_path, diags);
@@ -289,6 +315,20 @@ int main(int argc, char** argv) {
         ->check(CLI::PositiveNumber);
     cost->add_flag("--json", json, "JSON for tools instead of text");
 
+    double target = 1e-4;
+    int sweep = 256;
+    std::vector<std::string> methods;
+    auto* tune = app.add_subcommand("tune", "the cheapest solver budget per continuous block that meets an error target");
+    tune->add_option("model", model, "description (.mnd)")->required();
+    tune->add_option("--input", input, "CSV of representative input rows")->required();
+    tune->add_option("--target", target, "largest allowed |out - ref| / max(1, |ref|) (default 1e-4)")
+        ->check(CLI::PositiveNumber);
+    tune->add_option("--method", methods, "sweep this method (repeatable; default: the block's own)");
+    tune->add_option("--max-steps-sweep", sweep, "largest fixed step count tried (default 256)")
+        ->check(CLI::PositiveNumber);
+    tune->add_option("--precision", precision, "float32 (default) or float64")->check(CLI::IsMember(precisions));
+    tune->add_flag("--json", json, "JSON for tools instead of text");
+
     auto* format = app.add_subcommand("format", "print the description in canonical layout");
     format->add_option("model", model, "description (.mnd)")->required();
     format->add_flag("-i,--in-place", in_place, "rewrite the file");
@@ -307,6 +347,7 @@ int main(int argc, char** argv) {
         if (*compile) return cmd_compile(model, outdir, precision, c_api, self_test, dump);
         if (*verify) return cmd_verify(model, input, precision, tol, cxx, keep, show);
         if (*cost) return cmd_cost(model, input, precision, core, cycles_per_mac, json);
+        if (*tune) return cmd_tune(model, input, precision, target, methods, sweep, json);
         if (*format) return cmd_format(model, in_place, check_only);
     } catch (const std::exception& e) {
         // Every expected failure is a diagnostic; this is a last line against a crash.

@@ -150,6 +150,7 @@ std::optional<VerifyReport> verify_model(const Model& model, const EmitOptions& 
     rep.rows = static_cast<int>(inputs.size());
     rep.outputs = model.output_size;
     rep.tolerance = opts.tolerance >= 0 ? opts.tolerance : default_tolerance(p);
+    rep.counters_must_match = p == Precision::float64;
     std::istringstream lines(*out);
     for (std::size_t r = 0; r < inputs.size(); ++r) {
         std::string line;
@@ -166,6 +167,9 @@ std::optional<VerifyReport> verify_model(const Model& model, const EmitOptions& 
         Eigen::VectorXd in = Eigen::Map<const Eigen::VectorXd>(inputs[r].data(), static_cast<Eigen::Index>(inputs[r].size()));
         EvalResult ref = evaluate(model, in);
         rep.eval_field_evals += ref.stats.field_evals;
+        if (static_cast<long>(evals) != ref.stats.field_evals || static_cast<long>(taken) != ref.stats.steps_taken ||
+            static_cast<long>(rejected) != ref.stats.steps_rejected)
+            ++rep.counter_mismatches;
         rep.emitted.emplace_back();
         rep.reference.emplace_back();
         if (status != status_code(ref.status)) {
@@ -208,8 +212,12 @@ std::string render_verify(const VerifyReport& r, Precision p) {
                      r.tolerance == default_tolerance(p) ? " (default for this precision)" : "");
     s += fmt::format("field evaluations    emitted {}, eval {}\n", r.field_evals, r.eval_field_evals);
     s += fmt::format("steps                {} accepted, {} rejected\n", r.steps_taken, r.steps_rejected);
+    if (r.counter_mismatches)
+        s += fmt::format("counters             {} rows took other steps than eval{}\n", r.counter_mismatches,
+                         r.counters_must_match ? "" : " (float rounding can change an accept/reject decision)");
     if (r.status_mismatches) s += fmt::format("result codes         {} rows differ from eval\n", r.status_mismatches);
-    s += fmt::format("verdict              {}\n", r.passed() ? "agrees" : fmt::format("DISAGREES ({} outputs beyond tolerance)", r.failures));
+    s += fmt::format("verdict              {}\n", r.passed() ? "agrees" : fmt::format("DISAGREES ({} outputs beyond tolerance, {} result codes, {} counters)", r.failures,
+                                                              r.status_mismatches, r.counters_must_match ? r.counter_mismatches : 0));
     return s;
 }
 

@@ -34,10 +34,14 @@ struct VerifyReport {
     int max_rel_row = 0, max_rel_col = 0;
     int failures = 0;               // outputs beyond the tolerance
     int status_mismatches = 0;      // rows whose result code differs from eval's status
+    int counter_mismatches = 0;     // rows whose field evaluations or steps differ from eval's
+    bool counters_must_match = false;  // float64: the same arithmetic must take the same steps
     long field_evals = 0, steps_taken = 0, steps_rejected = 0;  // emitted code, summed over rows
     long eval_field_evals = 0;      // reference evaluator, summed over rows
     std::vector<std::vector<double>> emitted, reference;  // per row (empty rows where a result code differs)
-    bool passed() const { return failures == 0 && status_mismatches == 0; }
+    bool passed() const {
+        return failures == 0 && status_mismatches == 0 && (!counters_must_match || counter_mismatches == 0);
+    }
 };
 
 std::optional<VerifyReport> verify_model(const Model& model, const EmitOptions& emit_opts,

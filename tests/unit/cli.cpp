@@ -18,14 +18,14 @@ namespace fs = std::filesystem;
 
 namespace {
 
-struct Run {
+struct Outcome {
     int status = -1;
     std::string out;  // stdout and stderr together
 };
 
-Run run(const std::string& args) {
+Outcome run(const std::string& args) {
     std::string cmd = std::string(MEANDER_BINARY) + " " + args + " 2>&1";
-    Run r;
+    Outcome r;
     FILE* p = popen(cmd.c_str(), "r");
     if (!p) return r;
     char buf[4096];
@@ -86,7 +86,7 @@ TEST(Samples, ThereAreAtLeastTwo) { EXPECT_GE(samples().size(), 2u); }
 class SampleTest : public ::testing::TestWithParam<fs::path> {};
 
 TEST_P(SampleTest, ChecksClean) {
-    Run r = run("check " + GetParam().string());
+    Outcome r = run("check " + GetParam().string());
     EXPECT_EQ(r.status, 0) << r.out;
     EXPECT_EQ(r.out.find("warning"), std::string::npos) << r.out;
 }
@@ -95,7 +95,7 @@ TEST_P(SampleTest, ChecksClean) {
 // pass, samples/*/train.py), independent of meander's evaluator.
 TEST_P(SampleTest, EvalMatchesTrainerForwardPass) {
     fs::path dir = GetParam().parent_path();
-    Run r = run("eval " + GetParam().string() + " --input " + (dir / "inputs.csv").string());
+    Outcome r = run("eval " + GetParam().string() + " --input " + (dir / "inputs.csv").string());
     ASSERT_EQ(r.status, 0) << r.out;
     auto got = read_csv(r.out);
     auto want = read_csv(slurp(dir / "expected.csv"));
@@ -122,25 +122,25 @@ TEST_P(SampleTest, CompileIsByteIdenticalTwice) {
 
 TEST_P(SampleTest, VerifyFloat32) {
     fs::path dir = GetParam().parent_path();
-    Run r = run("verify " + GetParam().string() + " --input " + (dir / "inputs.csv").string());
+    Outcome r = run("verify " + GetParam().string() + " --input " + (dir / "inputs.csv").string());
     EXPECT_EQ(r.status, 0) << r.out;
     EXPECT_NE(r.out.find("agrees"), std::string::npos) << r.out;
 }
 
 TEST_P(SampleTest, VerifyFloat64) {
     fs::path dir = GetParam().parent_path();
-    Run r = run("verify " + GetParam().string() + " --precision float64 --input " + (dir / "inputs.csv").string());
+    Outcome r = run("verify " + GetParam().string() + " --precision float64 --input " + (dir / "inputs.csv").string());
     EXPECT_EQ(r.status, 0) << r.out;
     EXPECT_NE(r.out.find("agrees"), std::string::npos) << r.out;
 }
 
 TEST_P(SampleTest, FormatIsIdempotent) {
     std::string stem = GetParam().stem().string();
-    Run once = run("format " + GetParam().string());
+    Outcome once = run("format " + GetParam().string());
     ASSERT_EQ(once.status, 0) << once.out;
     fs::path f = scratch(stem + "-fmt") / (stem + ".mnd");
     std::ofstream(f) << once.out;
-    Run twice = run("format " + f.string());
+    Outcome twice = run("format " + f.string());
     ASSERT_EQ(twice.status, 0) << twice.out;
     EXPECT_EQ(once.out, twice.out);
 }
@@ -155,7 +155,7 @@ TEST(Outputs, FailedCompileLeavesExistingFilesAlone) {
     std::ofstream(mnd) << "model broken\nweights \"none.npz\"\ninput x[2]\ndense a: 3 -> 2\noutput y[2]\n";
     fs::create_directories(d / "out");
     std::ofstream(d / "out" / "broken.hpp") << "previous contents\n";
-    Run r = run("compile " + mnd.string() + " -o " + (d / "out").string());
+    Outcome r = run("compile " + mnd.string() + " -o " + (d / "out").string());
     EXPECT_EQ(r.status, 1) << r.out;
     EXPECT_EQ(slurp(d / "out" / "broken.hpp"), "previous contents\n");
     int entries = 0;
@@ -169,7 +169,7 @@ TEST(Outputs, FailedEvalLeavesExistingCsvAlone) {
     fs::path d = scratch("atomic-eval");
     std::ofstream(d / "in.csv") << "1,2\n";  // wrong width for every sample
     std::ofstream(d / "out.csv") << "previous\n";
-    Run r = run("eval " + all.front().string() + " --input " + (d / "in.csv").string() + " --output " +
+    Outcome r = run("eval " + all.front().string() + " --input " + (d / "in.csv").string() + " --output " +
                 (d / "out.csv").string());
     EXPECT_EQ(r.status, 1) << r.out;
     EXPECT_EQ(slurp(d / "out.csv"), "previous\n");
@@ -182,15 +182,28 @@ TEST(ExitCodes, UsageErrorIsTwo) {
 }
 
 TEST(ExitCodes, MissingFileIsOneWithDiagnostic) {
-    Run r = run("check /nonexistent/model.mnd");
+    Outcome r = run("check /nonexistent/model.mnd");
     EXPECT_EQ(r.status, 1);
     EXPECT_EQ(r.out, "/nonexistent/model.mnd: error: cannot read file: No such file or directory\n");
 }
 
 TEST(Version, PrintsName) {
-    Run r = run("--version");
+    Outcome r = run("--version");
     EXPECT_EQ(r.status, 0);
     EXPECT_EQ(r.out.rfind("meander ", 0), 0u) << r.out;
 }
 
 }  // namespace
+
+// The tour in README.md must stay a valid description.
+TEST(Readme, TourExampleParses) {
+    std::string readme = slurp(fs::path(MEANDER_SOURCE_DIR) / "README.md");
+    std::size_t start = readme.find("```\n# Bearing-wear");
+    ASSERT_NE(start, std::string::npos);
+    start += 4;
+    std::size_t end = readme.find("```", start);
+    fs::path f = scratch("readme") / "tour.mnd";
+    std::ofstream(f) << readme.substr(start, end - start);
+    Outcome r = run("format " + f.string());
+    EXPECT_EQ(r.status, 0) << r.out;
+}

@@ -1,0 +1,147 @@
+// Cost: what the emitted code of a model takes on a microcontroller: flash
+// (weights and code), RAM (workspace and stack), multiply-accumulates, field
+// evaluations and an estimated cycle count, per block and in total.
+//
+// Code and stack bytes are measured by compiling the emitted source for the
+// chosen core with the bare-metal cross compiler when it is on PATH (the
+// sizes of its .text sections, its -fstack-usage and -fcallgraph-info
+// files); otherwise code bytes are estimated and marked so. Cycles are an
+// estimate from per-operation figures whose sources the report states.
+#pragma once
+
+#include <optional>
+#include <string>
+#include <string_view>
+#include <vector>
+
+#include "../runtime/model.hpp"
+#include "emit.hpp"
+#include "source.hpp"
+
+namespace meander {
+
+enum class CoreClass { cortex_m0, cortex_m3, cortex_m4f, cortex_m7 };
+
+std::string_view core_name(CoreClass c);                         // "cortex-m4f"
+std::optional<CoreClass> core_from_name(std::string_view name);  // nullopt when unknown
+const std::vector<CoreClass>& all_cores();
+
+// The default figures of a core class and where they come from.
+struct CoreFigures {
+    CoreClass core = CoreClass::cortex_m4f;
+    std::vector<std::string> cross_flags;   // arm-none-eabi-g++ flags selecting the core and its float ABI
+    bool single_fpu = false;                // hardware single-precision floating point
+    double cycles_per_mac = 0.0;            // float32, one multiply and one add
+    std::string mac_source;
+    double cycles_per_activation = 0.0;     // one exp-based activation (tanh, sigmoid, ...); 0: no figure
+    std::string activation_source;
+};
+const CoreFigures& core_figures(CoreClass c);
+
+struct CostOptions {
+    Precision precision = Precision::float32;
+    std::string core = "cortex-m4f";       // a core_name(); code is compiled for it, cycles estimated for it
+    double cycles_per_mac = -1.0;           // < 0: the core's default figure
+    // Rows to measure field evaluations on (each of model.input_size values);
+    // empty: only the exact / worst-case counts.
+    std::vector<std::vector<double>> inputs;
+    // Prefix of the cross tools (`<prefix>g++`, `<prefix>size`); empty: do
+    // not measure, estimate code bytes.
+    std::string cross_prefix = "arm-none-eabi-";
+    // Non-empty: compile in this folder and keep the files (for tests and
+    // for a look at the object); otherwise a temporary folder is removed.
+    std::string keep_dir;
+    // The emitter's options for the measured code (banner, C entry point);
+    // its precision is replaced by `precision`, self-test vectors are ignored.
+    EmitOptions emit;
+};
+
+// Field evaluations per inference over the rows of an input file.
+struct EvalSpread {
+    int rows = 0;
+    int failed_rows = 0;                    // rows whose evaluation ended with a result other than ok
+    long min = 0;
+    double median = 0.0;
+    long max = 0;
+};
+
+struct BlockCost {
+    std::string name;
+    std::string kind;                       // "dense", "residual", "continuous"
+    std::string solver;                     // continuous: "rk4, 8 steps", "dormand-prince, max-steps 64"
+    bool adaptive = false;
+    long parameters = 0;                    // weights and biases
+    long weight_bytes = 0;                  // parameters * sizeof(real), in flash
+    long code_bytes = -1;                   // .text of the functions named after this block; -1: none attributable
+    long workspace_bytes = 0;               // the block's own buffers in the workspace (lowering plan)
+    long macs_per_field_eval = 0;           // continuous only
+    long field_evals = 0;                   // continuous: exact (fixed step) or worst case (adaptive); else 0
+    std::optional<EvalSpread> measured;     // continuous, when inputs were given
+    long macs = 0;                          // per inference, with `field_evals` evaluations
+    long activations = 0;                   // exp-based activation evaluations per inference (worst case)
+};
+
+struct FunctionSize {
+    std::string name;                       // demangled
+    long code_bytes = 0;
+    long stack_bytes = -1;                  // its own frame (-fstack-usage); -1 unknown
+    std::string block;                      // the block it is attributed to, or empty
+};
+
+struct CoreCycles {
+    CoreClass core = CoreClass::cortex_m4f;
+    double cycles_per_mac = 0.0;
+    double cycles_per_activation = 0.0;
+    bool estimated = false;                 // false: no figure for this precision (no estimate)
+    double worst = 0.0;                     // cycles per inference, worst case
+    std::optional<double> median;           // with the measured median field evaluations
+};
+
+struct CostReport {
+    std::string model;
+    Precision precision = Precision::float32;
+    CoreClass core = CoreClass::cortex_m4f;
+    int real_bytes = 4;
+    std::vector<BlockCost> blocks;          // top-level blocks in model order
+
+    long parameters = 0;
+    long weight_bytes = 0;
+
+    bool code_measured = false;             // false: code_bytes is an estimate
+    std::string code_tool;                  // "arm-none-eabi-g++ 12.2.1 -mcpu=cortex-m4 ... -Os" when measured
+    long code_bytes = 0;                    // .text sections of the emitted object (or the estimate)
+    long rodata_bytes = -1;                 // .rodata sections (weights and other constants); -1 unknown
+    long data_bytes = -1;                   // .data + .bss (mutable globals; 0 for emitted code); -1 unknown
+    std::vector<FunctionSize> functions;    // measured only, in object order
+
+    long workspace_bytes = 0;               // the emitted header's workspace_bytes
+    long shared_workspace_bytes = 0;        // the buffers that carry results between top-level blocks
+    long context_bytes = 0;                 // workspace plus the counters (sizeof(context) on 32-bit cores)
+
+    bool stack_measured = false;
+    long entry_stack_bytes = -1;            // infer's own frame (-fstack-usage)
+    long stack_bytes = -1;                  // deepest chain of emitted functions from infer (-fcallgraph-info)
+    std::vector<std::string> stack_chain;   // that chain, infer first
+    std::vector<std::string> library_calls; // functions outside the emitted code infer may reach (tanhf, ...)
+
+    long macs_outside_fields = 0;           // dense layers outside continuous blocks, per inference
+    long macs_per_field_eval = 0;           // summed over continuous blocks
+    long field_evals = 0;                   // per inference, summed: exact or worst case
+    bool any_adaptive = false;
+    std::optional<EvalSpread> measured;     // total per inference, when inputs were given
+    long macs = 0;                          // per inference, worst case
+    long activations = 0;                   // per inference, worst case
+
+    double cycles_per_mac = 0.0;            // the figure used for `core`
+    bool cycles_per_mac_overridden = false;
+    std::vector<CoreCycles> cycles;         // `core` first, then the other classes
+};
+
+// `model` must have passed check_model and bind_weights (the emitter needs
+// the weights, the measured evaluations run the reference evaluator).
+std::optional<CostReport> measure_cost(const Model& model, const CostOptions& opts, Diagnostics& diags);
+
+std::string render_cost_text(const CostReport& report);
+std::string render_cost_json(const CostReport& report);
+
+}  // namespace meander

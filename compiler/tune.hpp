@@ -1,0 +1,83 @@
+// Tune: how large a solver budget a continuous block needs. Each continuous
+// block in turn (the others keep their deployed solver) is run against a tight
+// reference with a sweep of candidate budgets: step counts for fixed-step
+// methods, decades of rtol for adaptive ones. The report gives every
+// candidate's deviation from the reference and its cost, and recommends the
+// cheapest candidate that meets the target.
+#pragma once
+
+#include <optional>
+#include <string>
+#include <vector>
+
+#include "../runtime/model.hpp"
+#include "source.hpp"
+
+namespace meander {
+
+struct TuneOptions {
+    // Largest allowed deviation of a model output from the reference, as
+    // |out - ref| / max(1, |ref|), over every input row and output.
+    double target = 1e-4;
+    // Methods to sweep (tableau keys); empty: the block's own method.
+    std::vector<std::string> methods;
+    // Fixed-step sweep: N = 1, 2, 3, 4, 6, 8, 12, 16, ... up to this.
+    int max_steps_sweep = 256;
+    // float32 stops the rtol sweep at sqrt(FLT_EPSILON), float64 at sqrt(DBL_EPSILON).
+    Precision precision = Precision::float32;
+    std::vector<std::vector<double>> inputs;  // rows of the model's input width
+};
+
+// One solver budget tried on every input row.
+struct TuneCandidate {
+    SolverSpec spec;                // method with steps, or rtol/atol/max-steps
+    bool adaptive = false;
+    bool ok = false;                // every row evaluated with result ok
+    std::string failure;            // when !ok: the result name ("step_limit", ...)
+    int failure_row = -1;           // when !ok: 0-based input row
+    std::string failure_block;      // when !ok: the block that failed
+    double deviation = 0.0;         // largest |out - ref| / max(1, |ref|) (when ok)
+    int worst_row = 0;              // 0-based input row and output of that deviation
+    int worst_output = 0;
+    long worst_field_evals = 0;     // of this block per inference: exact for fixed step, max-steps bound for adaptive
+    long measured_field_evals = 0;  // of this block: largest over the rows
+    long max_attempts = 0;          // adaptive: largest accepted + rejected steps over the rows
+    long long worst_macs = 0;       // field MACs x worst_field_evals
+    bool meets = false;             // ok and deviation <= target
+};
+
+struct TuneBlock {
+    std::string name;
+    int state = 0;                  // width + augment
+    long field_macs = 0;            // one field evaluation
+    SolverSpec reference;           // dormand-prince at rtol = atol = 1e-12
+    long reference_field_evals = 0; // largest over the rows
+    TuneCandidate deployed;         // the block's own solver line
+    std::optional<SolverSpec> trained;
+    std::vector<TuneCandidate> candidates;  // in sweep order, method by method
+    std::optional<std::size_t> chosen;      // index into candidates: the cheapest that meets the target
+    std::optional<std::size_t> closest;     // index of the smallest deviation (when none meets)
+    std::string solver_line;        // "solver rk4, steps 6" for the description (when chosen)
+    std::vector<std::string> warnings;
+};
+
+struct TuneReport {
+    std::string model;
+    double target = 0.0;
+    Precision precision = Precision::float32;
+    double rtol_floor = 0.0;        // smallest rtol swept for this precision
+    int rows = 0;
+    int outputs = 0;
+    std::vector<TuneBlock> blocks;  // continuous blocks in model order
+};
+
+// `model` must have passed check_model and bind_weights. Returns nullopt
+// (with diagnostics) for bad options or inputs, or when the reference itself
+// cannot be computed. A target that no candidate meets is not an error.
+std::optional<TuneReport> tune_model(const Model& model, const TuneOptions& opts, Diagnostics& diags);
+
+// A table per block, then its recommendation.
+std::string render_tune_text(const TuneReport& report);
+std::string render_tune_json(const TuneReport& report);
+
+}  // namespace meander

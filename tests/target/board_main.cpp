@@ -1,0 +1,57 @@
+// The driver for emitted code on a board (or under ARM Linux user mode).
+// Built by run_target.sh with
+//   MEANDER_MODEL           the model's namespace (its name in the description)
+//   MEANDER_MODEL_HEADER    "NAME.hpp"
+//   MEANDER_SELFTEST_HEADER "NAME_selftest.hpp"
+//   MEANDER_TOLERANCE       the self-test tolerance, a real literal
+// and board_inputs.inc, the rows of the sample's inputs.csv as brace lists.
+// It prints one line per input row,
+//   row R RESULT FIELD_EVALS STEPS_TAKEN STEPS_REJECTED Y0 Y1 ...
+// then the self-test report, and returns non-zero when the self-test fails.
+#include <cstdio>
+
+#include MEANDER_MODEL_HEADER
+#include MEANDER_SELFTEST_HEADER
+
+namespace model = MEANDER_MODEL;
+
+namespace {
+
+// Inputs exactly as written in the CSV; rounded to `real` the way the host
+// tools round them (one conversion from double).
+const double kInputs[][model::input_size] = {
+#include "board_inputs.inc"
+};
+constexpr unsigned kRows = sizeof kInputs / sizeof kInputs[0];
+
+// 9 significant digits round-trip a float, 17 a double.
+constexpr int kDigits = sizeof(model::real) == 4 ? 9 : 17;
+
+// Caller-owned state; static so that the stack holds only the driver's frame.
+model::context ctx;
+
+}  // namespace
+
+int main() {
+    model::real in[model::input_size];
+    model::real out[model::output_size];
+    for (unsigned r = 0; r < kRows; ++r) {
+        for (unsigned i = 0; i < model::input_size; ++i) in[i] = static_cast<model::real>(kInputs[r][i]);
+        const model::result res = model::infer(ctx, in, out);
+        std::printf("row %u %s %lu %lu %lu", r, model::result_name(res),
+                    static_cast<unsigned long>(ctx.count.field_evals),
+                    static_cast<unsigned long>(ctx.count.steps_taken),
+                    static_cast<unsigned long>(ctx.count.steps_rejected));
+        if (res == model::result::ok)
+            for (unsigned i = 0; i < model::output_size; ++i) std::printf(" %.*g", kDigits, static_cast<double>(out[i]));
+        std::printf("\n");
+    }
+
+    const auto rep = model::self_test(ctx, MEANDER_TOLERANCE);
+    std::printf("self-test vectors %lu failures %lu first-failing %ld max-abs %.*g max-rel %.*g first-bad-result %s\n",
+                static_cast<unsigned long>(rep.vectors_run), static_cast<unsigned long>(rep.failures),
+                static_cast<long>(rep.first_failure), kDigits, static_cast<double>(rep.max_abs_deviation), kDigits,
+                static_cast<double>(rep.max_rel_deviation), model::result_name(rep.first_bad_result));
+    std::fflush(stdout);
+    return rep.failures == 0 ? 0 : 1;
+}

@@ -1,0 +1,294 @@
+#!/usr/bin/env bash
+# Proves emitted code on a microcontroller instruction set, for one sample.
+#
+#   run_target.sh MODE SAMPLE.mnd WORK_DIR
+#
+# MODE
+#   cortex-m4f      build for Cortex-M4F (hard float), run on qemu mps2-an386
+#   cortex-m3       build for Cortex-M3 (software float), run on qemu mps2-an385
+#   cortex-m7       build for Cortex-M7 (single-precision FPU), run on qemu mps2-an500
+#   arm-linux       build for 32-bit ARM Linux (-O2 -static), run under qemu-arm
+#   arm-linux-f64   the same with --precision float64
+#   warnings-gcc | warnings-clang | warnings-arm
+#                   the emitted sources compile cleanly with the strict warning set
+#   image           a Cortex-M4F float image of the emitted code links no
+#                   software-double helper (__aeabi_d*), no malloc, no operator new
+#   stack           every emitted function's stack use (-fstack-usage) is static
+#   cost            `meander cost --json` states the code bytes arm-none-eabi-size
+#                   and the entry frame the .su file give for the emitted object,
+#                   and the header's workspace_bytes
+#
+# The run modes compare every printed output with the sample's expected.csv
+# (outputs of `meander eval`, double precision): an output passes when
+#   |target - expected| <= TOL * max(1, |expected|)
+# the rule and defaults of `meander verify`: TOL = 1e-4 for float32 (float
+# carries ~7 digits; errors grow through layers and steps, newlib's tanhf/expf
+# differ from glibc's in the last bits, and an adaptive solver in float may
+# take slightly different steps) and 1e-10 for float64. MEANDER_TARGET_TOL
+# overrides it.
+#
+# Environment: MEANDER (the meander binary, default: meander on PATH),
+# MEANDER_TIMEOUT (seconds per emulator run, default 60).
+# Exit status: 0 pass, 1 fail, 77 a tool is missing (ctest SKIP_RETURN_CODE).
+set -u -o pipefail
+
+if [ $# -ne 3 ]; then
+    echo "usage: run_target.sh MODE SAMPLE.mnd WORK_DIR" >&2
+    exit 2
+fi
+mode=$1
+mnd=$2
+work=$3
+here=$(cd "$(dirname "${BASH_SOURCE[0]}")" && pwd)
+sample_dir=$(cd "$(dirname "$mnd")" && pwd)
+meander=${MEANDER:-meander}
+limit=${MEANDER_TIMEOUT:-60}
+
+fail() { echo "FAIL: $*" >&2; exit 1; }
+need() {
+    for tool in "$@"; do
+        if ! command -v "$tool" > /dev/null 2>&1; then
+            echo "SKIP: $tool is not installed (scripts/install-target-tools installs it)"
+            exit 77
+        fi
+    done
+}
+# Runs a command, showing it first, so a failing test's log says what was run.
+run() { echo "+ $*"; "$@"; }
+
+# The flags of the brief for users: small code, no exceptions or RTTI, one
+# section per function and object so the linker drops what is unused.
+common_cross=(-std=c++17 -Os -fno-exceptions -fno-rtti -fstack-usage -ffunction-sections -fdata-sections)
+m4f_flags=(-mcpu=cortex-m4 -mthumb -mfpu=fpv4-sp-d16 -mfloat-abi=hard)
+m3_flags=(-mcpu=cortex-m3 -mthumb -mfloat-abi=soft)
+m7_flags=(-mcpu=cortex-m7 -mthumb -mfpu=fpv5-sp-d16 -mfloat-abi=hard)
+strict=(-std=c++17 -Wall -Wextra -Wconversion -Wdouble-promotion -Wshadow -Werror -fno-exceptions -fno-rtti)
+
+precision=float32
+[ "$mode" = arm-linux-f64 ] && precision=float64
+if [ "$precision" = float32 ]; then tol_default=1e-4; else tol_default=1e-10; fi
+tol=${MEANDER_TARGET_TOL:-$tol_default}
+
+case "$mode" in
+    cortex-m4f|cortex-m3|cortex-m7|image|stack|warnings-arm) need arm-none-eabi-g++ ;;
+    cost) need arm-none-eabi-g++ arm-none-eabi-size ;;
+    arm-linux|arm-linux-f64) need arm-linux-gnueabihf-g++ qemu-arm ;;
+    warnings-gcc) need g++ ;;
+    warnings-clang) need clang++ ;;
+    *) echo "run_target.sh: unknown mode '$mode'" >&2; exit 2 ;;
+esac
+case "$mode" in
+    cortex-m4f|cortex-m3|cortex-m7) need qemu-system-arm ;;
+    image) need arm-none-eabi-nm ;;
+esac
+command -v timeout > /dev/null 2>&1 || { echo "SKIP: timeout (coreutils) is not installed"; exit 77; }
+
+# The model's name: the identifier after the first `model` keyword.
+name=$(sed -e 's/#.*//' "$mnd" | awk '{ for (i = 1; i < NF; ++i) if ($i == "model") { print $(i + 1); exit } }')
+[ -n "$name" ] || fail "$mnd: no 'model NAME' statement"
+
+case "$work" in ""|/) echo "run_target.sh: refusing WORK_DIR '$work'" >&2; exit 2 ;; esac
+rm -rf "$work"
+mkdir -p "$work/gen" || fail "cannot create $work"
+inputs=$sample_dir/inputs.csv
+expected=$sample_dir/expected.csv
+[ -f "$inputs" ] || fail "$inputs is missing"
+
+run "$meander" compile "$mnd" -o "$work/gen" --self-test "$inputs" --precision "$precision" ||
+    fail "meander compile failed"
+for f in "$name.hpp" "$name.cpp" "${name}_selftest.hpp" "${name}_selftest.cpp"; do
+    [ -f "$work/gen/$f" ] || fail "meander compile did not write $f"
+done
+sources=("$work/gen/$name.cpp" "$work/gen/${name}_selftest.cpp")
+
+# A CSV's numeric rows: '#' comments and blank lines skipped, a first line
+# with a non-numeric field taken as the header.
+csv_rows() {
+    awk -F, '
+        function num(s) { return s ~ /^[ \t]*[-+]?([0-9]+\.?[0-9]*|\.[0-9]+)([eE][-+]?[0-9]+)?[ \t\r]*$/ }
+        /^[ \t]*(#|$)/ { next }
+        { sub(/\r$/, "") }
+        !seen { seen = 1; for (i = 1; i <= NF; ++i) if (!num($i)) next }
+        { for (i = 1; i <= NF; ++i) if (!num($i)) { printf "%s:%d: not a number: %s\n", FILENAME, FNR, $i > "/dev/stderr"; exit 1 }
+          print }' "$1"
+}
+
+# The board driver's inputs: each CSV row as a brace list of double literals.
+write_inputs() {
+    csv_rows "$inputs" | awk -F, '{ printf "    {"; for (i = 1; i <= NF; ++i) { v = $i; gsub(/[ \t]/, "", v); printf "%s%s", (i > 1 ? ", " : ""), v } print "}," }' \
+        > "$work/board_inputs.inc" || fail "cannot read $inputs"
+    [ -s "$work/board_inputs.inc" ] || fail "$inputs has no rows"
+}
+
+tol_literal=$tol
+[ "$precision" = float32 ] && tol_literal=${tol}f
+driver_defs=(-I"$work" -I"$work/gen" -DMEANDER_MODEL="$name" -DMEANDER_MODEL_HEADER="\"$name.hpp\""
+             -DMEANDER_SELFTEST_HEADER="\"${name}_selftest.hpp\"" -DMEANDER_TOLERANCE="$tol_literal")
+
+# Checks the run's printed rows against expected.csv, and the self-test line.
+compare() {
+    local log=$1
+    [ -f "$expected" ] || fail "$expected is missing"
+    csv_rows "$expected" > "$work/expected.rows" || fail "cannot read $expected"
+    grep -E '^(row|self-test) ' "$log" > "$work/printed" || true
+    # The reference's counters per row (meander eval --stats, on stderr, a
+    # header naming the columns). In float64 the emitted code must take the
+    # very same steps; in float32 rounding may tip an adaptive step decision,
+    # so differing rows are only counted.
+    "$meander" eval "$mnd" --input "$inputs" --stats > /dev/null 2> "$work/eval.stats" ||
+        fail "meander eval --stats failed"
+    awk -v tol="$tol" -v rows_file="$work/expected.rows" -v stats_file="$work/eval.stats" -v strict="$([ "$precision" = float64 ] && echo 1 || echo 0)" '
+        function abs(x) { return x < 0 ? -x : x }
+        BEGIN {
+            n = 0
+            while ((getline line < rows_file) > 0) { m = split(line, v, ","); width[n] = m; for (i = 1; i <= m; ++i) want[n, i] = v[i] + 0; ++n }
+            k = 0
+            while ((getline line < stats_file) > 0) {
+                m = split(line, v, /[ \t]+/)
+                if (!cols) { for (i = 1; i <= m; ++i) col[v[i]] = i; cols = ("field_evals" in col) && ("steps_taken" in col) && ("steps_rejected" in col); continue }
+                counts[k++] = v[col["field_evals"]] " " v[col["steps_taken"]] " " v[col["steps_rejected"]]
+            }
+            if (!cols) { print "meander eval --stats printed no field_evals / steps_taken / steps_rejected columns"; exit 1 }
+            bad = 0; seen = 0; max_abs = 0; max_scaled = 0; selftest = 0; counter_rows = 0
+        }
+        $1 == "row" {
+            r = $2 + 0; ++seen
+            if (r >= n) { printf "row %d: not in expected.csv\n", r; ++bad; next }
+            if ((r in counts) && counts[r] != $4 " " $5 " " $6) {
+                ++counter_rows
+                if (strict) { printf "row %d: counters (field evals, taken, rejected) %s %s %s, eval has %s\n", r, $4, $5, $6, counts[r]; ++bad }
+            }
+            if ($3 != "ok") { printf "row %d: result %s, expected ok\n", r, $3; ++bad; next }
+            if (NF - 6 != width[r]) { printf "row %d: %d outputs printed, expected.csv has %d\n", r, NF - 6, width[r]; ++bad; next }
+            for (i = 1; i <= width[r]; ++i) {
+                got = $(6 + i) + 0; w = want[r, i]; d = abs(got - w); s = d / (abs(w) > 1 ? abs(w) : 1)
+                if (d > max_abs) max_abs = d
+                if (s > max_scaled) { max_scaled = s; where = sprintf("row %d output %d", r, i - 1) }
+                if (!(s <= tol)) { printf "row %d output %d: target %.17g, expected %.17g, deviation %.3g, scaled %.3g > %g\n", r, i - 1, got, w, d, s, tol; ++bad }
+            }
+        }
+        $1 == "self-test" {
+            selftest = 1
+            if ($5 != 0 || $NF != "ok") { printf "self-test on the target failed: %s\n", $0; ++bad }
+        }
+        END {
+            if (seen != n) { printf "%d rows printed, expected.csv has %d\n", seen, n; ++bad }
+            if (!selftest) { print "no self-test report printed"; ++bad }
+            if (k != n) { printf "meander eval --stats gave %d rows, expected.csv has %d\n", k, n; ++bad }
+            printf "%d rows compared, tolerance %g (|d| <= tol * max(1, |expected|)), largest |d| %.3g, largest scaled %.3g%s\n",
+                   seen, tol, max_abs, max_scaled, (max_scaled > 0 ? " at " where : "")
+            printf "counters equal to eval'"'"'s in %d of %d rows\n", seen - counter_rows, seen
+            exit bad > 0
+        }' "$work/printed"
+}
+
+# Runs an image under the emulator, bounded; prints its output.
+emulate() {
+    local log=$work/run.log rc
+    echo "+ timeout $limit $*"
+    timeout "$limit" "$@" > "$log" 2>&1
+    rc=$?
+    cat "$log"
+    [ "$rc" -ne 124 ] || fail "the run did not end within $limit s"
+    compare "$log" || fail "outputs differ from expected.csv"
+    [ "$rc" -eq 0 ] || fail "the program exited with status $rc"
+    echo "PASS: $mode"
+}
+
+board() {
+    local machine=$1; shift
+    write_inputs
+    run arm-none-eabi-g++ "${common_cross[@]}" "$@" "${driver_defs[@]}" \
+        "$here/startup.cpp" "$here/board_main.cpp" "${sources[@]}" \
+        -T "$here/mps2.ld" -nostartfiles --specs=rdimon.specs -Wl,--gc-sections -o "$work/app.elf" ||
+        fail "cross build failed"
+    emulate qemu-system-arm -M "$machine" -nographic -semihosting-config enable=on,target=native -kernel "$work/app.elf"
+}
+
+case "$mode" in
+cortex-m4f) board mps2-an386 "${m4f_flags[@]}" ;;
+cortex-m3)  board mps2-an385 "${m3_flags[@]}" ;;
+cortex-m7)  board mps2-an500 "${m7_flags[@]}" ;;
+arm-linux|arm-linux-f64)
+    write_inputs
+    run arm-linux-gnueabihf-g++ -std=c++17 -O2 -static -fno-exceptions -fno-rtti "${driver_defs[@]}" \
+        "$here/board_main.cpp" "${sources[@]}" -o "$work/app" || fail "cross build failed"
+    emulate qemu-arm "$work/app"
+    ;;
+warnings-gcc|warnings-clang|warnings-arm)
+    case "$mode" in
+        warnings-gcc) cxx=(g++) ;;
+        warnings-clang) cxx=(clang++) ;;
+        warnings-arm) cxx=(arm-none-eabi-g++ "${m4f_flags[@]}" -Os) ;;
+    esac
+    for src in "${sources[@]}"; do
+        run "${cxx[@]}" "${strict[@]}" -c "$src" -o "$work/$(basename "$src" .cpp).o" ||
+            fail "$(basename "$src") does not compile cleanly with ${cxx[0]}"
+    done
+    echo "PASS: $mode"
+    ;;
+image)
+    # A minimal program: start-up without semihosting and one inference on
+    # zeros, so every symbol in the image comes from the emitted model code,
+    # the C++ runtime it needs, and the float maths library.
+    cat > "$work/image_main.cpp" <<EOF
+#include "$name.hpp"
+namespace {
+$name::context ctx;
+}
+int main() {
+    const $name::real in[$name::input_size] = {};
+    $name::real out[$name::output_size];
+    return static_cast<int>($name::infer(ctx, in, out));
+}
+EOF
+    run arm-none-eabi-g++ "${common_cross[@]}" "${m4f_flags[@]}" -I"$work/gen" -DMEANDER_NO_SEMIHOSTING \
+        "$here/startup.cpp" "$work/image_main.cpp" "$work/gen/$name.cpp" \
+        -T "$here/mps2.ld" -nostartfiles --specs=nano.specs --specs=nosys.specs -Wl,--gc-sections -o "$work/image.elf" ||
+        fail "cross build failed"
+    arm-none-eabi-nm "$work/image.elf" > "$work/image.nm" || fail "arm-none-eabi-nm failed"
+    # Software double helpers of the ARM run-time ABI: __aeabi_d* (arithmetic,
+    # comparisons, d2f, d2iz, ...), __aeabi_cd* (flag comparisons) and the
+    # conversions into double (f2d, i2d, ui2d, l2d, ul2d): a hidden double.
+    # malloc/free and operator new/delete (_Znw*/_Zna*/_Zdl*/_Zda*): heap use.
+    if grep -E ' (__aeabi_(c?d[a-z0-9_]*|[a-z]+2d)|malloc|_malloc_r|calloc|realloc|free|_free_r|_Zn[wa][jm].*|_Zd[la]Pv.*)$' "$work/image.nm"; then
+        fail "the Cortex-M4F float image links the symbols above"
+    fi
+    echo "$(wc -l < "$work/image.nm") symbols, none of them software double, heap or operator new"
+    echo "PASS: $mode"
+    ;;
+stack)
+    status=0
+    for src in "${sources[@]}"; do
+        stem=$(basename "$src" .cpp)
+        run arm-none-eabi-g++ "${common_cross[@]}" "${m4f_flags[@]}" -c "$src" -o "$work/$stem.o" ||
+            fail "cross build of $stem.cpp failed"
+        [ -f "$work/$stem.su" ] || fail "no $stem.su written"
+        cat "$work/$stem.su"
+        # Each line: file:line:col:function<TAB>bytes<TAB>static|dynamic[,bounded]
+        if awk -F'\t' '$3 != "static" { print "not static: " $0; bad = 1 } END { exit !bad }' "$work/$stem.su"; then
+            status=1
+        fi
+    done
+    [ "$status" -eq 0 ] || fail "some emitted function's stack use is not static"
+    echo "PASS: $mode"
+    ;;
+cost)
+    # The object as `meander cost` builds it: the core's flags, -Os, sections.
+    run arm-none-eabi-g++ "${m4f_flags[@]}" "${common_cross[@]}" -c "$work/gen/$name.cpp" -o "$work/$name.o" ||
+        fail "cross build of $name.cpp failed"
+    text=$(arm-none-eabi-size -A "$work/$name.o" | awk '$1 ~ /^\.text/ { s += $2 } END { print s + 0 }')
+    frame=$(awk -F'\t' -v f="$name::infer(" 'index($1, f) { print $2 }' "$work/$name.su")
+    reals=$(sed -n 's/.*constexpr std::size_t workspace_size = \([0-9]*\);.*/\1/p' "$work/gen/$name.hpp")
+    run "$meander" cost "$mnd" --json > "$work/cost.json" || fail "meander cost failed"
+    # The "total" object's fields, one per line in the JSON.
+    total() { sed -n '/"total": {/,/}/p' "$work/cost.json" | sed -n "s/^ *\"$1\": \([0-9]*\),\{0,1\}$/\1/p"; }
+    echo "arm-none-eabi-size: .text $text B; .su: infer frame $frame B; header: workspace_size $reals reals"
+    echo "meander cost: code $(total code_bytes) B, entry frame $(total entry_stack_bytes) B, workspace $(total workspace_bytes) B"
+    grep -q '"code_measured": true' "$work/cost.json" || fail "meander cost did not measure the code"
+    [ -n "$text" ] && [ "$(total code_bytes)" = "$text" ] || fail "code bytes differ"
+    [ -n "$frame" ] && [ "$(total entry_stack_bytes)" = "$frame" ] || fail "entry frames differ"
+    [ -n "$reals" ] && [ "$(total workspace_bytes)" = "$((reals * 4))" ] || fail "workspace bytes differ"
+    echo "PASS: $mode"
+    ;;
+esac
