@@ -1,0 +1,203 @@
+#include "lower.hpp"
+
+#include <fmt/format.h>
+
+#include <algorithm>
+
+#include "../runtime/evaluate.hpp"
+#include "../runtime/integrate.hpp"
+
+namespace meander {
+
+namespace {
+
+int out_width_of(const Block& b) {
+    switch (b.kind) {
+    case Block::Kind::dense: return b.dense.out;
+    case Block::Kind::residual: return b.residual.width;
+    case Block::Kind::continuous: return b.continuous.state();
+    }
+    return 0;
+}
+
+long dense_params(const Dense& d) {
+    return static_cast<long>(d.out) * d.in_total() + (d.has_bias ? d.out : 0);
+}
+
+struct Layout {
+    Lowered& out;
+
+    std::size_t take(std::size_t base, std::size_t size, std::string name, std::string role) {
+        out.buffers.push_back(Buffer{std::move(name), base, size, std::move(role)});
+        out.workspace_size = std::max(out.workspace_size, base + size);
+        return base;
+    }
+
+    // Lays `blocks` out as a chain whose scratch starts at `base`.
+    Chain chain(const std::vector<Block>& blocks, const std::string& owner, std::size_t base, int in_width,
+                bool in_field) {
+        Chain c;
+        const std::size_t n = blocks.size();
+        // Results between layers alternate between two buffers wide enough for
+        // every intermediate result; the last layer writes the chain's output.
+        std::size_t widest = 0;
+        for (std::size_t j = 0; j + 1 < n; ++j)
+            widest = std::max(widest, static_cast<std::size_t>(out_width_of(blocks[j])));
+        const std::size_t pings = n == 0 ? 0 : std::min<std::size_t>(n - 1, 2);
+        std::size_t ping[2] = {0, 0};
+        for (std::size_t p = 0; p < pings; ++p)
+            ping[p] = take(base + p * widest, widest, fmt::format("{}.ping{}", owner, p),
+                           "results between layers");
+        const std::size_t next = base + pings * widest;
+
+        int width = in_width;
+        for (std::size_t j = 0; j < n; ++j) {
+            const Block& b = blocks[j];
+            ChainOp op;
+            op.block = &b;
+            op.in_width = width;
+            op.out_width = out_width_of(b);
+            op.src = j == 0 ? Slot{Slot::Kind::chain_in, 0} : Slot{Slot::Kind::work, ping[(j - 1) % 2]};
+            op.dst = j + 1 == n ? Slot{Slot::Kind::chain_out, 0} : Slot{Slot::Kind::work, ping[j % 2]};
+            if (b.kind == Block::Kind::residual) {
+                op.body = chain(b.residual.body, b.residual.name, next, b.residual.width, in_field);
+            } else if (b.kind == Block::Kind::continuous) {
+                op.cont = continuous(b.continuous, next);
+            } else if (!in_field) {
+                out.macs_outside_fields += dense_macs(b.dense);  // fields are counted per evaluation
+            }
+            width = op.out_width;
+            c.ops.push_back(std::move(op));
+        }
+        return c;
+    }
+
+    ContinuousPlan continuous(const Continuous& cb, std::size_t base) {
+        ContinuousPlan p;
+        p.block = &cb;
+        p.tableau = find_tableau(cb.solver.method);
+        p.n = static_cast<std::size_t>(cb.state());
+        // An adaptive method given `steps N` runs fixed step (as runtime/integrate.cpp).
+        p.adaptive = p.tableau != nullptr && p.tableau->adaptive() && cb.solver.steps == 0;
+        const int stages = p.tableau != nullptr ? p.tableau->stages : 0;
+        std::size_t at = base;
+        p.y = take(at, p.n, cb.name + ".state", "the state h");
+        at += p.n;
+        for (int s = 0; s < stages; ++s) {
+            p.k.push_back(take(at, p.n, fmt::format("{}.k{}", cb.name, s + 1), fmt::format("stage derivative k_{}", s + 1)));
+            at += p.n;
+        }
+        p.arg = take(at, p.n, cb.name + ".arg", "stage argument y + h*sum(a*k)");
+        at += p.n;
+        if (p.adaptive) {
+            p.y_new = take(at, p.n, cb.name + ".y_new", "solution of the attempted step");
+            at += p.n;
+        }
+        p.field = chain(cb.field, cb.name + ".field", at, cb.state(), true);
+        p.macs_per_field_eval = field_macs(cb);
+        p.worst_field_evals = worst_field_evals(cb.solver);
+        out.macs_per_field_eval += p.macs_per_field_eval;
+        out.worst_field_evals += p.worst_field_evals;
+        out.worst_macs += p.macs_per_field_eval * p.worst_field_evals;
+        return p;
+    }
+};
+
+long count_params(const std::vector<Block>& blocks) {
+    long n = 0;
+    for (const Block& b : blocks) {
+        switch (b.kind) {
+        case Block::Kind::dense: n += dense_params(b.dense); break;
+        case Block::Kind::residual: n += count_params(b.residual.body); break;
+        case Block::Kind::continuous: n += count_params(b.continuous.field); break;
+        }
+    }
+    return n;
+}
+
+void collect(const Chain& c, std::vector<const ContinuousPlan*>& out) {
+    for (const ChainOp& op : c.ops)
+        if (op.block->kind == Block::Kind::continuous) out.push_back(&op.cont);
+}
+
+std::string slot_text(const Slot& s, const std::string& in, const std::string& out) {
+    switch (s.kind) {
+    case Slot::Kind::chain_in: return in;
+    case Slot::Kind::chain_out: return out;
+    case Slot::Kind::work: return fmt::format("work[{}]", s.offset);
+    }
+    return "";
+}
+
+void dump_chain(std::string& text, const Chain& c, const std::string& in, const std::string& out, int depth) {
+    const std::string pad(static_cast<std::size_t>(depth) * 2, ' ');
+    for (const ChainOp& op : c.ops) {
+        const std::string src = slot_text(op.src, in, out);
+        const std::string dst = slot_text(op.dst, in, out);
+        const Block& b = *op.block;
+        switch (b.kind) {
+        case Block::Kind::dense:
+            text += fmt::format("{}dense {}: {} -> {} ({}{} -> {}, {})\n", pad, b.dense.name, src, dst, b.dense.in,
+                                b.dense.time_input ? " + t" : "", b.dense.out, activation_name(b.dense.act));
+            break;
+        case Block::Kind::residual:
+            text += fmt::format("{}residual {}: {} -> {} (width {}; then {} += {})\n", pad, b.residual.name, src, dst,
+                                b.residual.width, dst, src);
+            dump_chain(text, op.body, src, dst, depth + 1);
+            break;
+        case Block::Kind::continuous: {
+            const ContinuousPlan& p = op.cont;
+            text += fmt::format("{}continuous {}: {} -> {} (state {} = {} + augment {}; {})\n", pad, b.continuous.name,
+                                src, dst, p.n, b.continuous.width, b.continuous.augment, b.continuous.solver.method);
+            text += fmt::format("{}  field (point -> derivative), {} MACs, at most {} evaluations:\n", pad,
+                                p.macs_per_field_eval, p.worst_field_evals);
+            dump_chain(text, p.field, "point", "derivative", depth + 2);
+            break;
+        }
+        }
+    }
+}
+
+}  // namespace
+
+Lowered lower_model(const Model& model, Precision precision) {
+    Lowered low;
+    low.model_name = model.name;
+    low.precision = precision;
+    low.input_size = model.input_size;
+    low.output_size = model.output_size;
+    Layout lay{low};
+    low.top = lay.chain(model.blocks, "top", 0, model.input_size, false);
+    low.workspace_bytes = low.workspace_size * (precision == Precision::float32 ? 4u : 8u);
+    low.parameter_count = count_params(model.blocks);
+    low.worst_macs += low.macs_outside_fields;
+    return low;
+}
+
+std::vector<const ContinuousPlan*> continuous_plans(const Lowered& lowered) {
+    std::vector<const ContinuousPlan*> out;
+    collect(lowered.top, out);
+    return out;
+}
+
+std::string dump_lowered(const Lowered& low) {
+    std::string text;
+    text += fmt::format("lowered model {} ({})\n", low.model_name,
+                        low.precision == Precision::float32 ? "float32" : "float64");
+    text += fmt::format("workspace: {} reals, {} bytes\n", low.workspace_size, low.workspace_bytes);
+    text += fmt::format("parameters: {}\n", low.parameter_count);
+    text += fmt::format("MACs per field evaluation (all fields): {}\n", low.macs_per_field_eval);
+    text += fmt::format("MACs outside fields: {}\n", low.macs_outside_fields);
+    text += fmt::format("worst-case field evaluations: {}\n", low.worst_field_evals);
+    text += fmt::format("worst-case MACs per inference: {}\n", low.worst_macs);
+    text += "buffers (offset, size in reals; buffers of blocks that run one after the other share addresses):\n";
+    std::size_t name_w = 4;
+    for (const Buffer& b : low.buffers) name_w = std::max(name_w, b.name.size());
+    for (const Buffer& b : low.buffers)
+        text += fmt::format("  {:>6} {:>6}  {:<{}}  {}\n", b.offset, b.size, b.name, name_w, b.role);
+    text += "plan:\n";
+    dump_chain(text, low.top, "input", "output", 1);
+    return text;
+}
+
+}  // namespace meander
