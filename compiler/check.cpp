@@ -209,7 +209,37 @@ struct Checker {
         }
     }
 
+    // The model name becomes the emitted C++ namespace and the prefix of its macros.
+    void model_name() {
+        static const char* const reserved[] = {
+            "alignas", "alignof", "and", "and_eq", "asm", "auto", "bitand", "bitor", "bool", "break", "case", "catch",
+            "char", "char8_t", "char16_t", "char32_t", "class", "compl", "concept", "const", "consteval", "constexpr",
+            "constinit", "const_cast", "continue", "co_await", "co_return", "co_yield", "decltype", "default", "delete",
+            "do", "double", "dynamic_cast", "else", "enum", "explicit", "export", "extern", "false", "float", "for",
+            "friend", "goto", "if", "inline", "int", "long", "mutable", "namespace", "new", "noexcept", "not", "not_eq",
+            "nullptr", "operator", "or", "or_eq", "private", "protected", "public", "register", "reinterpret_cast",
+            "requires", "return", "short", "signed", "sizeof", "static", "static_assert", "static_cast", "struct",
+            "switch", "template", "this", "thread_local", "throw", "true", "try", "typedef", "typeid", "typename",
+            "union", "unsigned", "using", "virtual", "void", "volatile", "wchar_t", "while", "xor", "xor_eq",
+            // names the emitted code and its includes use at namespace scope
+            "std", "real", "result", "context", "counters", "infer", "main",
+        };
+        const std::string& n = model.name;
+        for (const char* r : reserved)
+            if (n == r) {
+                error(model.loc, fmt::format("model name '{}' cannot be used: it becomes the emitted C++ namespace, and '{}' "
+                                             "is a C++ keyword or a name the emitted code uses",
+                                             n, n));
+                return;
+            }
+        if (n.find("__") != std::string::npos || n[0] == '_')
+            error(model.loc, fmt::format("model name '{}' cannot be used: names beginning with '_' or containing '__' are "
+                                         "reserved in C++",
+                                         n));
+    }
+
     void run() {
+        if (!model.name.empty()) model_name();
         if (model.input_size < 1)
             error(model.input_loc, fmt::format("input '{}' has size {}; sizes must be at least 1", model.input_name, model.input_size));
         if (model.blocks.empty()) error(model.loc, fmt::format("model '{}' has no layers or blocks", model.name));

@@ -145,20 +145,6 @@ namespace {
 
 using emit_detail::real_literal;
 
-// ---------------------------------------------------------------------------
-// Walks over the model's layers.
-
-template <class F>
-void for_each_dense(const std::vector<Block>& blocks, F&& f) {
-    for (const Block& b : blocks) {
-        switch (b.kind) {
-        case Block::Kind::dense: f(b.dense); break;
-        case Block::Kind::residual: for_each_dense(b.residual.body, f); break;
-        case Block::Kind::continuous: for_each_dense(b.continuous.field, f); break;
-        }
-    }
-}
-
 bool chain_uses_work(const Chain& c) {
     for (const ChainOp& op : c.ops) {
         if (op.src.kind == Slot::Kind::work || op.dst.kind == Slot::Kind::work) return true;

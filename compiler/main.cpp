@@ -64,6 +64,7 @@ std::optional<Loaded> load_model(const std::string& path, Precision precision, D
         auto set = read_weights(wpath.lexically_normal().string(), diags);
         if (!set) return std::nullopt;
         if (!bind_weights(out.model, out.source, *set, diags)) return std::nullopt;
+        if (!check_weight_range(out.model, out.source, precision, diags)) return std::nullopt;
         auto bytes = weights_bytes(wpath.lexically_normal().string(), diags);
         if (!bytes) return std::nullopt;
         hash = fnv1a64(*bytes, hash);
@@ -73,6 +74,21 @@ std::optional<Loaded> load_model(const std::string& path, Precision precision, D
 }
 
 Precision precision_of(const std::string& s) { return s == "float64" ? Precision::float64 : Precision::float32; }
+
+// The model and the rows of an input CSV of its input width.
+struct LoadedWithRows {
+    Loaded loaded;
+    std::vector<std::vector<double>> rows;
+};
+
+std::optional<LoadedWithRows> load_with_rows(const std::string& path, Precision p, const std::string& input,
+                                             Diagnostics& diags) {
+    auto loaded = load_model(path, p, diags);
+    if (!loaded) return std::nullopt;
+    auto rows = read_csv_rows(input, loaded->model.input_size, diags);
+    if (!rows) return std::nullopt;
+    return LoadedWithRows{std::move(*loaded), std::move(*rows)};
+}
 
 std::vector<Eigen::VectorXd> to_vectors(const std::vector<std::vector<double>>& rows) {
     std::vector<Eigen::VectorXd> v;
@@ -97,17 +113,16 @@ int cmd_check(const std::string& model_path, const std::string& precision) {
 
 int cmd_eval(const std::string& model_path, const std::string& input, const std::string& output, bool stats) {
     Diagnostics diags;
-    auto loaded = load_model(model_path, Precision::float64, diags);
-    if (!loaded) return flush(diags), kModelError;
-    auto rows = read_csv_rows(input, loaded->model.input_size, diags);
-    if (!rows) return flush(diags), kModelError;
-    std::string csv = csv_header(loaded->model);
+    auto in = load_with_rows(model_path, Precision::float64, input, diags);
+    if (!in) return flush(diags), kModelError;
+    const Model& model = in->loaded.model;
+    std::string csv = csv_header(model);
     std::string stat_text;
     if (stats) stat_text = "row  field_evals  steps_taken  steps_rejected  h_min  h_max\n";
     int row = 0;
-    for (const auto& in : to_vectors(*rows)) {
+    for (const auto& x : to_vectors(in->rows)) {
         ++row;
-        EvalResult r = evaluate(loaded->model, in);
+        EvalResult r = evaluate(model, x);
         if (r.status != EvalStatus::ok) {
             diags.error(input, fmt::format("row {}: {}{}", row, eval_status_name(r.status),
                                            r.block.empty() ? "" : fmt::format(" in block '{}'", r.block)));
@@ -184,15 +199,13 @@ int cmd_verify(const std::string& model_path, const std::string& input, const st
                const std::string& cxx, const std::string& keep, bool show) {
     Diagnostics diags;
     Precision p = precision_of(precision);
-    auto loaded = load_model(model_path, p, diags);
-    if (!loaded) return flush(diags), kModelError;
-    auto rows = read_csv_rows(input, loaded->model.input_size, diags);
-    if (!rows) return flush(diags), kModelError;
+    auto in = load_with_rows(model_path, p, input, diags);
+    if (!in) return flush(diags), kModelError;
     VerifyOptions vo;
     vo.tolerance = tol;
     vo.cxx = cxx;
     vo.keep_dir = keep;
-    auto rep = verify_model(loaded->model, emit_options(*loaded, p, false), *rows, vo, diags);
+    auto rep = verify_model(in->loaded.model, emit_options(in->loaded, p, false), in->rows, vo, diags);
     flush(diags);
     if (!rep) return kModelError;
     if (show) std::fputs(render_verify_rows(*rep).c_str(), stdout);
@@ -227,17 +240,15 @@ int cmd_tune(const std::string& model_path, const std::string& input, const std:
              const std::vector<std::string>& methods, int sweep, bool json) {
     Diagnostics diags;
     Precision p = precision_of(precision);
-    auto loaded = load_model(model_path, p, diags);
-    if (!loaded) return flush(diags), kModelError;
-    auto rows = read_csv_rows(input, loaded->model.input_size, diags);
-    if (!rows) return flush(diags), kModelError;
+    auto in = load_with_rows(model_path, p, input, diags);
+    if (!in) return flush(diags), kModelError;
     TuneOptions to;
     to.target = target;
     to.methods = methods;
     to.max_steps_sweep = sweep;
     to.precision = p;
-    to.inputs = *rows;
-    auto rep = tune_model(loaded->model, to, diags);
+    to.inputs = in->rows;
+    auto rep = tune_model(in->loaded.model, to, diags);
     flush(diags);
     if (!rep) return kModelError;
     std::fputs((json ? render_tune_json(*rep) : render_tune_text(*rep)).c_str(), stdout);

@@ -94,16 +94,6 @@ struct Run {
     IntegrateStats stats;           // of the tuned block only
 };
 
-EvalStatus from_integrate(IntegrateStatus s) {
-    switch (s) {
-    case IntegrateStatus::ok: return EvalStatus::ok;
-    case IntegrateStatus::state_not_finite: return EvalStatus::state_not_finite;
-    case IntegrateStatus::step_limit: return EvalStatus::step_limit;
-    case IntegrateStatus::step_too_small: return EvalStatus::step_too_small;
-    }
-    return EvalStatus::state_not_finite;
-}
-
 // The tuned block with `spec` from the block's input `x`, then the rest of the model.
 Run run_block(const Split& sp, const Eigen::VectorXd& x, const SolverSpec& spec) {
     Run r;
@@ -115,7 +105,7 @@ Run run_block(const Split& sp, const Eigen::VectorXd& x, const SolverSpec& spec)
     };
     const IntegrateStatus s = integrate(field, c.t0, c.t1, y, spec, r.stats);
     if (s != IntegrateStatus::ok || !y.allFinite()) {
-        r.status = s != IntegrateStatus::ok ? from_integrate(s) : EvalStatus::state_not_finite;
+        r.status = s != IntegrateStatus::ok ? eval_status_of(s) : EvalStatus::state_not_finite;
         r.block = c.name;
         return r;
     }

@@ -1029,4 +1029,35 @@ std::optional<std::string> weights_bytes(const std::string& path, Diagnostics& d
     return out;
 }
 
+bool check_weight_range(const Model& model, const Source& src, Precision precision, Diagnostics& diags) {
+    if (precision != Precision::float32) return true;
+    const int before = diags.error_count();
+    auto scan = [&](const Dense& d, const std::string& tensor, const double* v, Eigen::Index n) {
+        Eigen::Index flushed = 0;
+        for (Eigen::Index i = 0; i < n; ++i) {
+            double a = std::fabs(v[i]);
+            if (a > static_cast<double>(std::numeric_limits<float>::max())) {
+                diags.error(src, d.loc,
+                            fmt::format("layer '{}': tensor '{}' holds {} at flat index {}, beyond the float32 range "
+                                        "(largest {}); emit with --precision float64 or rescale the layer",
+                                        d.name, tensor, format_double(v[i]), i,
+                                        format_float(std::numeric_limits<float>::max())));
+                return;
+            }
+            if (a != 0.0 && static_cast<float>(v[i]) == 0.0f) ++flushed;
+        }
+        if (flushed)
+            diags.warning(src, d.loc,
+                          fmt::format("layer '{}': {} values of tensor '{}' are too small for float32 and become 0",
+                                      d.name, flushed, tensor));
+    };
+    for_each_dense(model.blocks, [&](const Dense& d) {
+        // Eigen stores the weight column-major; the order only matters for the index in the message.
+        Eigen::Matrix<double, Eigen::Dynamic, Eigen::Dynamic, Eigen::RowMajor> w = d.weight;
+        scan(d, d.weight_tensor, w.data(), w.size());
+        if (d.has_bias) scan(d, d.bias_tensor, d.bias.data(), d.bias.size());
+    });
+    return diags.error_count() == before;
+}
+
 }  // namespace meander

@@ -34,6 +34,10 @@ std::optional<TensorSet> read_weights(const std::string& path, Diagnostics& diag
 // non-finite tensors at the layer's position in the description.
 bool bind_weights(Model& model, const Source& src, const TensorSet& set, Diagnostics& diags);
 
+// Weights the chosen precision cannot hold: a value beyond the float32 range
+// is an error (it would become infinite), values that flush to zero a warning.
+bool check_weight_range(const Model& model, const Source& src, Precision precision, Diagnostics& diags);
+
 // The weight listing text of a tensor set (round-trips exactly).
 std::string write_listing(const TensorSet& set);
 

@@ -48,7 +48,9 @@ void apply_sequence(const std::vector<Block>& blocks, double t, const Eigen::Vec
     y = cur;
 }
 
-EvalStatus from_integrate(IntegrateStatus s) {
+}  // namespace
+
+EvalStatus eval_status_of(IntegrateStatus s) {
     switch (s) {
     case IntegrateStatus::ok: return EvalStatus::ok;
     case IntegrateStatus::state_not_finite: return EvalStatus::state_not_finite;
@@ -57,6 +59,8 @@ EvalStatus from_integrate(IntegrateStatus s) {
     }
     return EvalStatus::state_not_finite;
 }
+
+namespace {
 
 void add_stats(IntegrateStats& total, const IntegrateStats& s) {
     if (s.steps_taken > 0) {
@@ -122,7 +126,7 @@ EvalResult evaluate(const Model& model, const Eigen::VectorXd& input) {
             const IntegrateStatus s = integrate(field, c.t0, c.t1, y, c.solver, stats);
             add_stats(r.stats, stats);
             if (s != IntegrateStatus::ok) {
-                r.status = from_integrate(s);
+                r.status = eval_status_of(s);
                 r.block = std::string(name);
                 return r;
             }

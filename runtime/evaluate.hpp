@@ -10,7 +10,8 @@
 namespace meander {
 
 enum class EvalStatus { ok, input_not_finite, state_not_finite, step_limit, step_too_small };
-std::string_view eval_status_name(EvalStatus s);  // "ok", "step_limit", ... (the emitted result names)
+std::string_view eval_status_name(EvalStatus s);
+EvalStatus eval_status_of(IntegrateStatus s);  // the integrator's status as the model's result  // "ok", "step_limit", ... (the emitted result names)
 
 struct EvalResult {
     EvalStatus status = EvalStatus::ok;

@@ -108,4 +108,17 @@ struct Model {
     std::vector<Block> blocks;
 };
 
+// Calls f(const Dense&) for every dense layer, in description order, through
+// residual bodies and fields.
+template <class F>
+void for_each_dense(const std::vector<Block>& blocks, F&& f) {
+    for (const Block& b : blocks) {
+        switch (b.kind) {
+        case Block::Kind::dense: f(b.dense); break;
+        case Block::Kind::residual: for_each_dense(b.residual.body, f); break;
+        case Block::Kind::continuous: for_each_dense(b.continuous.field, f); break;
+        }
+    }
+}
+
 }  // namespace meander

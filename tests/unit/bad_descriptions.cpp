@@ -633,6 +633,24 @@ const std::vector<Row> kCheckRows = {
      "bad.mnd:3:7: error: layer 'a' uses '+ t', but time exists only inside a continuous block\n"
      "dense a: 4 + t -> 2\n"
      "      ^\n"},
+    {"model name is a C++ keyword",
+     "model float\n"
+     "input x[4]\n"
+     "dense a: 4 -> 2\n"
+     "output y[2]\n",
+     "bad.mnd:1:7: error: model name 'float' cannot be used: it becomes the emitted C++ namespace, and 'float' is a "
+     "C++ keyword or a name the emitted code uses\n"
+     "model float\n"
+     "      ^\n"},
+    {"model name reserved by C++",
+     "model _Pump\n"
+     "input x[4]\n"
+     "dense a: 4 -> 2\n"
+     "output y[2]\n",
+     "bad.mnd:1:7: error: model name '_Pump' cannot be used: names beginning with '_' or containing '__' are reserved "
+     "in C++\n"
+     "model _Pump\n"
+     "      ^\n"},
     {"duplicate layer name",
      "model m\n"
      "input x[4]\n"
