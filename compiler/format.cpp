@@ -6,6 +6,8 @@
 // directly inside braces.
 #include "format.hpp"
 
+#include "../runtime/tableau.hpp"
+
 #include <fmt/format.h>
 
 #include <limits>
@@ -63,12 +65,19 @@ std::string format_solver(const SolverSpec& spec) {
     real("atol", spec.atol);
     integer("max-steps", spec.max_steps);
     real("first-step", spec.first_step);
-    if (has("controller")) out += spec.controller == Controller::pi ? ", controller pi" : ", controller integral";
-    real("safety", spec.safety);
-    real("min-factor", spec.min_factor);
-    real("max-factor", spec.max_factor);
-    real("pi-alpha", spec.pi_alpha);
-    real("pi-beta", spec.pi_beta);
+    // An adaptive solver's step-size control is spelled out in full, defaults
+    // included, so a review sees every constant the deployed code will use.
+    const Tableau* t = find_tableau(spec.method);
+    const bool adaptive = t && t->adaptive();
+    auto control = [&](std::string_view key, double v) {
+        if (adaptive || has(key)) out += fmt::format(", {} {}", key, format_number(v));
+    };
+    if (adaptive || has("controller")) out += spec.controller == Controller::pi ? ", controller pi" : ", controller integral";
+    control("safety", spec.safety);
+    control("min-factor", spec.min_factor);
+    control("max-factor", spec.max_factor);
+    if (spec.controller == Controller::pi || has("pi-alpha")) control("pi-alpha", spec.pi_alpha);
+    if (spec.controller == Controller::pi || has("pi-beta")) control("pi-beta", spec.pi_beta);
     return out;
 }
 

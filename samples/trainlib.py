@@ -2,7 +2,8 @@
 
 A small reverse-mode autodiff over NumPy float64 arrays, the three kinds of
 block of a meander description (dense, residual, continuous), Runge-Kutta
-integration that follows DEVELOPERS.md "Integrator semantics", Adam, and the
+integration that follows DEVELOPERS.md "Integrator semantics", Adam, the
+training loop and the run of an adaptive regression sample, and the
 writers of the sample files (<name>.npz, inputs.csv, expected.csv).
 
 Gradients through a continuous block:
@@ -448,3 +449,80 @@ def save_sample(name, blocks, P, x_rows, in_names, out_names, folder):
         for r in y:
             fh.write(",".join(f"{v:.17g}" for v in r) + "\n")
     return x_rows, y
+
+
+def standardise(train, *others):
+    """Column means and standard deviations of `train`, and `train` and each
+    of `others` scaled by them (the trainer works on standardised values)."""
+    mu, sd = train.mean(axis=0), train.std(axis=0)
+    return mu, sd, [(a - mu) / sd for a in (train,) + others]
+
+
+def fit(blocks, P, rng, z, target, loss_fn, epochs, lr0, report, batch=128, block=None):
+    """Adam over shuffled mini-batches with a cosine learning-rate schedule from
+    lr0 down to 1e-4. report(epoch, mean train loss, most attempts) runs every
+    tenth epoch and after the last. With `block` (the name of an adaptive
+    continuous block) every batch must integrate to "ok", and the most attempts
+    of any row in the epoch are tracked."""
+    print(f"parameters: {parameter_count(P)}")
+    state = {}
+    steps_per_epoch = len(z) // batch
+    for ep in range(epochs):
+        lr = lr0 * 0.5 * (1.0 + np.cos(np.pi * ep / epochs)) + 1e-4
+        perm = rng.permutation(len(z))
+        tot, most = 0.0, 0
+        for k in range(steps_per_epoch):
+            idx = perm[k * batch:(k + 1) * batch]
+            tp = Tape()
+            out = run_layers(tp, blocks, P, V(z[idx]))
+            if block is not None:
+                status, attempts, _, _ = STATS[block]
+                assert np.all(status == "ok"), "training hit a solver limit"
+                most = max(most, int(attempts.max()))
+            loss = loss_fn(tp, out, target[idx])
+            tp.backward(loss)
+            adam(P, lr, state)
+            tot += float(loss.v)
+        if ep % 10 == 9 or ep == epochs - 1:
+            report(ep, tot / steps_per_epoch, most)
+
+
+def adaptive_regression_sample(name, blocks, block, seed, make_data, sizes, epochs, lr0,
+                               rmse_text, held_out, in_names, out_names, folder):
+    """The whole run of a regression sample with one adaptive continuous block
+    named `block`: data from make_data(rng, n) for sizes = (train, held out),
+    standardised inputs and targets, mean squared error, scaling folded into
+    the first and last layers, float32 weights, then 40 held-out rows whose
+    every solver decision has |err - 1| >= 0.05 written out with save_sample.
+    rmse_text(rmse) words the per-output RMSE of the epoch lines;
+    held_out(err, rmse, y) prints the sample's own summary of the final weights
+    on the held-out cases (err = prediction - y, rmse per output)."""
+    rng = np.random.default_rng(seed)
+    x_tr, y_tr = make_data(rng, sizes[0])
+    x_te, y_te = make_data(rng, sizes[1])
+    mu, sd, (z_tr, z_te) = standardise(x_tr, x_te)
+    ymu, ysd, (t_tr,) = standardise(y_tr)
+    P = init_params(blocks, rng)
+
+    def report(ep, loss, most):
+        pred = predict(blocks, P, z_te) * ysd + ymu
+        rmse = np.sqrt(np.mean((pred - y_te) ** 2, axis=0))
+        print(f"epoch {ep + 1:3d}  train loss {loss:.5f}  most attempts {most}"
+              f"  held-out RMSE {rmse_text(rmse)}")
+    fit(blocks, P, rng, z_tr, t_tr, mse_loss, epochs, lr0, report, block=block)
+    fold_input_scaling(blocks, P, mu, sd)
+    fold_output_scaling(blocks, P, ymu, ysd)
+    to_float32(P)
+    err = predict(blocks, P, x_te) - y_te
+    held_out(err, np.sqrt(np.mean(err ** 2, axis=0)), y_te)
+    status, attempts, accepted, margin = STATS[block]
+    max_steps = next(b for b in blocks if isinstance(b, Continuous) and b.name == block).solver["max_steps"]
+    print(f"solver: all ok {bool(np.all(status == 'ok'))}; attempts per inference min {attempts.min()},"
+          f" max {attempts.max()}, mean {attempts.mean():.2f},"
+          f" rejected in total {int(np.sum(attempts - accepted))} (max-steps {max_steps})")
+    order = pick_rows(40, attempts, accepted, margin)
+    save_sample(name, blocks, P, x_te[order[:40]], in_names, out_names, folder)
+    status, attempts, accepted, margin = STATS[block]
+    print(f"inputs.csv rows: attempts min {attempts.min()}, max {attempts.max()},"
+          f" rows with a rejection {int(np.sum(attempts > accepted))},"
+          f" smallest |err - 1| {margin.min():.3g}")

@@ -21,10 +21,8 @@ row's steps are chosen by the controller exactly as deployed (DEVELOPERS.md
 with their step sizes held constant. Input and output scaling are folded into
 the first and last layers afterwards.
 
-Writes boiler_ahead.npz, inputs.csv (40 held-out cases whose every solver
-decision has |err - 1| >= 0.05, so float32 code takes the same steps; up to
-20 with a rejected attempt first) and expected.csv (float64 forward pass of
-the stored float32 weights).
+Writes boiler_ahead.npz, inputs.csv and expected.csv as described at
+trainlib.adaptive_regression_sample, which runs all of the above.
 """
 import os
 import sys
@@ -81,58 +79,17 @@ BLOCKS = [
 ]
 
 
-def main():
-    rng = np.random.default_rng(7031)
-    x_tr, y_tr = make_data(rng, 6000)
-    x_te, y_te = make_data(rng, 1500)
-    mu, sd = x_tr.mean(axis=0), x_tr.std(axis=0)
-    ymu, ysd = y_tr.mean(axis=0), y_tr.std(axis=0)
-    z_tr, z_te = (x_tr - mu) / sd, (x_te - mu) / sd
-    t_tr = (y_tr - ymu) / ysd
-    P = tl.init_params(BLOCKS, rng)
-    print(f"parameters: {tl.parameter_count(P)}")
-    state = {}
-    epochs, batch = 100, 128
-    steps_per_epoch = len(z_tr) // batch
-    for ep in range(epochs):
-        lr = 4e-3 * 0.5 * (1.0 + np.cos(np.pi * ep / epochs)) + 1e-4
-        perm = rng.permutation(len(z_tr))
-        tot, most = 0.0, 0
-        for k in range(steps_per_epoch):
-            idx = perm[k * batch:(k + 1) * batch]
-            tp = tl.Tape()
-            out = tl.run_layers(tp, BLOCKS, P, tl.V(z_tr[idx]))
-            status, attempts, _, _ = tl.STATS["heat"]
-            assert np.all(status == "ok"), "training hit a solver limit"
-            most = max(most, int(attempts.max()))
-            loss = tl.mse_loss(tp, out, t_tr[idx])
-            tp.backward(loss)
-            tl.adam(P, lr, state)
-            tot += float(loss.v)
-        if ep % 10 == 9 or ep == epochs - 1:
-            pred = tl.predict(BLOCKS, P, z_te) * ysd + ymu
-            rmse = np.sqrt(np.mean((pred - y_te) ** 2, axis=0))
-            print(f"epoch {ep + 1:3d}  train loss {tot / steps_per_epoch:.5f}  most attempts {most}"
-                  f"  held-out RMSE water {rmse[0]:.3f} C, wall {rmse[1]:.3f} C")
-    tl.fold_input_scaling(BLOCKS, P, mu, sd)
-    tl.fold_output_scaling(BLOCKS, P, ymu, ysd)
-    tl.to_float32(P)
-    pred = tl.predict(BLOCKS, P, x_te)
-    status, attempts, accepted, margin = tl.STATS["heat"]
-    err = pred - y_te
-    rmse = np.sqrt(np.mean(err ** 2, axis=0))
+def held_out(err, rmse, _y):
     mae = np.max(np.abs(err), axis=0)
     print(f"held-out (1500 cases, stored float32 weights, raw inputs): RMSE water {rmse[0]:.3f} C,"
           f" wall {rmse[1]:.3f} C; largest error water {mae[0]:.3f} C, wall {mae[1]:.3f} C")
-    print(f"solver: all ok {bool(np.all(status == 'ok'))}; attempts per inference min {attempts.min()},"
-          f" max {attempts.max()}, mean {attempts.mean():.2f},"
-          f" rejected in total {int(np.sum(attempts - accepted))} (max-steps {SOLVER['max_steps']})")
-    order = tl.pick_rows(40, attempts, accepted, margin)
-    tl.save_sample("boiler_ahead", BLOCKS, P, x_te[order[:40]], IN_NAMES, OUT_NAMES, HERE)
-    status, attempts, accepted, margin = tl.STATS["heat"]
-    print(f"inputs.csv rows: attempts min {attempts.min()}, max {attempts.max()},"
-          f" rows with a rejection {int(np.sum(attempts > accepted))},"
-          f" smallest |err - 1| {margin.min():.3g}")
+
+
+def main():
+    tl.adaptive_regression_sample(
+        "boiler_ahead", BLOCKS, "heat", seed=7031, make_data=make_data, sizes=(6000, 1500),
+        epochs=100, lr0=4e-3, rmse_text=lambda r: f"water {r[0]:.3f} C, wall {r[1]:.3f} C",
+        held_out=held_out, in_names=IN_NAMES, out_names=OUT_NAMES, folder=HERE)
 
 
 if __name__ == "__main__":

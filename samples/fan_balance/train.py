@@ -74,28 +74,13 @@ def main():
     rng = np.random.default_rng(20261201)
     x_tr, y_tr = make_data(rng, 6000)
     x_te, y_te = make_data(rng, 2000)
-    mu, sd = x_tr.mean(axis=0), x_tr.std(axis=0)
-    z_tr, z_te = (x_tr - mu) / sd, (x_te - mu) / sd
+    mu, sd, (z_tr, z_te) = tl.standardise(x_tr, x_te)
     P = tl.init_params(BLOCKS, rng)
-    print(f"parameters: {tl.parameter_count(P)}")
-    state = {}
-    epochs, batch = 120, 128
-    steps_per_epoch = len(z_tr) // batch
-    for ep in range(epochs):
-        lr = 3e-3 * 0.5 * (1.0 + np.cos(np.pi * ep / epochs)) + 1e-4
-        perm = rng.permutation(len(z_tr))
-        tot = 0.0
-        for k in range(steps_per_epoch):
-            idx = perm[k * batch:(k + 1) * batch]
-            tp = tl.Tape()
-            logits = tl.run_layers(tp, BLOCKS, P, tl.V(z_tr[idx]))
-            loss = tl.xent_loss(tp, logits, y_tr[idx])
-            tp.backward(loss)
-            tl.adam(P, lr, state)
-            tot += float(loss.v)
-        if ep % 10 == 9 or ep == epochs - 1:
-            acc = np.mean(np.argmax(tl.predict(BLOCKS, P, z_te), axis=1) == y_te)
-            print(f"epoch {ep + 1:3d}  train loss {tot / steps_per_epoch:.4f}  held-out accuracy {acc:.4f}")
+
+    def report(ep, loss, _most):
+        acc = np.mean(np.argmax(tl.predict(BLOCKS, P, z_te), axis=1) == y_te)
+        print(f"epoch {ep + 1:3d}  train loss {loss:.4f}  held-out accuracy {acc:.4f}")
+    tl.fit(BLOCKS, P, rng, z_tr, y_tr, tl.xent_loss, epochs=120, lr0=3e-3, report=report)
     tl.fold_input_scaling(BLOCKS, P, mu, sd)
     tl.to_float32(P)
     p = tl.predict(BLOCKS, P, x_te)

@@ -17,29 +17,18 @@
 #include <limits>
 #include <sstream>
 
+#include "test_support.hpp"
+
 namespace fs = std::filesystem;
 using namespace meander;
+using test::dense_block;
+using test::read_text;
 
 namespace {
 
-fs::path scratch(const std::string& name) {
-    fs::path dir = fs::path(MEANDER_BINARY_DIR) / "test_bad_weights" / name;
-    fs::remove_all(dir);
-    fs::create_directories(dir);
-    return dir;
-}
+fs::path scratch(const std::string& name) { return test::scratch_dir("test_bad_weights", name); }
 
-void write(const fs::path& p, const std::string& bytes) {
-    std::ofstream out(p, std::ios::binary);
-    out << bytes;
-}
-
-std::string slurp(const fs::path& p) {
-    std::ifstream in(p, std::ios::binary);
-    std::ostringstream ss;
-    ss << in.rdbuf();
-    return ss.str();
-}
+void write(const fs::path& p, const std::string& bytes) { test::write_text(p, bytes); }
 
 std::string replace_all(std::string s, const std::string& from, const std::string& to) {
     for (std::size_t at = s.find(from); at != std::string::npos; at = s.find(from, at + to.size()))
@@ -100,7 +89,7 @@ std::string layer_npy() {
 
 // Flips the bytes at [at, at+n) of a file.
 void damage(const fs::path& p, std::size_t at, std::size_t n) {
-    std::string bytes = slurp(p);
+    std::string bytes = read_text(p);
     for (std::size_t i = at; i < at + n && i < bytes.size(); ++i) bytes[i] = static_cast<char>(~bytes[i]);
     write(p, bytes);
 }
@@ -206,7 +195,7 @@ const ReadCase read_cases[] = {
          fs::path p = d / "w.npz";
          write_zip(p, {{"lift.weight.npy", layer_npy()}, {"lift.bias.npy", npy("{'descr': '<f4', 'fortran_order': False, 'shape': (16,), }", zeros(64))}}, false);
          // Damage the first central directory entry's offset field (bytes 42..45 of the entry).
-         std::string b = slurp(p);
+         std::string b = read_text(p);
          std::size_t cd = b.find(std::string("PK\x01\x02", 4));
          damage(p, cd + 42, 4);
          return p;
@@ -215,7 +204,7 @@ const ReadCase read_cases[] = {
     {"npz_damaged_directory_signature", [](const fs::path& d) {
          fs::path p = d / "w.npz";
          write_zip(p, {{"lift.weight.npy", layer_npy()}, {"lift.bias.npy", npy("{'descr': '<f4', 'fortran_order': False, 'shape': (16,), }", zeros(64))}}, true);
-         std::string b = slurp(p);
+         std::string b = read_text(p);
          std::size_t cd = b.rfind(std::string("PK\x01\x02", 4));  // the second entry
          damage(p, cd, 2);
          return p;
@@ -224,7 +213,7 @@ const ReadCase read_cases[] = {
     {"npz_truncated_archive", [](const fs::path& d) {
          fs::path p = d / "w.npz";
          write_zip(p, {{"lift.weight.npy", layer_npy()}}, false);
-         std::string b = slurp(p);
+         std::string b = read_text(p);
          write(p, b.substr(0, b.size() - 30));
          return p;
      },
@@ -387,23 +376,11 @@ const char* description =
     "output humidity[1]\n";
 
 Dense make_dense(const std::string& name, Loc loc, int in, bool time, int out, bool bias) {
-    Dense d;
-    d.name = name;
+    Dense d = test::dense_layer(name, in, out, Activation::identity, time, bias);
     d.loc = loc;
-    d.in = in;
-    d.time_input = time;
-    d.out = out;
-    d.has_bias = bias;
     d.weight_tensor = name + ".weight";
     d.bias_tensor = bias ? name + ".bias" : "";
     return d;
-}
-
-Block dense_block(Dense d) {
-    Block b;
-    b.kind = Block::Kind::dense;
-    b.dense = std::move(d);
-    return b;
 }
 
 Model greenhouse() {
@@ -597,7 +574,7 @@ TEST(Robustness, EveryPrefixOfAGoodFile) {
     const fs::path data = fs::path(MEANDER_SOURCE_DIR) / "tests" / "data" / "weights";
     fs::path dir = scratch("prefixes");
     for (const char* f : {"f4_be.npy", "v3_rank4.npy", "stored.npz", "deflated.npz", "numpy_text.mnw"}) {
-        std::string bytes = slurp(data / f);
+        std::string bytes = read_text(data / f);
         bool listing = fs::path(f).extension() == ".mnw";
         fs::path p = dir / f;
         // Every cut in the first 140 bytes (magic, header, zip local header),
@@ -618,7 +595,7 @@ TEST(Robustness, EveryFlippedByteOfAGoodFile) {
     const fs::path data = fs::path(MEANDER_SOURCE_DIR) / "tests" / "data" / "weights";
     fs::path dir = scratch("flips");
     for (const char* f : {"f8_le.npy", "deflated.npz"}) {
-        std::string bytes = slurp(data / f);
+        std::string bytes = read_text(data / f);
         fs::path p = dir / f;
         for (std::size_t n = 0; n < bytes.size(); n += n < 128 ? 1 : std::max<std::size_t>(1, bytes.size() / 60)) {
             std::string b = bytes;

@@ -4,8 +4,6 @@
 // guarantees about output files and exit codes.
 #include <gtest/gtest.h>
 
-#include <sys/wait.h>
-
 #include <cmath>
 #include <cstdio>
 #include <filesystem>
@@ -14,34 +12,17 @@
 #include <string>
 #include <vector>
 
+#include "test_support.hpp"
+
 namespace fs = std::filesystem;
 
 namespace {
 
-struct Outcome {
-    int status = -1;
-    std::string out;  // stdout and stderr together
-};
+using Outcome = meander::test::RunResult;
+using meander::test::read_text;
 
-Outcome run(const std::string& args) {
-    std::string cmd = std::string(MEANDER_BINARY) + " " + args + " 2>&1";
-    Outcome r;
-    FILE* p = popen(cmd.c_str(), "r");
-    if (!p) return r;
-    char buf[4096];
-    std::size_t n;
-    while ((n = std::fread(buf, 1, sizeof buf, p)) > 0) r.out.append(buf, n);
-    int st = pclose(p);
-    r.status = WIFEXITED(st) ? WEXITSTATUS(st) : -1;
-    return r;
-}
-
-std::string slurp(const fs::path& p) {
-    std::ifstream in(p, std::ios::binary);
-    std::ostringstream ss;
-    ss << in.rdbuf();
-    return ss.str();
-}
+// The meander binary with `args`; its standard output and standard error together.
+Outcome run(const std::string& args) { return meander::test::run(std::string(MEANDER_BINARY) + " " + args); }
 
 std::vector<std::vector<double>> read_csv(const std::string& text) {
     std::vector<std::vector<double>> rows;
@@ -74,12 +55,7 @@ std::vector<fs::path> samples() {
     return out;
 }
 
-fs::path scratch(const std::string& name) {
-    fs::path d = fs::path(MEANDER_BINARY_DIR) / "cli-scratch" / name;
-    fs::remove_all(d);
-    fs::create_directories(d);
-    return d;
-}
+fs::path scratch(const std::string& name) { return meander::test::scratch_dir("cli-scratch", name); }
 
 TEST(Samples, ThereAreAtLeastTwo) { EXPECT_GE(samples().size(), 2u); }
 
@@ -87,8 +63,8 @@ class SampleTest : public ::testing::TestWithParam<fs::path> {};
 
 TEST_P(SampleTest, ChecksClean) {
     Outcome r = run("check " + GetParam().string());
-    EXPECT_EQ(r.status, 0) << r.out;
-    EXPECT_EQ(r.out.find("warning"), std::string::npos) << r.out;
+    EXPECT_EQ(r.status, 0) << r.output;
+    EXPECT_EQ(r.output.find("warning"), std::string::npos) << r.output;
 }
 
 // expected.csv comes from the sample's trainer (its own float64 NumPy forward
@@ -96,9 +72,9 @@ TEST_P(SampleTest, ChecksClean) {
 TEST_P(SampleTest, EvalMatchesTrainerForwardPass) {
     fs::path dir = GetParam().parent_path();
     Outcome r = run("eval " + GetParam().string() + " --input " + (dir / "inputs.csv").string());
-    ASSERT_EQ(r.status, 0) << r.out;
-    auto got = read_csv(r.out);
-    auto want = read_csv(slurp(dir / "expected.csv"));
+    ASSERT_EQ(r.status, 0) << r.output;
+    auto got = read_csv(r.output);
+    auto want = read_csv(read_text(dir / "expected.csv"));
     ASSERT_EQ(got.size(), want.size());
     for (std::size_t i = 0; i < got.size(); ++i) {
         ASSERT_EQ(got[i].size(), want[i].size()) << "row " << i;
@@ -115,34 +91,31 @@ TEST_P(SampleTest, CompileIsByteIdenticalTwice) {
     int files = 0;
     for (const auto& f : fs::directory_iterator(a)) {
         ++files;
-        EXPECT_EQ(slurp(f.path()), slurp(b / f.path().filename())) << f.path().filename();
+        EXPECT_EQ(read_text(f.path()), read_text(b / f.path().filename())) << f.path().filename();
     }
     EXPECT_GE(files, 2);
 }
 
-TEST_P(SampleTest, VerifyFloat32) {
-    fs::path dir = GetParam().parent_path();
-    Outcome r = run("verify " + GetParam().string() + " --input " + (dir / "inputs.csv").string());
-    EXPECT_EQ(r.status, 0) << r.out;
-    EXPECT_NE(r.out.find("agrees"), std::string::npos) << r.out;
+// verify builds the emitted code and compares it with eval on the sample's inputs.
+void expect_verify_agrees(const fs::path& mnd, const std::string& options) {
+    Outcome r = run("verify " + mnd.string() + options + " --input " + (mnd.parent_path() / "inputs.csv").string());
+    EXPECT_EQ(r.status, 0) << r.output;
+    EXPECT_NE(r.output.find("agrees"), std::string::npos) << r.output;
 }
 
-TEST_P(SampleTest, VerifyFloat64) {
-    fs::path dir = GetParam().parent_path();
-    Outcome r = run("verify " + GetParam().string() + " --precision float64 --input " + (dir / "inputs.csv").string());
-    EXPECT_EQ(r.status, 0) << r.out;
-    EXPECT_NE(r.out.find("agrees"), std::string::npos) << r.out;
-}
+TEST_P(SampleTest, VerifyFloat32) { expect_verify_agrees(GetParam(), ""); }
+
+TEST_P(SampleTest, VerifyFloat64) { expect_verify_agrees(GetParam(), " --precision float64"); }
 
 TEST_P(SampleTest, FormatIsIdempotent) {
     std::string stem = GetParam().stem().string();
     Outcome once = run("format " + GetParam().string());
-    ASSERT_EQ(once.status, 0) << once.out;
+    ASSERT_EQ(once.status, 0) << once.output;
     fs::path f = scratch(stem + "-fmt") / (stem + ".mnd");
-    std::ofstream(f) << once.out;
+    std::ofstream(f) << once.output;
     Outcome twice = run("format " + f.string());
-    ASSERT_EQ(twice.status, 0) << twice.out;
-    EXPECT_EQ(once.out, twice.out);
+    ASSERT_EQ(twice.status, 0) << twice.output;
+    EXPECT_EQ(once.output, twice.output);
 }
 
 INSTANTIATE_TEST_SUITE_P(All, SampleTest, ::testing::ValuesIn(samples()),
@@ -156,8 +129,8 @@ TEST(Outputs, FailedCompileLeavesExistingFilesAlone) {
     fs::create_directories(d / "out");
     std::ofstream(d / "out" / "broken.hpp") << "previous contents\n";
     Outcome r = run("compile " + mnd.string() + " -o " + (d / "out").string());
-    EXPECT_EQ(r.status, 1) << r.out;
-    EXPECT_EQ(slurp(d / "out" / "broken.hpp"), "previous contents\n");
+    EXPECT_EQ(r.status, 1) << r.output;
+    EXPECT_EQ(read_text(d / "out" / "broken.hpp"), "previous contents\n");
     int entries = 0;
     for ([[maybe_unused]] const auto& e : fs::directory_iterator(d / "out")) ++entries;
     EXPECT_EQ(entries, 1);
@@ -171,8 +144,8 @@ TEST(Outputs, FailedEvalLeavesExistingCsvAlone) {
     std::ofstream(d / "out.csv") << "previous\n";
     Outcome r = run("eval " + all.front().string() + " --input " + (d / "in.csv").string() + " --output " +
                 (d / "out.csv").string());
-    EXPECT_EQ(r.status, 1) << r.out;
-    EXPECT_EQ(slurp(d / "out.csv"), "previous\n");
+    EXPECT_EQ(r.status, 1) << r.output;
+    EXPECT_EQ(read_text(d / "out.csv"), "previous\n");
 }
 
 TEST(ExitCodes, UsageErrorIsTwo) {
@@ -184,20 +157,20 @@ TEST(ExitCodes, UsageErrorIsTwo) {
 TEST(ExitCodes, MissingFileIsOneWithDiagnostic) {
     Outcome r = run("check /nonexistent/model.mnd");
     EXPECT_EQ(r.status, 1);
-    EXPECT_EQ(r.out, "/nonexistent/model.mnd: error: cannot read file: No such file or directory\n");
+    EXPECT_EQ(r.output, "/nonexistent/model.mnd: error: cannot read file: No such file or directory\n");
 }
 
 TEST(Version, PrintsName) {
     Outcome r = run("--version");
     EXPECT_EQ(r.status, 0);
-    EXPECT_EQ(r.out.rfind("meander ", 0), 0u) << r.out;
+    EXPECT_EQ(r.output.rfind("meander ", 0), 0u) << r.output;
 }
 
 }  // namespace
 
 // The tour in README.md must stay a valid description.
 TEST(Readme, TourExampleParses) {
-    std::string readme = slurp(fs::path(MEANDER_SOURCE_DIR) / "README.md");
+    std::string readme = read_text(fs::path(MEANDER_SOURCE_DIR) / "README.md");
     std::size_t start = readme.find("```\n# Bearing-wear");
     ASSERT_NE(start, std::string::npos);
     start += 4;
@@ -205,5 +178,5 @@ TEST(Readme, TourExampleParses) {
     fs::path f = scratch("readme") / "tour.mnd";
     std::ofstream(f) << readme.substr(start, end - start);
     Outcome r = run("format " + f.string());
-    EXPECT_EQ(r.status, 0) << r.out;
+    EXPECT_EQ(r.status, 0) << r.output;
 }

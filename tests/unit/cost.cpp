@@ -18,20 +18,22 @@
 
 #include "compiler/emit.hpp"
 #include "compiler/lower.hpp"
+#include "test_support.hpp"
 
 namespace meander {
 namespace {
 
 namespace fs = std::filesystem;
+using test::adaptive_solver;
+using test::capture;
+using test::continuous;
+using test::dense_block;
+using test::fixed_solver;
+using test::read_text;
 
 Dense dense(const std::string& name, int in, int out, Activation act, std::mt19937& rng, double scale,
             bool time_input = false) {
-    Dense d;
-    d.name = name;
-    d.in = in;
-    d.out = out;
-    d.act = act;
-    d.time_input = time_input;
+    Dense d = test::dense_layer(name, in, out, act, time_input);
     std::uniform_real_distribution<double> u(-scale, scale);
     d.weight.resize(out, d.in_total());
     for (int i = 0; i < out; ++i)
@@ -39,41 +41,6 @@ Dense dense(const std::string& name, int in, int out, Activation act, std::mt199
     d.bias.resize(out);
     for (int i = 0; i < out; ++i) d.bias(i) = u(rng);
     return d;
-}
-
-Block of(Dense d) {
-    Block b;
-    b.kind = Block::Kind::dense;
-    b.dense = std::move(d);
-    return b;
-}
-
-Block continuous(const std::string& name, int width, double t0, double t1, std::vector<Block> field, SolverSpec s) {
-    Block b;
-    b.kind = Block::Kind::continuous;
-    b.continuous.name = name;
-    b.continuous.width = width;
-    b.continuous.t0 = t0;
-    b.continuous.t1 = t1;
-    b.continuous.field = std::move(field);
-    b.continuous.solver = std::move(s);
-    return b;
-}
-
-SolverSpec fixed(const std::string& method, int steps) {
-    SolverSpec s;
-    s.method = method;
-    s.steps = steps;
-    return s;
-}
-
-SolverSpec adaptive(const std::string& method, double rtol, double atol, int max_steps) {
-    SolverSpec s;
-    s.method = method;
-    s.rtol = rtol;
-    s.atol = atol;
-    s.max_steps = max_steps;
-    return s;
 }
 
 // input x[3]
@@ -86,29 +53,22 @@ SolverSpec adaptive(const std::string& method, double rtol, double atol, int max
 // output y[2]
 Model mixed_model() {
     std::mt19937 rng(20261201);
-    Model m;
-    m.name = "mixed";
-    m.input_name = "x";
-    m.input_size = 3;
-    m.output_name = "y";
-    m.output_size = 2;
-    m.blocks.push_back(of(dense("lift", 3, 5, Activation::tanh, rng, 0.8)));
+    Model m = test::model("mixed", 3, 2);
+    m.blocks.push_back(dense_block(dense("lift", 3, 5, Activation::tanh, rng, 0.8)));
     std::vector<Block> f;
-    f.push_back(of(dense("f1", 5, 8, Activation::tanh, rng, 0.6, true)));
-    f.push_back(of(dense("f2", 8, 5, Activation::identity, rng, 0.6)));
-    m.blocks.push_back(continuous("flow", 5, 0.0, 1.0, std::move(f), fixed("rk4", 6)));
-    Block res;
-    res.kind = Block::Kind::residual;
-    res.residual.name = "polish";
-    res.residual.width = 5;
-    res.residual.body.push_back(of(dense("r1", 5, 5, Activation::relu, rng, 0.5)));
-    res.residual.body.push_back(of(dense("r2", 5, 5, Activation::identity, rng, 0.5)));
-    m.blocks.push_back(std::move(res));
+    f.push_back(dense_block(dense("f1", 5, 8, Activation::tanh, rng, 0.6, true)));
+    f.push_back(dense_block(dense("f2", 8, 5, Activation::identity, rng, 0.6)));
+    m.blocks.push_back(continuous("flow", 5, 0, 0.0, 1.0, std::move(f), fixed_solver("rk4", 6)));
+    std::vector<Block> body;
+    body.push_back(dense_block(dense("r1", 5, 5, Activation::relu, rng, 0.5)));
+    body.push_back(dense_block(dense("r2", 5, 5, Activation::identity, rng, 0.5)));
+    m.blocks.push_back(test::residual("polish", 5, std::move(body)));
     std::vector<Block> g;
-    g.push_back(of(dense("g1", 5, 6, Activation::softplus, rng, 0.7)));
-    g.push_back(of(dense("g2", 6, 5, Activation::identity, rng, 0.7)));
-    m.blocks.push_back(continuous("settle", 5, 0.0, 0.5, std::move(g), adaptive("dormand-prince", 1e-3, 1e-6, 20)));
-    m.blocks.push_back(of(dense("head", 5, 2, Activation::identity, rng, 0.5)));
+    g.push_back(dense_block(dense("g1", 5, 6, Activation::softplus, rng, 0.7)));
+    g.push_back(dense_block(dense("g2", 6, 5, Activation::identity, rng, 0.7)));
+    m.blocks.push_back(
+        continuous("settle", 5, 0, 0.0, 0.5, std::move(g), adaptive_solver("dormand-prince", 1e-3, 1e-6, 20)));
+    m.blocks.push_back(dense_block(dense("head", 5, 2, Activation::identity, rng, 0.5)));
     return m;
 }
 
@@ -120,24 +80,6 @@ CostOptions no_tools() {
 
 bool have(const std::string& tool) {
     return std::system(("command -v " + tool + " > /dev/null 2>&1").c_str()) == 0;
-}
-
-std::string capture(const std::string& cmd) {
-    std::string out;
-    FILE* p = popen(cmd.c_str(), "r");
-    if (p == nullptr) return out;
-    char buf[4096];
-    std::size_t n;
-    while ((n = std::fread(buf, 1, sizeof buf, p)) > 0) out.append(buf, n);
-    pclose(p);
-    return out;
-}
-
-std::string slurp(const fs::path& p) {
-    std::ifstream in(p);
-    std::stringstream s;
-    s << in.rdbuf();
-    return s.str();
 }
 
 TEST(Cost, CountsAgreeWithAHandCount) {
@@ -278,17 +220,13 @@ TEST(Cost, RejectsAnInputRowOfTheWrongWidth) {
 // output y[4]
 Model adaptive_model() {
     std::mt19937 rng(4711);
-    Model m;
-    m.name = "drift";
-    m.input_name = "x";
-    m.input_size = 3;
-    m.output_name = "y";
-    m.output_size = 4;
-    m.blocks.push_back(of(dense("a", 3, 4, Activation::tanh, rng, 1.0)));
+    Model m = test::model("drift", 3, 4);
+    m.blocks.push_back(dense_block(dense("a", 3, 4, Activation::tanh, rng, 1.0)));
     std::vector<Block> g;
-    g.push_back(of(dense("g1", 4, 6, Activation::tanh, rng, 1.5, true)));
-    g.push_back(of(dense("g2", 6, 4, Activation::identity, rng, 1.5)));
-    m.blocks.push_back(continuous("c", 4, 0.0, 1.0, std::move(g), adaptive("dormand-prince", 1e-6, 1e-8, 500)));
+    g.push_back(dense_block(dense("g1", 4, 6, Activation::tanh, rng, 1.5, true)));
+    g.push_back(dense_block(dense("g2", 6, 4, Activation::identity, rng, 1.5)));
+    m.blocks.push_back(
+        continuous("c", 4, 0, 0.0, 1.0, std::move(g), adaptive_solver("dormand-prince", 1e-6, 1e-8, 500)));
     return m;
 }
 
@@ -425,7 +363,7 @@ TEST(Cost, CodeAndStackAreWhatTheCrossToolsSay) {
     EXPECT_EQ(sum, text);
 
     // The .su line of mixed::infer.
-    const std::string su = slurp(dir / "mixed.su");
+    const std::string su = read_text(dir / "mixed.su");
     std::smatch m;
     ASSERT_TRUE(std::regex_search(su, m, std::regex(R"(mixed::infer\([^\t]*\t(\d+)\t)"))) << su;
     EXPECT_EQ(rep->entry_stack_bytes, std::stol(m[1].str()));

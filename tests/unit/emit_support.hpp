@@ -1,5 +1,6 @@
 // Shared by test_emit and test_golden: hand-built models with weights from a
-// fixed-seed generator, and building emitted code with the host compiler.
+// fixed-seed generator, and building emitted code with the host compiler
+// (general model, file and process helpers are in test_support.hpp).
 #pragma once
 
 #include <fmt/format.h>
@@ -18,6 +19,7 @@
 #include "compiler/emit.hpp"
 #include "runtime/evaluate.hpp"
 #include "runtime/model.hpp"
+#include "test_support.hpp"
 
 namespace meander::test {
 
@@ -37,17 +39,9 @@ struct Rng {
 
 inline Block dense(Rng& rng, const std::string& name, int in, int out, Activation act = Activation::identity,
                    bool time_input = false, double scale = 1.0, bool bias = true) {
-    Block b;
-    b.kind = Block::Kind::dense;
-    Dense& d = b.dense;
-    d.name = name;
-    d.in = in;
-    d.out = out;
-    d.act = act;
+    Dense d = dense_layer(name, in, out, act, time_input, bias);
     if (act == Activation::leaky_relu) d.act_param = 0.01;
     if (act == Activation::elu) d.act_param = 1.0;
-    d.time_input = time_input;
-    d.has_bias = bias;
     d.weight_tensor = name + ".weight";
     d.bias_tensor = bias ? name + ".bias" : "";
     // Glorot-like range keeps activations of order 1 through the layers.
@@ -59,58 +53,7 @@ inline Block dense(Rng& rng, const std::string& name, int in, int out, Activatio
         d.bias.resize(out);
         for (int i = 0; i < out; ++i) d.bias[i] = rng.uniform(-0.5, 0.5);
     }
-    return b;
-}
-
-inline Block residual(const std::string& name, int width, std::vector<Block> body) {
-    Block b;
-    b.kind = Block::Kind::residual;
-    b.residual.name = name;
-    b.residual.width = width;
-    b.residual.body = std::move(body);
-    return b;
-}
-
-inline SolverSpec fixed_solver(const std::string& method, int steps) {
-    SolverSpec s;
-    s.method = method;
-    s.steps = steps;
-    return s;
-}
-
-inline SolverSpec adaptive_solver(const std::string& method, double rtol, double atol, int max_steps) {
-    SolverSpec s;
-    s.method = method;
-    s.rtol = rtol;
-    s.atol = atol;
-    s.max_steps = max_steps;
-    return s;
-}
-
-inline Block continuous(const std::string& name, int width, int augment, double t0, double t1, std::vector<Block> field,
-                        SolverSpec solver) {
-    Block b;
-    b.kind = Block::Kind::continuous;
-    Continuous& c = b.continuous;
-    c.name = name;
-    c.width = width;
-    c.augment = augment;
-    c.t0 = t0;
-    c.t1 = t1;
-    c.field = std::move(field);
-    c.solver = std::move(solver);
-    return b;
-}
-
-inline Model model(const std::string& name, int in, int out, std::vector<Block> blocks) {
-    Model m;
-    m.name = name;
-    m.input_name = "x";
-    m.input_size = in;
-    m.output_name = "y";
-    m.output_size = out;
-    m.blocks = std::move(blocks);
-    return m;
+    return dense_block(std::move(d));
 }
 
 // input 3 -> dense lift (tanh) -> continuous settle (state 4 + augment 1,
@@ -136,43 +79,7 @@ inline std::vector<std::vector<double>> random_inputs(std::uint64_t seed, int co
     return v;
 }
 
-// --- files and processes --------------------------------------------------
-
-inline std::filesystem::path temp_dir(const std::string& tag) {
-    std::string templ = (std::filesystem::temp_directory_path() / ("meander-" + tag + "-XXXXXX")).string();
-    const char* made = mkdtemp(templ.data());
-    EXPECT_NE(made, nullptr);
-    return std::filesystem::path(templ);
-}
-
-inline void write_text(const std::filesystem::path& p, const std::string& text) {
-    std::ofstream f(p, std::ios::binary);
-    f << text;
-}
-
-inline std::string read_text(const std::filesystem::path& p) {
-    std::ifstream f(p, std::ios::binary);
-    std::ostringstream s;
-    s << f.rdbuf();
-    return s.str();
-}
-
-struct RunResult {
-    int status = -1;
-    std::string output;             // stdout and stderr
-};
-
-inline RunResult run(const std::string& command) {
-    RunResult r;
-    FILE* p = popen((command + " 2>&1").c_str(), "r");
-    if (p == nullptr) return r;
-    std::array<char, 4096> buf{};
-    std::size_t n = 0;
-    while ((n = fread(buf.data(), 1, buf.size(), p)) > 0) r.output.append(buf.data(), n);
-    const int st = pclose(p);
-    r.status = WIFEXITED(st) ? WEXITSTATUS(st) : -1;
-    return r;
-}
+// --- building emitted code ------------------------------------------------
 
 // The flags every emitted file must pass (DEVELOPERS.md, "The emitted API").
 inline std::string strict_flags() {

@@ -16,6 +16,7 @@
 
 #include "runtime/activation.hpp"
 #include "runtime/evaluate.hpp"
+#include "test_support.hpp"
 
 namespace meander {
 namespace {
@@ -126,16 +127,8 @@ struct Lcg {
 
 Block dense_block(const std::string& name, int in, int out, Activation act, Lcg& rng, bool time = false,
                   bool bias = true, double scale = 1.0) {
-    Block b;
-    b.kind = Block::Kind::dense;
-    Dense& d = b.dense;
-    d.name = name;
-    d.in = in;
-    d.out = out;
-    d.time_input = time;
-    d.act = act;
+    Dense d = test::dense_layer(name, in, out, act, time, bias);
     d.act_param = act == Activation::elu ? 1.0 : 0.01;
-    d.has_bias = bias;
     d.weight.resize(out, d.in_total());
     for (int i = 0; i < out; ++i)
         for (int j = 0; j < d.in_total(); ++j) d.weight(i, j) = scale * rng.next();
@@ -143,48 +136,12 @@ Block dense_block(const std::string& name, int in, int out, Activation act, Lcg&
         d.bias.resize(out);
         for (int i = 0; i < out; ++i) d.bias[i] = rng.next();
     }
-    return b;
+    return test::dense_block(std::move(d));
 }
 
-Block residual_block(const std::string& name, int width, std::vector<Block> body) {
-    Block b;
-    b.kind = Block::Kind::residual;
-    b.residual.name = name;
-    b.residual.width = width;
-    b.residual.body = std::move(body);
-    return b;
-}
+SolverSpec rk4_steps(int n) { return test::fixed_solver("rk4", n); }
 
-Block continuous_block(const std::string& name, int width, int augment, double t0, double t1,
-                       std::vector<Block> field, SolverSpec solver) {
-    Block b;
-    b.kind = Block::Kind::continuous;
-    Continuous& c = b.continuous;
-    c.name = name;
-    c.width = width;
-    c.augment = augment;
-    c.t0 = t0;
-    c.t1 = t1;
-    c.field = std::move(field);
-    c.solver = std::move(solver);
-    return b;
-}
-
-SolverSpec rk4_steps(int n) {
-    SolverSpec s;
-    s.method = "rk4";
-    s.steps = n;
-    return s;
-}
-
-SolverSpec adaptive(const std::string& m, double rtol, double atol, int max_steps) {
-    SolverSpec s;
-    s.method = m;
-    s.rtol = rtol;
-    s.atol = atol;
-    s.max_steps = max_steps;
-    return s;
-}
+const auto adaptive = test::adaptive_solver;
 
 // ---- the same computation with plain loops -----------------------------------
 
@@ -284,12 +241,12 @@ Model sample_model() {
     std::vector<Block> field;
     field.push_back(dense_block("f1", 6, 5, Activation::softplus, rng, true));
     field.push_back(dense_block("f2", 5, 6, Activation::identity, rng));
-    field.push_back(residual_block("fr", 6, std::move(inner)));
-    m.blocks.push_back(continuous_block("settle", 4, 2, 0.0, 1.5, std::move(field), rk4_steps(8)));
+    field.push_back(test::residual("fr", 6, std::move(inner)));
+    m.blocks.push_back(test::continuous("settle", 4, 2, 0.0, 1.5, std::move(field), rk4_steps(8)));
     std::vector<Block> body;
     body.push_back(dense_block("p1", 6, 6, Activation::relu, rng));
     body.push_back(dense_block("p2", 6, 6, Activation::identity, rng, false, false));
-    m.blocks.push_back(residual_block("polish", 6, std::move(body)));
+    m.blocks.push_back(test::residual("polish", 6, std::move(body)));
     m.blocks.push_back(dense_block("head", 6, 3, Activation::softmax, rng));
     return m;
 }
@@ -349,16 +306,11 @@ Model linear_model(const Eigen::MatrixXd& a, int augment, double t0, double t1, 
     const int state = static_cast<int>(a.rows());
     m.input_size = state - augment;
     m.output_size = state;
-    Block d;
-    d.kind = Block::Kind::dense;
-    d.dense.name = "a";
-    d.dense.in = state;
-    d.dense.out = state;
-    d.dense.has_bias = false;
-    d.dense.weight = a;
+    Dense d = test::dense_layer("a", state, state, Activation::identity, false, false);
+    d.weight = a;
     std::vector<Block> field;
-    field.push_back(d);
-    m.blocks.push_back(continuous_block("flow", state - augment, augment, t0, t1, std::move(field), solver));
+    field.push_back(test::dense_block(d));
+    m.blocks.push_back(test::continuous("flow", state - augment, augment, t0, t1, std::move(field), solver));
     return m;
 }
 

@@ -64,8 +64,11 @@ const char* kCanonical =
     "  # the default slope, written out\n"
     "  dense f2: 16 -> 10, leaky-relu, from \"ode.f2\"\n"
     "\n"
-    "  solver dormand-prince, rtol 1e-4, atol 1e-6, max-steps 64, controller integral\n"
-    "  trained-with dormand-prince, rtol 1e-4, atol 1e-6, max-steps 64\n"
+    // Step-size control is spelled out in full, defaults included.
+    "  solver dormand-prince, rtol 1e-4, atol 1e-6, max-steps 64, controller integral, safety 0.9, min-factor 0.2, "
+    "max-factor 10\n"
+    "  trained-with dormand-prince, rtol 1e-4, atol 1e-6, max-steps 64, controller integral, safety 0.9, "
+    "min-factor 0.2, max-factor 10\n"
     "  # end of the field\n"
     "}  # cool\n"
     "residual calm: 10 {\n"
@@ -215,7 +218,8 @@ TEST(FormatSolver, CanonicalOrderOfWrittenOptions) {
     s.first_step = 0.05;
     s.controller = Controller::pi;
     s.pi_beta = 0.35;
-    EXPECT_EQ(format_solver(s), "tsitouras, rtol 1e-3, atol 1e-7, max-steps 200, first-step 0.05, controller pi, pi-beta 0.35");
+    EXPECT_EQ(format_solver(s), "tsitouras, rtol 1e-3, atol 1e-7, max-steps 200, first-step 0.05, controller pi, safety 0.9, "
+              "min-factor 0.2, max-factor 10, pi-alpha 0.7, pi-beta 0.35");
     SolverSpec f;
     f.method = "heun";
     f.steps = 12;

@@ -13,29 +13,15 @@
 
 #include "runtime/integrate.hpp"
 #include "runtime/tableau.hpp"
+#include "test_support.hpp"
 
 namespace meander {
 namespace {
 
-SolverSpec fixed(const std::string& method, int steps) {
-    SolverSpec s;
-    s.method = method;
-    s.steps = steps;
-    return s;
-}
-
-SolverSpec adaptive(const std::string& method, double rtol, double atol, int max_steps) {
-    SolverSpec s;
-    s.method = method;
-    s.rtol = rtol;
-    s.atol = atol;
-    s.max_steps = max_steps;
-    return s;
-}
-
-Field linear_scalar(double lambda) {
-    return [lambda](double, const Eigen::VectorXd& y, Eigen::VectorXd& dy) { dy = lambda * y; };
-}
+using test::linear_scalar;
+// Short names for the specs built throughout.
+const auto fixed = test::fixed_solver;
+const auto adaptive = test::adaptive_solver;
 
 Field decay() { return linear_scalar(-1.0); }
 

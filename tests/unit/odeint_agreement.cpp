@@ -19,6 +19,7 @@
 #include "runtime/evaluate.hpp"
 #include "runtime/integrate.hpp"
 #include "runtime/model.hpp"
+#include "test_support.hpp"
 
 namespace {
 
@@ -118,34 +119,27 @@ meander::Block dense(const std::string& name, int in, bool time, const Eigen::Ma
 
 // The same network as a meander model: one continuous block, augmented by one.
 meander::Model model_with(const meander::SolverSpec& spec) {
-    meander::Model m;
-    m.name = "odeint_check";
-    m.input_name = "x";
-    m.input_size = kWidth;
-    m.output_name = "y";
-    m.output_size = kState;
-    meander::Block blk;
-    blk.kind = meander::Block::Kind::continuous;
-    meander::Continuous& c = blk.continuous;
-    c.name = "flow";
-    c.width = kWidth;
-    c.augment = kAugment;
-    c.t0 = kT0;
-    c.t1 = kT1;
-    c.field.push_back(dense("f1", kState, true, net().w1, net().b1, meander::Activation::tanh));
-    c.field.push_back(dense("f2", kHidden1, false, net().w2, net().b2, meander::Activation::softplus));
-    c.field.push_back(dense("f3", kHidden2, false, net().w3, net().b3, meander::Activation::identity));
-    c.solver = spec;
-    m.blocks.push_back(blk);
-    return m;
+    std::vector<meander::Block> field;
+    field.push_back(dense("f1", kState, true, net().w1, net().b1, meander::Activation::tanh));
+    field.push_back(dense("f2", kHidden1, false, net().w2, net().b2, meander::Activation::softplus));
+    field.push_back(dense("f3", kHidden2, false, net().w3, net().b3, meander::Activation::identity));
+    std::vector<meander::Block> blocks;
+    blocks.push_back(meander::test::continuous("flow", kWidth, kAugment, kT0, kT1, std::move(field), spec));
+    return meander::test::model("odeint_check", kWidth, kState, std::move(blocks));
 }
 
 meander::SolverSpec adaptive(const std::string& method, double tol) {
-    meander::SolverSpec s;
-    s.method = method;
-    s.rtol = s.atol = tol;
-    s.max_steps = 100000;
-    return s;
+    return meander::test::adaptive_solver(method, tol, tol, 100000);
+}
+
+// n equal steps of an odeint stepper over [kT0, kT1] from the initial state,
+// at the times ours uses: t_i = t0 + i h from the index (DEVELOPERS.md).
+template <class Stepper>
+State odeint_fixed_steps(Stepper stepper, int n) {
+    const double h = (kT1 - kT0) / n;
+    State x = initial_state();
+    for (int i = 0; i < n; ++i) stepper.do_step(odeint_system, x, kT0 + i * h, h);
+    return x;
 }
 
 double max_diff(const State& a, const State& b) { return (a - b).cwiseAbs().maxCoeff(); }
@@ -197,16 +191,10 @@ TEST(OdeintAgreement, DormandPrinceAgreesWithOdeintAt1e12) {
 }
 
 TEST(OdeintAgreement, Rk4FixedStepsMatchOdeintsRungeKutta4) {
-    // Same steps as ours: t_i = t0 + i h from the index (DEVELOPERS.md).
     const int n = 60;
-    const double h = (kT1 - kT0) / n;
-    ode::runge_kutta4<State> rk4;
-    State x = initial_state();
-    for (int i = 0; i < n; ++i) rk4.do_step(odeint_system, x, kT0 + i * h, h);
+    const State x = odeint_fixed_steps(ode::runge_kutta4<State>(), n);
 
-    meander::SolverSpec spec;
-    spec.method = "rk4";
-    spec.steps = n;
+    meander::SolverSpec spec = meander::test::fixed_solver("rk4", n);
     const meander::EvalResult r = meander::evaluate(model_with(spec), incoming());
     ASSERT_EQ(r.status, meander::EvalStatus::ok);
     EXPECT_EQ(r.stats.field_evals, 4L * n);
@@ -253,15 +241,8 @@ TEST(OdeintAgreement, SingleStepsMatchOdeintsTableaux) {
     EXPECT_LT(worst_single_step_diff("dormand-prince", ode::runge_kutta_dopri5<State>(), 30), 2e-15);
     EXPECT_LT(worst_single_step_diff("cash-karp", ode::runge_kutta_cash_karp54<State>(), 30), 2e-15);
     // Fixed-step methods through evaluate, stepped as odeint steps them.
-    const int n = 30;
-    const double h = (kT1 - kT0) / n;
-    ode::euler<State> euler;
-    State x = initial_state();
-    for (int i = 0; i < n; ++i) euler.do_step(odeint_system, x, kT0 + i * h, h);
-    meander::SolverSpec spec;
-    spec.method = "euler";
-    spec.steps = n;
-    const meander::EvalResult r = meander::evaluate(model_with(spec), incoming());
+    const State x = odeint_fixed_steps(ode::euler<State>(), 30);
+    const meander::EvalResult r = meander::evaluate(model_with(meander::test::fixed_solver("euler", 30)), incoming());
     ASSERT_EQ(r.status, meander::EvalStatus::ok);
     EXPECT_LT(max_diff(r.output, x), 1e-14);  // measured: bit for bit
 }

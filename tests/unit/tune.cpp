@@ -26,6 +26,7 @@
 #include "compiler/parse.hpp"
 #include "compiler/weights.hpp"
 #include "runtime/model.hpp"
+#include "test_support.hpp"
 
 namespace meander {
 namespace {
@@ -46,46 +47,28 @@ Block dense_block(const std::string& name, const Eigen::MatrixXd& w, const Eigen
     return b;
 }
 
+// As a description would write them: the tuner reads which options were written.
 SolverSpec fixed(const std::string& method, int steps) {
-    SolverSpec s;
-    s.method = method;
-    s.steps = steps;
+    SolverSpec s = test::fixed_solver(method, steps);
     s.written = {"steps"};
     return s;
 }
 
 SolverSpec adaptive(const std::string& method, double rtol, double atol, int max_steps) {
-    SolverSpec s;
-    s.method = method;
-    s.rtol = rtol;
-    s.atol = atol;
-    s.max_steps = max_steps;
+    SolverSpec s = test::adaptive_solver(method, rtol, atol, max_steps);
     s.written = {"rtol", "atol", "max-steps"};
     return s;
 }
 
 // dh/dt = A h on [t0, t1], the field one dense layer without bias or activation.
 Block linear_continuous(const Eigen::MatrixXd& a, int width, double t0, double t1, const SolverSpec& solver) {
-    Block b;
-    b.kind = Block::Kind::continuous;
-    Continuous& c = b.continuous;
-    c.name = "settle";
-    c.width = width;
-    c.augment = static_cast<int>(a.rows()) - width;
-    c.t0 = t0;
-    c.t1 = t1;
-    c.field.push_back(dense_block("f1", a, nullptr));
-    c.solver = solver;
-    return b;
+    std::vector<Block> field;
+    field.push_back(dense_block("f1", a, nullptr));
+    return test::continuous("settle", width, static_cast<int>(a.rows()) - width, t0, t1, std::move(field), solver);
 }
 
 Model scalar_model(double a, double t0, double t1, const SolverSpec& solver) {
-    Model m;
-    m.name = "scalar";
-    m.input_name = "x";
-    m.input_size = 1;
-    m.output_name = "y";
-    m.output_size = 1;
+    Model m = test::model("scalar", 1, 1);
     m.blocks.push_back(linear_continuous(Eigen::MatrixXd::Constant(1, 1, a), 1, t0, t1, solver));
     return m;
 }
@@ -291,12 +274,7 @@ TEST(TuneFixed, MatrixFieldWithAugmentAndLayersAround) {
     bh << 0.25, 3.0;  // the second output sits above 1: relative there
     const double t0 = 0.25, t1 = 1.75;
 
-    Model m;
-    m.name = "linear3";
-    m.input_name = "x";
-    m.input_size = 2;
-    m.output_name = "y";
-    m.output_size = 2;
+    Model m = test::model("linear3", 2, 2);
     m.blocks.push_back(dense_block("lift", wl, &bl));
     m.blocks.push_back(linear_continuous(a, 2, t0, t1, fixed("rk4", 6)));
     m.blocks.push_back(dense_block("head", wh, &bh));
@@ -369,17 +347,6 @@ TEST(TuneFixed, EachBlockIsTunedWithTheOthersAtTheirDeployedSolver) {
 
 // ---- adaptive --------------------------------------------------------------
 
-std::string capture(const std::string& cmd) {
-    std::string out;
-    FILE* p = popen(cmd.c_str(), "r");
-    if (!p) return out;
-    char buf[4096];
-    std::size_t n = 0;
-    while ((n = fread(buf, 1, sizeof buf, p)) > 0) out.append(buf, n);
-    pclose(p);
-    return out;
-}
-
 TEST(TuneAdaptive, MatchesSciPyRK45) {
     // SciPy 1.10 solve_ivp RK45 follows the same rules (DEVELOPERS.md): its nfev is
     // 2 + 6 * attempts, and its y(T) is what the tuner's candidate computes.
@@ -396,7 +363,8 @@ TEST(TuneAdaptive, MatchesSciPyRK45) {
               "        s = solve_ivp(lambda t, y: -2.0 * y, (0.0, 1.0), [y0], method='RK45', rtol=rtol, atol=rtol * 1e-2)\n"
               "        print(repr(rtol), s.nfev, repr(float(s.y[0, -1])))\n";
     }
-    const std::string out = capture(std::string(MEANDER_SCIPY_PYTHON) + " " + (dir / "rk45.py").string() + " 2>/dev/null");
+    const std::string out =
+        test::capture(std::string(MEANDER_SCIPY_PYTHON) + " " + (dir / "rk45.py").string() + " 2>/dev/null");
     fs::remove_all(dir);
     std::istringstream in(out);
     std::vector<double> rtols;
@@ -630,7 +598,7 @@ TEST(TuneSample, RecommendedLinePastesIntoTheDescription) {
         const std::string deployed = "solver " + std::string("dormand-prince, rtol 1e-3, atol 1e-4, max-steps 24");
         const std::size_t at = text.find(deployed);
         ASSERT_NE(at, std::string::npos);
-        text.replace(at, deployed.size(), b.solver_line);
+        text.replace(at, text.find('\n', at) - at, b.solver_line);  // the whole solver line
         Diagnostics d2;
         const Source edited(sample->src.path, text);
         auto model = parse_description(edited, d2);

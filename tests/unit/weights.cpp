@@ -16,22 +16,19 @@
 #include <random>
 #include <sstream>
 
+#include "test_support.hpp"
+
 namespace fs = std::filesystem;
 using namespace meander;
+using test::dense_block;
+using test::read_text;
 
 namespace {
 
 const fs::path data_dir = fs::path(MEANDER_SOURCE_DIR) / "tests" / "data" / "weights";
 
-std::string slurp(const fs::path& p) {
-    std::ifstream in(p, std::ios::binary);
-    std::ostringstream ss;
-    ss << in.rdbuf();
-    return ss.str();
-}
-
 const nlohmann::json& expected() {
-    static const nlohmann::json j = nlohmann::json::parse(slurp(data_dir / "expected.json"));
+    static const nlohmann::json j = nlohmann::json::parse(read_text(data_dir / "expected.json"));
     return j;
 }
 
@@ -79,17 +76,9 @@ TensorSet read_ok(const fs::path& p) {
     return set ? *set : TensorSet{};
 }
 
-fs::path scratch(const std::string& name) {
-    fs::path dir = fs::path(MEANDER_BINARY_DIR) / "test_weights" / name;
-    fs::remove_all(dir);
-    fs::create_directories(dir);
-    return dir;
-}
+fs::path scratch(const std::string& name) { return test::scratch_dir("test_weights", name); }
 
-void write(const fs::path& p, const std::string& text) {
-    std::ofstream out(p, std::ios::binary);
-    out << text;
-}
+void write(const fs::path& p, const std::string& bytes) { test::write_text(p, bytes); }
 
 // Every bit pattern identical, NaNs compared as NaNs (their payload is not kept).
 void expect_same_bits(const TensorSet& a, const TensorSet& b) {
@@ -276,12 +265,12 @@ TEST(WeightsBytes, FileAndFolder) {
     Diagnostics diags;
     auto file = weights_bytes((data_dir / "stored.npz").string(), diags);
     ASSERT_TRUE(file);
-    EXPECT_EQ(*file, slurp(data_dir / "stored.npz"));
+    EXPECT_EQ(*file, read_text(data_dir / "stored.npz"));
     auto folder = weights_bytes((data_dir / "folder").string(), diags);
     ASSERT_TRUE(folder);
     std::string want;
     for (const char* f : {"alpha.weight.npy", "mid.npy", "zeta.npy"}) {
-        std::string bytes = slurp(data_dir / "folder" / f);
+        std::string bytes = read_text(data_dir / "folder" / f);
         want += std::string(f) + "\n" + std::to_string(bytes.size()) + "\n" + bytes;
     }
     EXPECT_EQ(*folder, want);
@@ -305,22 +294,12 @@ const char* description =
     "output force[3]\n";
 
 Dense make_dense(const std::string& name, Loc loc, int in, int out, const std::string& prefix = "") {
-    Dense d;
-    d.name = name;
+    Dense d = test::dense_layer(name, in, out);
     d.loc = loc;
-    d.in = in;
-    d.out = out;
     std::string p = prefix.empty() ? name : prefix;
     d.weight_tensor = p + ".weight";
     d.bias_tensor = p + ".bias";
     return d;
-}
-
-Block dense_block(Dense d) {
-    Block b;
-    b.kind = Block::Kind::dense;
-    b.dense = std::move(d);
-    return b;
 }
 
 TEST(Bind, FillsMatricesThroughNestedBlocks) {
