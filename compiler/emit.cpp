@@ -12,6 +12,7 @@
 #include <set>
 
 #include "../runtime/integrate.hpp"
+#include "format.hpp"
 #include "lower.hpp"
 #include "selftest.hpp"
 #include "source.hpp"
@@ -114,9 +115,10 @@ void banner_blocks(std::string& o, const std::vector<Block>& blocks) {
             o += fmt::format("//   worst case: {} field evaluations\n", worst_field_evals(s));
         }
         if (c.trained) {
-            const Tableau* tt = find_tableau(c.trained->method);
-            o += fmt::format("//   trained with: {}{}\n", tt != nullptr ? tt->title : c.trained->method,
-                             c.trained->method == s.method ? "" : " (differs from the deployed method)");
+            // The whole training discretisation, so a review can see it is the deployed one.
+            const bool same = format_solver(*c.trained) == format_solver(s);
+            o += fmt::format("//   trained with: {}\n//     ({})\n", format_solver(*c.trained),
+                             same ? "the deployed solver" : "DIFFERS from the deployed solver");
         }
     }
 }
