@@ -5,20 +5,16 @@
 
 #include <cstdio>
 #include <filesystem>
-#include <iostream>
-#include <map>
 
-#include "compiler/check.hpp"
 #include "compiler/cost.hpp"
 #include "compiler/dump.hpp"
 #include "compiler/emit.hpp"
 #include "compiler/format.hpp"
+#include "compiler/load.hpp"
 #include "compiler/lower.hpp"
-#include "compiler/parse.hpp"
 #include "compiler/source.hpp"
 #include "compiler/tune.hpp"
 #include "compiler/verify.hpp"
-#include "compiler/weights.hpp"
 #include "runtime/evaluate.hpp"
 
 namespace fs = std::filesystem;
@@ -36,42 +32,7 @@ bool flush(const Diagnostics& diags) {
     return diags.ok();
 }
 
-struct Loaded {
-    Source source;
-    Model model;
-    std::string content_hash;
-};
-
-// The front of every command: parse, check, read and bind the weights.
-std::optional<Loaded> load_model(const std::string& path, Precision precision, Diagnostics& diags,
-                                 bool with_weights = true) {
-    auto src = load_source(path, diags);
-    if (!src) return std::nullopt;
-    auto model = parse_description(*src, diags);
-    if (!model || !diags.ok()) return std::nullopt;
-    CheckOptions copts;
-    copts.precision = precision;
-    if (!check_model(*model, *src, copts, diags)) return std::nullopt;
-    Loaded out{*src, std::move(*model), {}};
-    std::uint64_t hash = fnv1a64(out.source.text);
-    if (with_weights && out.model.weights_path.empty()) {
-        diags.error(out.source, out.model.loc, "the description names no weights: add a line 'weights \"FILE\"'");
-        return std::nullopt;
-    }
-    if (with_weights) {
-        fs::path wpath = fs::path(out.model.weights_path);
-        if (wpath.is_relative()) wpath = fs::path(path).parent_path() / wpath;
-        auto set = read_weights(wpath.lexically_normal().string(), diags);
-        if (!set) return std::nullopt;
-        if (!bind_weights(out.model, out.source, *set, diags)) return std::nullopt;
-        if (!check_weight_range(out.model, out.source, precision, diags)) return std::nullopt;
-        auto bytes = weights_bytes(wpath.lexically_normal().string(), diags);
-        if (!bytes) return std::nullopt;
-        hash = fnv1a64(*bytes, hash);
-    }
-    out.content_hash = fmt::format("fnv1a64:{:016x}", hash);
-    return out;
-}
+using Loaded = LoadedModel;
 
 Precision precision_of(const std::string& s) { return s == "float64" ? Precision::float64 : Precision::float32; }
 

@@ -5,6 +5,7 @@
 // expm(A T) y0 (Eigen's MatrixFunctions) or exp(a T) y0 for a scalar. The
 // adaptive sweep is checked against SciPy 1.10 solve_ivp RK45, and the
 // sample fan_balance against its own description.
+#include "compiler/load.hpp"
 #include "compiler/tune.hpp"
 
 #include <gtest/gtest.h>
@@ -530,15 +531,11 @@ struct Sample {
 // A sample's description, bound weights and inputs, as `meander tune` reads them.
 std::optional<Sample> load_sample(const std::string& name, Diagnostics& diags) {
     const fs::path dir = fs::path(MEANDER_SOURCE_DIR) / "samples" / name;
-    auto src = load_source((dir / (name + ".mnd")).string(), diags);
-    if (!src) return std::nullopt;
-    auto model = parse_description(*src, diags);
-    if (!model || !check_model(*model, *src, CheckOptions{}, diags)) return std::nullopt;
-    auto set = read_weights((dir / model->weights_path).string(), diags);
-    if (!set || !bind_weights(*model, *src, *set, diags)) return std::nullopt;
-    auto rows = read_csv_rows((dir / "inputs.csv").string(), model->input_size, diags);
+    auto loaded = load_model((dir / (name + ".mnd")).string(), Precision::float32, diags);
+    if (!loaded) return std::nullopt;
+    auto rows = read_csv_rows((dir / "inputs.csv").string(), loaded->model.input_size, diags);
     if (!rows) return std::nullopt;
-    return Sample{*src, *model, *rows};
+    return Sample{loaded->source, loaded->model, *rows};
 }
 
 TEST(TuneSample, FanBalanceListsItsDeployedSteps) {

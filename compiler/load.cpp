@@ -1,0 +1,46 @@
+#include "load.hpp"
+
+#include <fmt/format.h>
+
+#include <filesystem>
+
+#include "check.hpp"
+#include "parse.hpp"
+#include "weights.hpp"
+
+namespace meander {
+
+namespace fs = std::filesystem;
+
+std::optional<LoadedModel> load_model(const std::string& path, Precision precision, Diagnostics& diags,
+                                      bool with_weights) {
+    auto src = load_source(path, diags);
+    if (!src) return std::nullopt;
+    auto model = parse_description(*src, diags);
+    if (!model || !diags.ok()) return std::nullopt;
+    CheckOptions copts;
+    copts.precision = precision;
+    if (!check_model(*model, *src, copts, diags)) return std::nullopt;
+    LoadedModel out{std::move(*src), std::move(*model), {}};
+    std::uint64_t hash = fnv1a64(out.source.text);
+    if (with_weights) {
+        if (out.model.weights_path.empty()) {
+            diags.error(out.source, out.model.loc, "the description names no weights: add a line 'weights \"FILE\"'");
+            return std::nullopt;
+        }
+        fs::path wpath = fs::path(out.model.weights_path);
+        if (wpath.is_relative()) wpath = fs::path(path).parent_path() / wpath;
+        const std::string weights = wpath.lexically_normal().string();
+        auto set = read_weights(weights, diags);
+        if (!set) return std::nullopt;
+        if (!bind_weights(out.model, out.source, *set, diags)) return std::nullopt;
+        if (!check_weight_range(out.model, out.source, precision, diags)) return std::nullopt;
+        auto bytes = weights_bytes(weights, diags);
+        if (!bytes) return std::nullopt;
+        hash = fnv1a64(*bytes, hash);
+    }
+    out.content_hash = fmt::format("fnv1a64:{:016x}", hash);
+    return out;
+}
+
+}  // namespace meander

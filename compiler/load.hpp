@@ -1,0 +1,26 @@
+// Load: the front of every command, in a line: read the description, parse,
+// check, read the weights, bind them, and hash what went in.
+#pragma once
+
+#include <optional>
+#include <string>
+
+#include "../runtime/model.hpp"
+#include "source.hpp"
+
+namespace meander {
+
+struct LoadedModel {
+    Source source;
+    Model model;
+    std::string content_hash;       // "fnv1a64:<16 hex digits>" of description and weights bytes
+};
+
+// Weights are read from the model's `weights` path, relative to the
+// description's folder. `precision` is the one code will be emitted in (it sets
+// the rtol floor and the weight range checks). Without weights, only the
+// description is hashed and the matrices stay empty.
+std::optional<LoadedModel> load_model(const std::string& path, Precision precision, Diagnostics& diags,
+                                      bool with_weights = true);
+
+}  // namespace meander
