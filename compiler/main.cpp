@@ -7,6 +7,7 @@
 #include <filesystem>
 
 #include "compiler/cost.hpp"
+#include "compiler/diff.hpp"
 #include "compiler/dump.hpp"
 #include "compiler/emit.hpp"
 #include "compiler/format.hpp"
@@ -216,6 +217,21 @@ int cmd_tune(const std::string& model_path, const std::string& input, const std:
     return 0;
 }
 
+// Exit status as the diff tool's: 0 the same, 1 different (or an error).
+int cmd_diff(const std::string& a_path, const std::string& b_path, double tolerance, bool json) {
+    Diagnostics diags;
+    auto a = load_model(a_path, Precision::float32, diags);
+    auto b = load_model(b_path, Precision::float32, diags);
+    if (!a || !b) return flush(diags), kModelError;
+    DiffOptions o;
+    o.weight_tolerance = tolerance;
+    auto d = diff_models(a->model, b->model, o, diags);
+    flush(diags);
+    if (!d) return kModelError;
+    std::fputs((json ? render_diff_json(*d) : render_diff_text(*d)).c_str(), stdout);
+    return d->same() ? 0 : kModelError;
+}
+
 int cmd_format(const std::string& model_path, bool in_place, bool check_only) {
     Diagnostics diags;
     auto src = load_source(model_path, diags);
@@ -301,6 +317,15 @@ int main(int argc, char** argv) {
     tune->add_option("--precision", precision, "float32 (default) or float64")->check(CLI::IsMember(precisions));
     tune->add_flag("--json", json, "JSON for tools instead of text");
 
+    std::string other;
+    double weight_tol = 0.0;
+    auto* diff = app.add_subcommand("diff", "what changed between two models (exit 0 same, 1 different)");
+    diff->add_option("first", model, "description (.mnd) before")->required();
+    diff->add_option("second", other, "description (.mnd) after")->required();
+    diff->add_option("--tolerance", weight_tol, "weight changes at or below this count as unchanged (default 0)")
+        ->check(CLI::NonNegativeNumber);
+    diff->add_flag("--json", json, "JSON for tools instead of text");
+
     auto* format = app.add_subcommand("format", "print the description in canonical layout");
     format->add_option("model", model, "description (.mnd)")->required();
     format->add_flag("-i,--in-place", in_place, "rewrite the file");
@@ -320,6 +345,7 @@ int main(int argc, char** argv) {
         if (*verify) return cmd_verify(model, input, precision, tol, cxx, keep, show);
         if (*cost) return cmd_cost(model, input, precision, core, cycles_per_mac, json);
         if (*tune) return cmd_tune(model, input, precision, target, methods, sweep, json);
+        if (*diff) return cmd_diff(model, other, weight_tol, json);
         if (*format) return cmd_format(model, in_place, check_only);
     } catch (const std::exception& e) {
         // Every expected failure is a diagnostic; this is a last line against a crash.

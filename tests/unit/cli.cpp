@@ -180,3 +180,28 @@ TEST(Readme, TourExampleParses) {
     Outcome r = run("format " + f.string());
     EXPECT_EQ(r.status, 0) << r.output;
 }
+
+// diff exits like the diff tool: 0 for the same model, 1 when something changed.
+TEST(Diff, ExitStatusAndTheOneChange) {
+    const fs::path src = fs::path(MEANDER_SOURCE_DIR) / "samples" / "fan_balance";
+    const fs::path d = scratch("diff");
+    fs::copy_file(src / "fan_balance.npz", d / "fan_balance.npz");
+    std::string text = read_text(src / "fan_balance.mnd");
+    const std::string deployed = "solver rk4, steps 8\n";
+    ASSERT_NE(text.find(deployed), std::string::npos);
+    text.replace(text.find(deployed), deployed.size(), "solver rk4, steps 12\n");
+    meander::test::write_text(d / "fan_balance.mnd", text);
+
+    Outcome same = run("diff " + (src / "fan_balance.mnd").string() + " " + (src / "fan_balance.mnd").string());
+    EXPECT_EQ(same.status, 0) << same.output;
+    Outcome changed = run("diff " + (src / "fan_balance.mnd").string() + " " + (d / "fan_balance.mnd").string());
+    EXPECT_EQ(changed.status, 1) << changed.output;
+    // rk4 evaluates the field 4 times a step (HNW I, II.1): 8 -> 12 steps is 32 -> 48 evaluations.
+    EXPECT_NE(changed.output.find("32 -> 48 (+16), worst case"), std::string::npos) << changed.output;
+    Outcome json = run("diff --json " + (src / "fan_balance.mnd").string() + " " + (d / "fan_balance.mnd").string());
+    EXPECT_EQ(json.status, 1);
+    // The trained-with warning goes to standard error first; then the JSON object.
+    EXPECT_NE(json.output.find("warning: block 'settle' is deployed with rk4, steps 12 but was trained with rk4, steps 8"),
+              std::string::npos) << json.output;
+    EXPECT_NE(json.output.find("\n{\n"), std::string::npos) << json.output;
+}
