@@ -331,6 +331,13 @@ const char* result_name(result r) noexcept;
         o += fmt::format("// {}_WEIGHTS_ATTR to place them in a section of your own, e.g.\n", M_);
         o += fmt::format("//   -D'{}_WEIGHTS_ATTR=__attribute__((section(\".rodata.{}\")))'\n", M_, model_.name);
         o += fmt::format("#ifndef {}_WEIGHTS_ATTR\n#define {}_WEIGHTS_ATTR\n#endif\n\n", M_, M_);
+        // A zero-cost default; firmware defines it to read a cycle counter per block.
+        o += fmt::format("// Called around every top-level block of infer with the block's name (a string\n"
+                         "// literal) and phase 0 before, 1 after it (not after a block that fails). Define\n"
+                         "// it to measure each block on the target, e.g. with the DWT cycle counter of a\n"
+                         "// Cortex-M3/M4/M7: -D'{0}_BLOCK_HOOK(name, phase)=my_cycle_mark(name, phase)'\n"
+                         "#ifndef {0}_BLOCK_HOOK\n#define {0}_BLOCK_HOOK(name, phase) static_cast<void>(0)\n#endif\n\n",
+                         M_);
         o += fmt::format("namespace {} {{\n\nnamespace {{\n\n", model_.name);
         o += weights();
         o += activations();
@@ -540,6 +547,10 @@ const char* result_name(result r) noexcept;
             const std::string src = slot_ptr(op.src, in, out);
             const std::string dst = slot_ptr(op.dst, in, out);
             const Block& b = *op.block;
+            const std::string& name = b.kind == Block::Kind::dense        ? b.dense.name
+                                      : b.kind == Block::Kind::residual ? b.residual.name
+                                                                        : b.continuous.name;
+            if (top) o += fmt::format("{}{}_BLOCK_HOOK(\"{}\", 0);\n", pad, M(), name);
             switch (b.kind) {
             case Block::Kind::dense:
                 o += fmt::format("{}dense_{}({}, {}{});\n", pad, b.dense.name, src, b.dense.time_input ? "t, " : "",
@@ -556,6 +567,7 @@ const char* result_name(result r) noexcept;
                                  pad, b.continuous.name, src, dst);
                 break;
             }
+            if (top) o += fmt::format("{}{}_BLOCK_HOOK(\"{}\", 1);\n", pad, M(), name);
             if (top && b.kind != Block::Kind::continuous)
                 o += fmt::format("{}if (!all_finite({}, {})) return result::state_not_finite;\n", pad, dst,
                                  op.out_width);

@@ -713,5 +713,44 @@ TEST(Emit, MismatchedHeaderIsRefused) {
     fs::remove_all(dir);
 }
 
+// The block hook is called around every top-level block, in description order,
+// and the model still agrees with the evaluator when it is defined.
+TEST(Emit, BlockHookSeesEveryTopLevelBlockInOrder) {
+    const Model m = ode_model("hooked", fixed_solver("rk4", 4), 52);
+    const fs::path dir = temp_dir("hook");
+    write_files(dir, emit_model(m, EmitOptions{}));
+    write_text(dir / "use.cpp", R"(#include <cstdio>
+void mark(const char* name, int phase) { std::printf("%s:%d ", name, phase); }
+#include "hooked.hpp"
+int main() {
+    static hooked::context ctx;
+    const float in[3] = {0.25f, -0.5f, 1.0f};
+    float out[2] = {0.0f, 0.0f};
+    const hooked::result r = hooked::infer(ctx, in, out);
+    std::printf("| %d %a %a\n", static_cast<int>(r), static_cast<double>(out[0]), static_cast<double>(out[1]));
+    return 0;
+}
+)");
+    write_text(dir / "hook.hpp", "void mark(const char* name, int phase);\n");
+    const std::string err =
+        build(dir, {"use.cpp", "hooked.cpp"}, "hook", "-include hook.hpp -D'HOOKED_BLOCK_HOOK(n, p)=mark(n, p)'");
+    ASSERT_TRUE(err.empty()) << err;
+    const RunResult r = run((dir / "hook").string());
+    ASSERT_EQ(r.status, 0) << r.output;
+    const std::size_t bar = r.output.find("| ");
+    ASSERT_NE(bar, std::string::npos) << r.output;
+    // ode_model's blocks: lift, settle, head (emit_support.hpp).
+    EXPECT_EQ(r.output.substr(0, bar), "lift:0 lift:1 settle:0 settle:1 head:0 head:1 ");
+    std::istringstream in(r.output.substr(bar + 2));
+    int code = -1;
+    std::string a, b;
+    in >> code >> a >> b;
+    EXPECT_EQ(code, 0);
+    const EvalResult ref = evaluate(m, Eigen::Vector3d(0.25, -0.5, 1.0));
+    expect_close({std::strtod(a.c_str(), nullptr), std::strtod(b.c_str(), nullptr)}, ref.output, 1e-4, "hooked");
+    fs::remove_all(dir);
+}
+
 }  // namespace
 }  // namespace meander::test
+
