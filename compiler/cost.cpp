@@ -860,8 +860,10 @@ std::string render_cost_text(const CostReport& r) {
             c.push_back({std::string(core_name(cc.core)), "-", "-", "no figure", ""});
             continue;
         }
+        // No sourced figure: say so instead of a 0 that reads as "free".
         c.push_back({std::string(core_name(cc.core)), format_double(cc.cycles_per_mac),
-                     format_double(cc.cycles_per_activation), cycles_text(cc.worst),
+                     cc.cycles_per_activation > 0 ? format_double(cc.cycles_per_activation) : "not counted",
+                     cycles_text(cc.worst),
                      cc.median ? cycles_text(*cc.median) : ""});
     }
     t += table(c, 1);

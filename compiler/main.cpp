@@ -3,6 +3,7 @@
 #include <CLI/CLI.hpp>
 #include <fmt/format.h>
 
+#include <cmath>
 #include <cstdio>
 #include <filesystem>
 
@@ -17,6 +18,7 @@
 #include "compiler/tune.hpp"
 #include "compiler/verify.hpp"
 #include "runtime/evaluate.hpp"
+#include "runtime/tableau.hpp"
 
 namespace fs = std::filesystem;
 using namespace meander;
@@ -25,6 +27,34 @@ namespace {
 
 constexpr int kModelError = 1;
 constexpr int kUsageError = 2;
+constexpr int kDiffTrouble = 2;
+
+// A finite number above zero (CLI11's own check lets NaN through and prints its
+// range with 300 digits).
+const CLI::Validator kFinitePositive(
+    [](std::string& text) -> std::string {
+        double v = 0;
+        try {
+            v = std::stod(text);
+        } catch (const std::exception&) {
+            return "expected a number, not '" + text + "'";
+        }
+        if (!std::isfinite(v) || v <= 0) return "expected a finite number above 0, not " + text;
+        return {};
+    },
+    "NUMBER > 0");
+const CLI::Validator kFiniteNonNegative(
+    [](std::string& text) -> std::string {
+        double v = 0;
+        try {
+            v = std::stod(text);
+        } catch (const std::exception&) {
+            return "expected a number, not '" + text + "'";
+        }
+        if (!std::isfinite(v) || v < 0) return "expected a finite number at or above 0, not " + text;
+        return {};
+    },
+    "NUMBER >= 0");
 
 // Prints what was collected; returns true when there were no errors.
 bool flush(const Diagnostics& diags) {
@@ -43,11 +73,12 @@ struct LoadedWithRows {
     std::vector<std::vector<double>> rows;
 };
 
+// `float32_inputs`: the rows feed emitted float32 code, so they must fit a float.
 std::optional<LoadedWithRows> load_with_rows(const std::string& path, Precision p, const std::string& input,
-                                             Diagnostics& diags) {
+                                             Diagnostics& diags, bool float32_inputs = false) {
     auto loaded = load_model(path, p, diags);
     if (!loaded) return std::nullopt;
-    auto rows = read_csv_rows(input, loaded->model.input_size, diags);
+    auto rows = read_csv_rows(input, loaded->model.input_size, diags, float32_inputs);
     if (!rows) return std::nullopt;
     return LoadedWithRows{std::move(*loaded), std::move(*rows)};
 }
@@ -124,7 +155,7 @@ int cmd_compile(const std::string& model_path, const std::string& outdir, const 
     if (!loaded) return flush(diags), kModelError;
     EmitOptions opts = emit_options(*loaded, p, c_api);
     if (!self_test.empty()) {
-        auto rows = read_csv_rows(self_test, loaded->model.input_size, diags);
+        auto rows = read_csv_rows(self_test, loaded->model.input_size, diags, p == Precision::float32);
         if (!rows) return flush(diags), kModelError;
         int row = 0;
         for (const auto& in : to_vectors(*rows)) {
@@ -151,8 +182,18 @@ int cmd_compile(const std::string& model_path, const std::string& outdir, const 
         diags.error(outdir, fmt::format("cannot create folder: {}", ec.message()));
         return flush(diags), kModelError;
     }
-    for (const auto& f : files)
-        if (!write_file_atomic((fs::path(outdir) / f.name).string(), f.text, diags)) return flush(diags), kModelError;
+    std::vector<std::pair<std::string, std::string>> out;
+    for (const auto& f : files) out.emplace_back((fs::path(outdir) / f.name).string(), f.text);
+    if (!write_files_atomic(out, diags)) return flush(diags), kModelError;
+    if (self_test.empty()) {
+        // A self-test left by an earlier compile would test other code and still build.
+        for (const char* suffix : {"_selftest.hpp", "_selftest.cpp"}) {
+            const fs::path stale = fs::path(outdir) / (loaded->model.name + suffix);
+            if (fs::exists(stale, ec) && fs::remove(stale, ec))
+                diags.warning(stale.string(), "removed: a self-test from an earlier compile, whose golden vectors "
+                                              "belong to other code (compile with --self-test to make a new one)");
+        }
+    }
     flush(diags);
     return 0;
 }
@@ -161,7 +202,7 @@ int cmd_verify(const std::string& model_path, const std::string& input, const st
                const std::string& cxx, const std::string& keep, bool show) {
     Diagnostics diags;
     Precision p = precision_of(precision);
-    auto in = load_with_rows(model_path, p, input, diags);
+    auto in = load_with_rows(model_path, p, input, diags, p == Precision::float32);
     if (!in) return flush(diags), kModelError;
     VerifyOptions vo;
     vo.tolerance = tol;
@@ -217,17 +258,18 @@ int cmd_tune(const std::string& model_path, const std::string& input, const std:
     return 0;
 }
 
-// Exit status as the diff tool's: 0 the same, 1 different (or an error).
+// Exit status as the diff tool's: 0 the same, 1 different, 2 trouble (a model
+// that does not load), so that scripts can tell a change from a failure.
 int cmd_diff(const std::string& a_path, const std::string& b_path, double tolerance, bool json) {
     Diagnostics diags;
     auto a = load_model(a_path, Precision::float32, diags);
     auto b = load_model(b_path, Precision::float32, diags);
-    if (!a || !b) return flush(diags), kModelError;
+    if (!a || !b) return flush(diags), kDiffTrouble;
     DiffOptions o;
     o.weight_tolerance = tolerance;
     auto d = diff_models(a->model, b->model, o, diags);
     flush(diags);
-    if (!d) return kModelError;
+    if (!d) return kDiffTrouble;
     std::fputs((json ? render_diff_json(*d) : render_diff_text(*d)).c_str(), stdout);
     return d->same() ? 0 : kModelError;
 }
@@ -288,7 +330,7 @@ int main(int argc, char** argv) {
     verify->add_option("--input", input, "CSV of input rows")->required();
     verify->add_option("--precision", precision, "float32 (default) or float64")->check(CLI::IsMember(precisions));
     verify->add_option("--tolerance", tol, "fail when |emitted - eval| > tolerance * max(1, |eval|)")
-        ->check(CLI::PositiveNumber);
+        ->check(kFinitePositive);
     verify->add_option("--cxx", cxx, "host C++ compiler (default: $CXX, else c++)");
     verify->add_option("--keep", keep, "build in this folder and keep the files");
     verify->add_flag("--show", show, "print every output beside eval's");
@@ -300,7 +342,7 @@ int main(int argc, char** argv) {
     cost->add_option("--core", core, "core class for the cycle estimate")
         ->check(CLI::IsMember({"cortex-m0", "cortex-m3", "cortex-m4f", "cortex-m7"}));
     cost->add_option("--cycles-per-mac", cycles_per_mac, "override the core's cycles per multiply-accumulate")
-        ->check(CLI::PositiveNumber);
+        ->check(kFinitePositive);
     cost->add_flag("--json", json, "JSON for tools instead of text");
 
     double target = 1e-4;
@@ -310,10 +352,13 @@ int main(int argc, char** argv) {
     tune->add_option("model", model, "description (.mnd)")->required();
     tune->add_option("--input", input, "CSV of representative input rows")->required();
     tune->add_option("--target", target, "largest allowed |out - ref| / max(1, |ref|) (default 1e-4)")
-        ->check(CLI::PositiveNumber);
-    tune->add_option("--method", methods, "sweep this method (repeatable; default: the block's own)");
+        ->check(kFinitePositive);
+    std::vector<std::string> method_keys;
+    for (const auto& t : tableaux()) method_keys.emplace_back(t.key);
+    tune->add_option("--method", methods, "sweep this method (repeatable; default: the block's own)")
+        ->check(CLI::IsMember(method_keys));
     tune->add_option("--max-steps-sweep", sweep, "largest fixed step count tried (default 256)")
-        ->check(CLI::PositiveNumber);
+        ->check(kFinitePositive);
     tune->add_option("--precision", precision, "float32 (default) or float64")->check(CLI::IsMember(precisions));
     tune->add_flag("--json", json, "JSON for tools instead of text");
 
@@ -323,7 +368,7 @@ int main(int argc, char** argv) {
     diff->add_option("first", model, "description (.mnd) before")->required();
     diff->add_option("second", other, "description (.mnd) after")->required();
     diff->add_option("--tolerance", weight_tol, "weight changes at or below this count as unchanged (default 0)")
-        ->check(CLI::NonNegativeNumber);
+        ->check(kFiniteNonNegative);
     diff->add_flag("--json", json, "JSON for tools instead of text");
 
     auto* format = app.add_subcommand("format", "print the description in canonical layout");

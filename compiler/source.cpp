@@ -3,10 +3,12 @@
 #include <fmt/format.h>
 
 #include <cerrno>
+#include <cmath>
 #include <cstdio>
 #include <cstring>
 #include <filesystem>
 #include <fstream>
+#include <limits>
 #include <sstream>
 #include <system_error>
 
@@ -76,7 +78,9 @@ std::string Diagnostics::render(const Diagnostic& d) {
     }
     out += fmt::format("{}: {}\n", sev, d.message);
     if (d.loc.line > 0) {
-        out += d.line_text;
+        // Control characters (a NUL, say) would cut or garble the terminal
+        // line; one '?' each keeps the caret in its column.
+        for (char c : d.line_text) out += (static_cast<unsigned char>(c) < 0x20 && c != '\t') || c == 0x7f ? '?' : c;
         out += '\n';
         // Keep tabs so the caret lines up in any tab width.
         std::string pad;
@@ -122,33 +126,90 @@ std::optional<Source> load_source(const std::string& path, Diagnostics& diags) {
     return Source(path, std::move(*text));
 }
 
-bool write_file_atomic(const std::string& path, std::string_view content, Diagnostics& diags) {
+namespace {
+
+// Where a write to `path` must land: the target of a symbolic link, so that
+// rewriting a linked file leaves the link in place.
+std::filesystem::path write_target(const std::string& path) {
     namespace fs = std::filesystem;
+    std::error_code ec;
     fs::path target(path);
+    if (fs::is_symlink(fs::symlink_status(target, ec))) {
+        fs::path resolved = fs::canonical(target, ec);
+        if (!ec) return resolved;
+    }
+    return target;
+}
+
+// Writes `content` to a temporary file beside `target`, with the permissions
+// of the file it will replace; returns the temporary's path, or empty.
+std::filesystem::path write_temporary(const std::filesystem::path& target, std::string_view content,
+                                      const std::string& shown, Diagnostics& diags) {
+    namespace fs = std::filesystem;
     fs::path tmp = target;
     tmp += ".meander-tmp";
     {
         std::ofstream out(tmp, std::ios::binary | std::ios::trunc);
         if (!out) {
-            diags.error(path, fmt::format("cannot write file: {}", std::strerror(errno)));
-            return false;
+            diags.error(shown, fmt::format("cannot write file: {}", std::strerror(errno)));
+            return {};
         }
         out.write(content.data(), static_cast<std::streamsize>(content.size()));
         out.flush();
         if (!out) {
+            const int err = errno;
             out.close();
             std::error_code ec;
             fs::remove(tmp, ec);
-            diags.error(path, "cannot write file: write failed");
-            return false;
+            diags.error(shown, fmt::format("cannot write file: {}", err ? std::strerror(err) : "write failed"));
+            return {};
         }
     }
     std::error_code ec;
-    fs::rename(tmp, target, ec);
-    if (ec) {
-        fs::remove(tmp, ec);
-        diags.error(path, fmt::format("cannot write file: {}", ec.message()));
-        return false;
+    const fs::file_status old = fs::status(target, ec);
+    if (!ec && fs::exists(old)) fs::permissions(tmp, old.permissions(), fs::perm_options::replace, ec);
+    return tmp;
+}
+
+}  // namespace
+
+bool write_file_atomic(const std::string& path, std::string_view content, Diagnostics& diags) {
+    return write_files_atomic({{path, std::string(content)}}, diags);
+}
+
+bool write_files_atomic(const std::vector<std::pair<std::string, std::string>>& files, Diagnostics& diags) {
+    namespace fs = std::filesystem;
+    // Every file goes to a temporary first; only when all are written are they
+    // renamed, so a failure leaves every existing file as it was.
+    std::vector<std::pair<fs::path, fs::path>> done;  // temporary, target
+    auto discard = [&done]() {
+        std::error_code ec;
+        for (const auto& d : done) fs::remove(d.first, ec);
+    };
+    for (const auto& [path, content] : files) {
+        const fs::path target = write_target(path);
+        std::error_code ec;
+        if (fs::is_directory(target, ec)) {
+            diags.error(path, "cannot write file: it is a directory");
+            discard();
+            return false;
+        }
+        fs::path tmp = write_temporary(target, content, path, diags);
+        if (tmp.empty()) {
+            discard();
+            return false;
+        }
+        done.emplace_back(tmp, target);
+    }
+    for (std::size_t i = 0; i < done.size(); ++i) {
+        std::error_code ec;
+        fs::rename(done[i].first, done[i].second, ec);
+        if (ec) {
+            diags.error(files[i].first, fmt::format("cannot write file: {}", ec.message()));
+            std::error_code ignore;
+            for (std::size_t j = i; j < done.size(); ++j) fs::remove(done[j].first, ignore);
+            return false;
+        }
     }
     return true;
 }
@@ -187,7 +248,8 @@ bool parse_number(std::string_view field, double& out) {
 
 }  // namespace
 
-std::optional<std::vector<std::vector<double>>> read_csv_rows(const std::string& path, int width, Diagnostics& diags) {
+std::optional<std::vector<std::vector<double>>> read_csv_rows(const std::string& path, int width, Diagnostics& diags,
+                                                              bool float32_range) {
     auto text = read_file(path, diags);
     if (!text) return std::nullopt;
     Source src(path, *text);
@@ -215,7 +277,13 @@ std::optional<std::vector<std::vector<double>>> read_csv_rows(const std::string&
             if (comma == std::string_view::npos) break;
             pos = comma + 1;
         }
-        if (bad && first_content) {  // a header line of names
+        bool any_number = false;
+        for (std::size_t i = 0; i < row.size() && !any_number; ++i) {
+            std::size_t end = i + 1 < starts.size() ? starts[i + 1] - 1 : line.size();
+            double ignored = 0;
+            any_number = parse_number(line.substr(starts[i], end - starts[i]), ignored);
+        }
+        if (bad && first_content && !any_number) {  // a header line of names (a row with a typo is no header)
             first_content = false;
             if (static_cast<int>(row.size()) != width)
                 diags.error(src, Loc{static_cast<int>(li), 1},
@@ -229,8 +297,20 @@ std::optional<std::vector<std::vector<double>>> read_csv_rows(const std::string&
         }
         if (static_cast<int>(row.size()) != width) {
             diags.error(src, Loc{static_cast<int>(li), 1},
-                        fmt::format("row has {} values, expected {}", row.size(), width));
+                        fmt::format("row has {} value{}, expected {}", row.size(), row.size() == 1 ? "" : "s", width));
             continue;
+        }
+        if (float32_range) {
+            bool fits = true;
+            for (std::size_t i = 0; i < row.size() && fits; ++i)
+                if (std::fabs(row[i]) > static_cast<double>(std::numeric_limits<float>::max())) {
+                    diags.error(src, Loc{static_cast<int>(li), static_cast<int>(starts[i] + 1)},
+                                fmt::format("{} is beyond the float32 range (largest {}): the emitted float32 code "
+                                            "would see an infinite input",
+                                            format_double(row[i]), format_float(std::numeric_limits<float>::max())));
+                    fits = false;
+                }
+            if (!fits) continue;
         }
         rows.push_back(std::move(row));
     }

@@ -5,6 +5,7 @@
 #include <optional>
 #include <string>
 #include <string_view>
+#include <utility>
 #include <vector>
 
 #include "../runtime/model.hpp"
@@ -64,7 +65,12 @@ std::optional<Source> load_source(const std::string& path, Diagnostics& diags);
 
 // Writes `content` to a temporary file beside `path`, then renames it over
 // `path`: either the whole new file is there or the old one is untouched.
+// A symbolic link is written through (the link stays); the replaced file's
+// permissions are kept.
 bool write_file_atomic(const std::string& path, std::string_view content, Diagnostics& diags);
+// Several files (path, content) as one: all are written to temporaries, then
+// renamed; when any write fails, none of the files is touched.
+bool write_files_atomic(const std::vector<std::pair<std::string, std::string>>& files, Diagnostics& diags);
 
 // 64-bit FNV-1a, for the content hash in emitted banners.
 std::uint64_t fnv1a64(std::string_view bytes, std::uint64_t seed = 0xcbf29ce484222325ULL);
@@ -72,7 +78,10 @@ std::uint64_t fnv1a64(std::string_view bytes, std::uint64_t seed = 0xcbf29ce4842
 // Rows of numbers from a CSV file (comma separated, optional header line of
 // names, blank lines and '#' comment lines skipped). Every row must have
 // `width` values; errors are reported as path:line:col.
-std::optional<std::vector<std::vector<double>>> read_csv_rows(const std::string& path, int width, Diagnostics& diags);
+// With `float32_range`, a value beyond the largest float (it would become
+// infinite in emitted float32 code) is an error too.
+std::optional<std::vector<std::vector<double>>> read_csv_rows(const std::string& path, int width, Diagnostics& diags,
+                                                              bool float32_range = false);
 
 // Shortest text that reads back to the same double / float (fmt, locale-free).
 std::string format_double(double v);

@@ -172,11 +172,14 @@ std::optional<VerifyReport> verify_model(const Model& model, const EmitOptions& 
             ++rep.counter_mismatches;
         rep.emitted.emplace_back();
         rep.reference.emplace_back();
+        rep.reference_status.emplace_back(eval_status_name(ref.status));
+        rep.emitted_status.emplace_back(status <= 4 ? eval_status_name(static_cast<EvalStatus>(status)) : "unknown");
         if (status != status_code(ref.status)) {
             ++rep.status_mismatches;
             continue;
         }
         if (ref.status != EvalStatus::ok) continue;
+        ++rep.compared_rows;
         for (int c = 0; c < model.output_size; ++c) {
             std::string tok;
             fields >> tok;
@@ -203,7 +206,11 @@ std::optional<VerifyReport> verify_model(const Model& model, const EmitOptions& 
 
 std::string render_verify(const VerifyReport& r, Precision p) {
     std::string s;
-    s += fmt::format("rows                 {}\n", r.rows);
+    const int both_failed = r.rows - r.compared_rows - r.status_mismatches;
+    s += fmt::format("rows                 {}", r.rows);
+    if (r.compared_rows != r.rows) s += fmt::format(" ({} compared, {} with the same result other than ok in both)",
+                                                    r.compared_rows, both_failed);
+    s += "\n";
     s += fmt::format("outputs per row      {}\n", r.outputs);
     s += fmt::format("precision            {}\n", p == Precision::float32 ? "float32" : "float64");
     s += fmt::format("largest abs. error   {:.3g} (row {}, output {})\n", r.max_abs, r.max_abs_row + 1, r.max_abs_col);
@@ -216,6 +223,8 @@ std::string render_verify(const VerifyReport& r, Precision p) {
         s += fmt::format("counters             {} rows took other steps than eval{}\n", r.counter_mismatches,
                          r.counters_must_match ? "" : " (float rounding can change an accept/reject decision)");
     if (r.status_mismatches) s += fmt::format("result codes         {} rows differ from eval\n", r.status_mismatches);
+    if (r.compared_rows == 0)
+        return s + "verdict              NOTHING COMPARED: no row returned ok in both the emitted code and eval\n";
     s += fmt::format("verdict              {}\n", r.passed() ? "agrees" : fmt::format("DISAGREES ({} outputs beyond tolerance, {} result codes, {} counters)", r.failures,
                                                               r.status_mismatches, r.counters_must_match ? r.counter_mismatches : 0));
     return s;
@@ -225,7 +234,11 @@ std::string render_verify_rows(const VerifyReport& r) {
     std::string s = fmt::format("{:>4}  {:>16}  {:>16}  {:>10}\n", "row", "emitted", "eval", "abs. error");
     for (std::size_t i = 0; i < r.emitted.size(); ++i) {
         if (r.emitted[i].empty()) {
-            s += fmt::format("{:>4}  result code differs from eval\n", i + 1);
+            if (r.emitted_status[i] == r.reference_status[i])
+                s += fmt::format("{:>4}  both returned {}: nothing to compare\n", i + 1, r.emitted_status[i]);
+            else
+                s += fmt::format("{:>4}  emitted code returned {}, eval {}\n", i + 1, r.emitted_status[i],
+                                 r.reference_status[i]);
             continue;
         }
         for (std::size_t c = 0; c < r.emitted[i].size(); ++c)

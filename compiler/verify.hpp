@@ -38,9 +38,13 @@ struct VerifyReport {
     bool counters_must_match = false;  // float64: the same arithmetic must take the same steps
     long field_evals = 0, steps_taken = 0, steps_rejected = 0;  // emitted code, summed over rows
     long eval_field_evals = 0;      // reference evaluator, summed over rows
-    std::vector<std::vector<double>> emitted, reference;  // per row (empty rows where a result code differs)
+    std::vector<std::vector<double>> emitted, reference;  // per row (empty where a row returned no result)
+    std::vector<std::string> emitted_status, reference_status;  // per row: result names ("ok", "step_limit", ...)
+    int compared_rows = 0;          // rows where both returned ok and every output was compared
+    // Agreement needs something to agree on: at least one row compared.
     bool passed() const {
-        return failures == 0 && status_mismatches == 0 && (!counters_must_match || counter_mismatches == 0);
+        return compared_rows > 0 && failures == 0 && status_mismatches == 0 &&
+               (!counters_must_match || counter_mismatches == 0);
     }
 };
 

@@ -205,3 +205,76 @@ TEST(Diff, ExitStatusAndTheOneChange) {
               std::string::npos) << json.output;
     EXPECT_NE(json.output.find("\n{\n"), std::string::npos) << json.output;
 }
+
+// A copy of a sample folder with its description edited by `edit`.
+fs::path edited_sample(const std::string& name, const std::string& from, const std::string& to, const std::string& tag) {
+    const fs::path src = fs::path(MEANDER_SOURCE_DIR) / "samples" / name;
+    const fs::path d = scratch(tag);
+    for (const auto& f : fs::directory_iterator(src))
+        if (f.is_regular_file()) fs::copy_file(f.path(), d / f.path().filename());
+    std::string text = read_text(src / (name + ".mnd"));
+    for (std::size_t at = text.find(from); at != std::string::npos; at = text.find(from, at + to.size()))
+        text.replace(at, from.size(), to);
+    meander::test::write_text(d / (name + ".mnd"), text);
+    return d / (name + ".mnd");
+}
+
+TEST(Verify, NothingComparedIsNoAgreement) {
+    // One attempted step cannot cover soil_probe's interval with first-step 0.1.
+    const fs::path mnd = edited_sample("soil_probe", "max-steps 40", "max-steps 1", "verify-none");
+    Outcome r = run("verify " + mnd.string() + " --show --input " + (mnd.parent_path() / "inputs.csv").string());
+    EXPECT_EQ(r.status, 1) << r.output;
+    EXPECT_NE(r.output.find("   1  both returned step_limit: nothing to compare"), std::string::npos) << r.output;
+    EXPECT_NE(r.output.find("verdict              NOTHING COMPARED"), std::string::npos) << r.output;
+}
+
+TEST(Verify, InputsBeyondFloat32AreRefusedWithTheirPosition) {
+    const fs::path d = scratch("verify-range");
+    meander::test::write_text(d / "in.csv", "a,b,c,d,e,f,g,h\n1,2,3,4,5,6,7,8\n1,2,1e39,4,5,6,7,8\n");
+    Outcome r = run("verify " + (fs::path(MEANDER_SOURCE_DIR) / "samples/fan_balance/fan_balance.mnd").string() +
+                    " --input " + (d / "in.csv").string());
+    EXPECT_EQ(r.status, 1);
+    EXPECT_EQ(r.output, (d / "in.csv").string() +
+                            ":3:5: error: 1e+39 is beyond the float32 range (largest 3.4028235e+38): the emitted "
+                            "float32 code would see an infinite input\n1,2,1e39,4,5,6,7,8\n    ^\n");
+}
+
+TEST(Outputs, CompileWritesAllFilesOrNone) {
+    const fs::path mnd = fs::path(MEANDER_SOURCE_DIR) / "samples/fan_balance/fan_balance.mnd";
+    const fs::path d = scratch("all-or-none");
+    fs::create_directories(d / "fan_balance.cpp");  // the source cannot be written
+    meander::test::write_text(d / "fan_balance.hpp", "previous\n");
+    Outcome r = run("compile " + mnd.string() + " -o " + d.string());
+    EXPECT_EQ(r.status, 1) << r.output;
+    EXPECT_EQ(read_text(d / "fan_balance.hpp"), "previous\n");  // the header that would pair with it is not written
+}
+
+TEST(Outputs, AStaleSelfTestIsRemoved) {
+    const fs::path dir = fs::path(MEANDER_SOURCE_DIR) / "samples/fan_balance";
+    const fs::path d = scratch("stale-selftest");
+    Outcome a = run("compile " + (dir / "fan_balance.mnd").string() + " -o " + d.string() + " --self-test " +
+                    (dir / "inputs.csv").string());
+    ASSERT_EQ(a.status, 0) << a.output;
+    ASSERT_TRUE(fs::exists(d / "fan_balance_selftest.cpp"));
+    Outcome b = run("compile " + (dir / "fan_balance.mnd").string() + " -o " + d.string());
+    EXPECT_EQ(b.status, 0) << b.output;
+    EXPECT_FALSE(fs::exists(d / "fan_balance_selftest.cpp"));
+    EXPECT_FALSE(fs::exists(d / "fan_balance_selftest.hpp"));
+    EXPECT_NE(b.output.find("warning: removed: a self-test from an earlier compile"), std::string::npos) << b.output;
+}
+
+TEST(Diff, AModelThatDoesNotLoadIsTroubleNotADifference) {
+    // As the diff tool: 0 same, 1 different, 2 trouble.
+    Outcome r = run("diff " + (fs::path(MEANDER_SOURCE_DIR) / "samples/fan_balance/fan_balance.mnd").string() +
+                    " /nonexistent/other.mnd");
+    EXPECT_EQ(r.status, 2) << r.output;
+}
+
+TEST(ExitCodes, NotANumberIsAUsageError) {
+    const std::string s = fs::path(MEANDER_SOURCE_DIR / fs::path("samples/fan_balance")).string();
+    Outcome r = run("verify " + s + "/fan_balance.mnd --input " + s + "/inputs.csv --tolerance nan");
+    EXPECT_EQ(r.status, 2) << r.output;
+    EXPECT_NE(r.output.find("--tolerance: expected a finite number above 0, not nan"), std::string::npos) << r.output;
+    Outcome m = run("tune " + s + "/fan_balance.mnd --input " + s + "/inputs.csv --method rk5");
+    EXPECT_EQ(m.status, 2) << m.output;
+}

@@ -57,7 +57,7 @@ TEST(Csv, BadValueHasPosition) {
     EXPECT_FALSE(read_csv_rows(p.string(), 2, d));
     std::string file = p.string();
     EXPECT_EQ(d.render(), file + ":2:3: error: expected a number\n3,x4\n  ^\n" + file +
-                              ":3:1: error: row has 1 values, expected 2\n5\n^\n");
+                              ":3:1: error: row has 1 value, expected 2\n5\n^\n");
     fs::remove(p);
 }
 
@@ -93,4 +93,57 @@ TEST(Numbers, ShortestRoundTrip) {
     EXPECT_EQ(format_float(0.1f), "0.1");
     EXPECT_EQ(std::stod(format_double(1.0 / 3.0)), 1.0 / 3.0);
     EXPECT_EQ(std::stof(format_float(1.0f / 3.0f)), 1.0f / 3.0f);
+}
+
+TEST(Csv, AFirstRowWithATypoIsNoHeader) {
+    // A header holds names only; "0.1,O.2" (a letter O) is a mistyped data row.
+    fs::path p = fs::temp_directory_path() / "meander-source-typo.csv";
+    std::ofstream(p) << "0.1,O.2\n1,2\n";
+    Diagnostics d;
+    EXPECT_FALSE(read_csv_rows(p.string(), 2, d));
+    EXPECT_EQ(d.render(), p.string() + ":1:5: error: expected a number\n0.1,O.2\n    ^\n");
+    fs::remove(p);
+}
+
+TEST(Diagnostics, ControlCharactersInTheLineAreShownAsQuestionMarks) {
+    Source s("m.mnd", std::string("dense a\0b: 2\n", 14));
+    Diagnostics d;
+    d.error(s, Loc{1, 10}, "bad");
+    EXPECT_EQ(d.render(), "m.mnd:1:10: error: bad\ndense a?b: 2\n         ^\n");
+}
+
+TEST(AtomicWrite, SeveralFilesAllOrNothing) {
+    fs::path dir = fs::temp_directory_path() / "meander-atomic-many";
+    fs::remove_all(dir);
+    fs::create_directories(dir / "b.cpp");  // a folder where the second file should go
+    std::ofstream(dir / "a.hpp") << "old";
+    Diagnostics d;
+    EXPECT_FALSE(write_files_atomic({{(dir / "a.hpp").string(), "new"}, {(dir / "b.cpp").string(), "x"}}, d));
+    EXPECT_EQ(d.render(), (dir / "b.cpp").string() + ": error: cannot write file: it is a directory\n");
+    std::ifstream in(dir / "a.hpp");
+    std::string text;
+    std::getline(in, text);
+    EXPECT_EQ(text, "old");  // untouched: nothing is renamed before every file is written
+    int n = 0;
+    for ([[maybe_unused]] auto& e : fs::directory_iterator(dir)) ++n;
+    EXPECT_EQ(n, 2);  // no temporaries left
+    fs::remove_all(dir);
+}
+
+TEST(AtomicWrite, WritesThroughASymlinkAndKeepsPermissions) {
+    fs::path dir = fs::temp_directory_path() / "meander-atomic-link";
+    fs::remove_all(dir);
+    fs::create_directories(dir);
+    std::ofstream(dir / "real.mnd") << "old";
+    fs::permissions(dir / "real.mnd", fs::perms::owner_read | fs::perms::owner_write, fs::perm_options::replace);
+    fs::create_symlink("real.mnd", dir / "link.mnd");
+    Diagnostics d;
+    ASSERT_TRUE(write_file_atomic((dir / "link.mnd").string(), "new", d)) << d.render();
+    EXPECT_TRUE(fs::is_symlink(dir / "link.mnd"));
+    std::ifstream in(dir / "real.mnd");
+    std::string text;
+    std::getline(in, text);
+    EXPECT_EQ(text, "new");
+    EXPECT_EQ(fs::status(dir / "real.mnd").permissions(), fs::perms::owner_read | fs::perms::owner_write);
+    fs::remove_all(dir);
 }
