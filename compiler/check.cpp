@@ -7,10 +7,12 @@
 
 #include <cfloat>
 #include <charconv>
+#include <climits>
 #include <cmath>
 #include <map>
 #include <string>
 
+#include "../runtime/integrate.hpp"
 #include "../runtime/tableau.hpp"
 #include "format.hpp"
 
@@ -33,10 +35,35 @@ std::string describe(const Block& b) {
     return {};
 }
 
+// The largest size of an input, output, layer or state: keeps every width and
+// width + augment far inside int.
+constexpr int kMaxWidth = 1 << 20;
+
+// The emitted field-evaluation counters are std::uint32_t.
+constexpr long long kMaxFieldEvals = 4294967295LL;
+
+// The width after a block whose width cannot be represented (a state beyond
+// kMaxWidth): later width comparisons are skipped rather than reported twice.
+constexpr int kUnknownWidth = INT_MIN;
+
+// worst_field_evals multiplies max-steps (an int) by up to 7 stages.
+static_assert(sizeof(long) >= 8, "worst_field_evals needs a 64-bit long");
+
+// width + augment without int overflow.
+long long state_width(const Continuous& c) { return static_cast<long long>(c.width) + c.augment; }
+
 // "20 (16 + augment 4)" or "16".
 std::string state_text(const Continuous& c) {
     if (c.augment == 0) return fmt::format("{}", c.width);
-    return fmt::format("{} ({} + augment {})", c.state(), c.width, c.augment);
+    return fmt::format("{} ({} + augment {})", state_width(c), c.width, c.augment);
+}
+
+// Shortest text that reads back to the same float, written as descriptions write numbers.
+std::string float_number(float v) {
+    const std::string digits = fmt::format("{}", v);
+    double d = static_cast<double>(v);
+    std::from_chars(digits.data(), digits.data() + digits.size(), d);
+    return format_number(d);
 }
 
 // Thresholds in messages: three significant digits, exponent written as descriptions write it.
@@ -54,6 +81,8 @@ struct Checker {
     Diagnostics& diags;
     std::map<std::string, Loc> names;
     const Block* last_top_layer = nullptr;   // the model's last layer, if the last block is a layer
+    long long total_field_evals = 0;         // over the continuous blocks whose solver line is valid
+    const Continuous* total_passes_limit = nullptr;  // the block at which that sum first exceeds kMaxFieldEvals
 
     void error(Loc loc, std::string message) { diags.error(src, loc, std::move(message)); }
     void warning(Loc loc, std::string message) { diags.warning(src, loc, std::move(message)); }
@@ -83,8 +112,13 @@ struct Checker {
     int dense(const Dense& d, int width, const std::string& from, bool in_continuous) {
         name(d.name, d.loc);
         if (d.in < 1) error(d.loc, fmt::format("layer '{}' has input width {}; widths must be at least 1", d.name, d.in));
-        else if (d.in != width) error(d.loc, fmt::format("layer '{}' takes {} inputs, but {} gives {}", d.name, d.in, from, width));
+        else if (d.in > kMaxWidth)
+            error(d.loc, fmt::format("layer '{}' has input width {}; widths must be at most {}", d.name, d.in, kMaxWidth));
+        else if (width != kUnknownWidth && d.in != width)
+            error(d.loc, fmt::format("layer '{}' takes {} inputs, but {} gives {}", d.name, d.in, from, width));
         if (d.out < 1) error(d.loc, fmt::format("layer '{}' has output width {}; widths must be at least 1", d.name, d.out));
+        else if (d.out > kMaxWidth)
+            error(d.loc, fmt::format("layer '{}' has output width {}; widths must be at most {}", d.name, d.out, kMaxWidth));
         if (d.time_input && !in_continuous)
             error(d.loc, fmt::format("layer '{}' uses '+ t', but time exists only inside a continuous block", d.name));
         finite(d.act_param, d.loc, fmt::format("the {} parameter of layer '{}'", activation_name(d.act), d.name));
@@ -98,14 +132,16 @@ struct Checker {
             error(loc, fmt::format("{} has no layers", what));
             return;
         }
-        if (end != start)
+        if (start != kUnknownWidth && end != kUnknownWidth && end != start)
             error(loc, fmt::format("{} must map width {} to width {}, but ends with width {} ({})", what, start_text, start, end, describe(blocks.back())));
     }
 
     int residual(const Residual& r, int width, const std::string& from, bool in_continuous) {
         name(r.name, r.loc);
         if (r.width < 1) error(r.loc, fmt::format("residual '{}' has width {}; widths must be at least 1", r.name, r.width));
-        else if (r.width != width) error(r.loc, fmt::format("residual '{}' has width {}, but {} gives {}", r.name, r.width, from, width));
+        else if (r.width > kMaxWidth)
+            error(r.loc, fmt::format("residual '{}' has width {}; widths must be at most {}", r.name, r.width, kMaxWidth));
+        else if (width != kUnknownWidth && r.width != width) error(r.loc, fmt::format("residual '{}' has width {}, but {} gives {}", r.name, r.width, from, width));
         int end = body(r.body, r.width, fmt::format("the input of residual '{}'", r.name), in_continuous);
         round_trip(r.body, r.width, fmt::format("{}", r.width), end, fmt::format("residual '{}'", r.name), r.loc);
         return r.width;
@@ -114,21 +150,30 @@ struct Checker {
     int continuous(const Continuous& c, int width, const std::string& from) {
         name(c.name, c.loc);
         if (c.width < 1) error(c.loc, fmt::format("continuous '{}' has width {}; widths must be at least 1", c.name, c.width));
-        else if (c.width != width) error(c.loc, fmt::format("continuous '{}' has width {}, but {} gives {}", c.name, c.width, from, width));
+        else if (c.width > kMaxWidth)
+            error(c.loc, fmt::format("continuous '{}' has width {}; widths must be at most {}", c.name, c.width, kMaxWidth));
+        else if (width != kUnknownWidth && c.width != width)
+            error(c.loc, fmt::format("continuous '{}' has width {}, but {} gives {}", c.name, c.width, from, width));
         if (c.augment < 0) error(c.loc, fmt::format("continuous '{}' has augment {}; it must be 0 or more", c.name, c.augment));
-        finite(c.t0, c.interval_loc, fmt::format("the start time of continuous '{}'", c.name));
-        finite(c.t1, c.interval_loc, fmt::format("the end time of continuous '{}'", c.name));
-        if (c.t0 == c.t1)
-            error(c.interval_loc, fmt::format("continuous '{}' integrates over the empty interval [{}, {}]; t0 and t1 must differ",
-                                              c.name, format_number(c.t0), format_number(c.t1)));
+        else if (c.augment > kMaxWidth)
+            error(c.loc, fmt::format("continuous '{}' has augment {}; it must be at most {}", c.name, c.augment, kMaxWidth));
+        else if (c.width <= kMaxWidth && state_width(c) > kMaxWidth)
+            error(c.loc, fmt::format("the state of continuous '{}' has width {}; widths must be at most {}", c.name,
+                                     state_text(c), kMaxWidth));
+        // Widths out of range have been reported; the field is still checked, its first width unknown.
+        const long long sw = state_width(c);
+        const int start = (sw > kMaxWidth || sw < -kMaxWidth) ? kUnknownWidth : static_cast<int>(sw);
+        interval(c);
         const std::string state = fmt::format("the state of continuous '{}'{}", c.name,
                                               c.augment == 0 ? std::string() : fmt::format(" ({} + augment {})", c.width, c.augment));
-        int end = body(c.field, c.state(), state, true);
-        round_trip(c.field, c.state(), state_text(c), end, fmt::format("the field of continuous '{}'", c.name), c.loc);
+        int end = body(c.field, start, state, true);
+        round_trip(c.field, start, state_text(c), end, fmt::format("the field of continuous '{}'", c.name), c.loc);
         if (c.solver.method.empty()) {
             error(c.loc, fmt::format("continuous '{}' has no solver line", c.name));
         } else {
+            const int before = diags.error_count();
             solver(c.solver, fmt::format("solver line of continuous '{}'", c.name), true);
+            if (diags.error_count() == before) field_evals(c);
         }
         if (c.trained) {
             solver(*c.trained, fmt::format("trained-with line of continuous '{}'", c.name), false);
@@ -137,7 +182,58 @@ struct Checker {
                                                   "under another discretisation (Ott et al., ICLR 2021)",
                                                   c.name, format_solver(c.solver), format_solver(*c.trained)));
         }
-        return c.state();
+        return start;
+    }
+
+    // The interval must be finite and must not vanish or overflow in the arithmetic the
+    // emitted code uses: the solver divides it into steps of (t1 - t0) / steps.
+    void interval(const Continuous& c) {
+        const std::string text = fmt::format("[{}, {}]", format_number(c.t0), format_number(c.t1));
+        if (!std::isfinite(c.t0) || !std::isfinite(c.t1)) {
+            finite(c.t0, c.interval_loc, fmt::format("the start time of continuous '{}'", c.name));
+            finite(c.t1, c.interval_loc, fmt::format("the end time of continuous '{}'", c.name));
+            return;
+        }
+        if (c.t0 == c.t1) {
+            error(c.interval_loc, fmt::format("continuous '{}' integrates over the empty interval {}; t0 and t1 must differ", c.name, text));
+            return;
+        }
+        if (!std::isfinite(c.t1 - c.t0)) {
+            error(c.interval_loc, fmt::format("continuous '{}' integrates over {}, whose length t1 - t0 is not finite in float64",
+                                              c.name, text));
+            return;
+        }
+        if (opts.precision != Precision::float32) return;
+        const double flt_max = static_cast<double>(FLT_MAX);
+        for (auto [v, end] : {std::pair<double, const char*>{c.t0, "start"}, {c.t1, "end"}})
+            if (std::fabs(v) > flt_max) {
+                error(c.interval_loc, fmt::format("continuous '{}' integrates over {}: the {} time {} is beyond the largest float32 "
+                                                  "value {}",
+                                                  c.name, text, end, format_number(v), format_number(flt_max)));
+                return;
+            }
+        const float f0 = static_cast<float>(c.t0);
+        const float f1 = static_cast<float>(c.t1);
+        if (f0 == f1) {
+            error(c.interval_loc, fmt::format("continuous '{}' integrates over {}, which is empty in float32: both ends round to {}",
+                                              c.name, text, float_number(f0)));
+        } else if (!std::isfinite(f1 - f0)) {
+            error(c.interval_loc, fmt::format("continuous '{}' integrates over {}, whose length t1 - t0 is not finite in float32",
+                                              c.name, text));
+        }
+    }
+
+    // The emitted code counts field evaluations in std::uint32_t, per block and per model.
+    void field_evals(const Continuous& c) {
+        const long n = worst_field_evals(c.solver);
+        if (n > kMaxFieldEvals) {
+            error(c.solver.loc, fmt::format("solver line of continuous '{}': up to {} field evaluations per inference, more than "
+                                            "the emitted 32-bit counters hold ({})",
+                                            c.name, n, kMaxFieldEvals));
+            return;
+        }
+        total_field_evals += n;
+        if (total_field_evals > kMaxFieldEvals && !total_passes_limit) total_passes_limit = &c;
     }
 
     static bool same_discretisation(const SolverSpec& a, const SolverSpec& b) {
@@ -209,7 +305,9 @@ struct Checker {
         }
     }
 
-    // The model name becomes the emitted C++ namespace and the prefix of its macros.
+    // The model name becomes the emitted C++ namespace and the prefix of its macros; the
+    // emitted code includes <cmath>, <cstdint> and <cstddef>, whose macros and global
+    // names (and those of <cstdlib>, which <cmath> includes) a namespace cannot share.
     void model_name() {
         static const char* const reserved[] = {
             "alignas", "alignof", "and", "and_eq", "asm", "auto", "bitand", "bitor", "bool", "break", "case", "catch",
@@ -225,33 +323,165 @@ struct Checker {
             "std", "real", "result", "context", "counters", "infer", "main",
         };
         const std::string& n = model.name;
+        auto refuse = [&](std::string_view why) {
+            error(model.loc, fmt::format("model name '{}' cannot be used: it becomes the emitted C++ namespace, and '{}' {}", n, n, why));
+        };
         for (const char* r : reserved)
-            if (n == r) {
-                error(model.loc, fmt::format("model name '{}' cannot be used: it becomes the emitted C++ namespace, and '{}' "
-                                             "is a C++ keyword or a name the emitted code uses",
-                                             n, n));
-                return;
-            }
+            if (n == r) return refuse("is a C++ keyword or a name the emitted code uses");
         if (n.find("__") != std::string::npos || n[0] == '_')
-            error(model.loc, fmt::format("model name '{}' cannot be used: names beginning with '_' or containing '__' are "
-                                         "reserved in C++",
-                                         n));
+            return error(model.loc, fmt::format("model name '{}' cannot be used: names beginning with '_' or containing '__' are "
+                                                "reserved in C++",
+                                                n));
+        if (const char* header = c_macro(n)) return refuse(fmt::format("is a macro of the C library ({})", header));
+        if (const char* header = c_type(n)) return refuse(fmt::format("is a type of the C library ({})", header));
+        if (const char* header = c_function(n)) return refuse(fmt::format("is a function of the C library ({})", header));
+        if (n.size() > 2 && n.compare(n.size() - 2, 2, "_t") == 0)
+            error(model.loc, fmt::format("model name '{}' cannot be used: names ending in '_t' are reserved for types by POSIX", n));
+    }
+
+    // The header that defines macro `n`, or null.
+    static const char* c_macro(const std::string& n) {
+        static const char* const cmath[] = {
+            "NAN", "INFINITY", "HUGE_VAL", "HUGE_VALF", "HUGE_VALL", "FP_NAN", "FP_INFINITE", "FP_ZERO", "FP_NORMAL",
+            "FP_SUBNORMAL", "FP_FAST_FMA", "FP_FAST_FMAF", "FP_FAST_FMAL", "FP_ILOGB0", "FP_ILOGBNAN", "FP_INT_UPWARD",
+            "FP_INT_DOWNWARD", "FP_INT_TOWARDZERO", "FP_INT_TONEARESTFROMZERO", "FP_INT_TONEAREST", "MATH_ERRNO",
+            "MATH_ERREXCEPT", "math_errhandling", "M_E", "M_LOG2E", "M_LOG10E", "M_LN2", "M_LN10", "M_PI", "M_PI_2",
+            "M_PI_4", "M_1_PI", "M_2_PI", "M_2_SQRTPI", "M_SQRT2", "M_SQRT1_2",
+        };
+        for (const char* m : cmath)
+            if (n == m) return "<cmath>";
+        if (n == "NULL" || n == "offsetof") return "<cstddef>";
+        // The limit and constant macros of <cstdint> (INT8_MIN, UINT_LEAST16_MAX, INTMAX_C, SIZE_MAX, ...) and
+        // of <climits> (INT_MAX, ...): a stem of the family, then _MIN, _MAX, _C or _WIDTH.
+        static const char* const stems[] = {"INT", "INTPTR", "INTMAX", "PTRDIFF", "SIZE", "SIG_ATOMIC", "WCHAR", "WINT",
+                                            "CHAR", "SCHAR", "SHRT", "LONG", "LLONG"};
+        static const char* const suffixes[] = {"_MIN", "_MAX", "_C", "_WIDTH"};
+        for (const char* suffix : suffixes) {
+            const std::string_view sfx(suffix);
+            if (n.size() <= sfx.size() || n.compare(n.size() - sfx.size(), sfx.size(), sfx) != 0) continue;
+            std::string_view stem(n.data(), n.size() - sfx.size());
+            if (stem.size() > 1 && stem[0] == 'U') stem.remove_prefix(1);
+            for (const char* s : stems)
+                if (stem == s) return "<cstdint>";
+            // INT8, INT_LEAST16, INT_FAST32, ...
+            for (std::string_view kind : {"INT", "INT_LEAST", "INT_FAST"})
+                for (std::string_view bits : {"8", "16", "32", "64"})
+                    if (stem.size() == kind.size() + bits.size() && stem.substr(0, kind.size()) == kind &&
+                        stem.substr(kind.size()) == bits)
+                        return "<cstdint>";
+        }
+        return nullptr;
+    }
+
+    static const char* c_type(const std::string& n) {
+        static const char* const cstdint[] = {
+            "int8_t", "int16_t", "int32_t", "int64_t", "uint8_t", "uint16_t", "uint32_t", "uint64_t",
+            "int_least8_t", "int_least16_t", "int_least32_t", "int_least64_t", "uint_least8_t", "uint_least16_t",
+            "uint_least32_t", "uint_least64_t", "int_fast8_t", "int_fast16_t", "int_fast32_t", "int_fast64_t",
+            "uint_fast8_t", "uint_fast16_t", "uint_fast32_t", "uint_fast64_t", "intptr_t", "uintptr_t", "intmax_t",
+            "uintmax_t",
+        };
+        for (const char* t : cstdint)
+            if (n == t) return "<cstdint>";
+        for (const char* t : {"size_t", "ptrdiff_t", "max_align_t", "nullptr_t", "byte"})
+            if (n == t) return "<cstddef>";
+        if (n == "float_t" || n == "double_t") return "<cmath>";
+        return nullptr;
+    }
+
+    static const char* c_function(const std::string& n) {
+        // Classification macros of C; C++ declares them as functions.
+        static const char* const classify[] = {"fpclassify", "isfinite", "isinf", "isnan", "isnormal", "signbit",
+                                               "isgreater", "isgreaterequal", "isless", "islessequal", "islessgreater",
+                                               "isunordered"};
+        for (const char* f : classify)
+            if (n == f) return "<cmath>";
+        // Each also comes with a float ('f') and a long double ('l') variant.
+        static const char* const math[] = {
+            "acos", "asin", "atan", "atan2", "cos", "sin", "tan", "acosh", "asinh", "atanh", "cosh", "sinh", "tanh",
+            "exp", "exp2", "expm1", "frexp", "ilogb", "ldexp", "log", "log10", "log1p", "log2", "logb", "modf",
+            "scalbn", "scalbln", "cbrt", "fabs", "hypot", "pow", "sqrt", "erf", "erfc", "lgamma", "tgamma", "ceil",
+            "floor", "nearbyint", "rint", "lrint", "llrint", "round", "lround", "llround", "trunc", "fmod",
+            "remainder", "remquo", "copysign", "nan", "nextafter", "nexttoward", "fdim", "fmax", "fmin", "fma",
+        };
+        for (const char* f : math) {
+            const std::string_view base(f);
+            if (n == base || (n.size() == base.size() + 1 && n.compare(0, base.size(), base) == 0 &&
+                              (n.back() == 'f' || n.back() == 'l')))
+                return "<cmath>";
+        }
+        static const char* const cstdlib[] = {
+            "abs", "labs", "llabs", "div", "ldiv", "lldiv", "malloc", "calloc", "realloc", "free", "exit", "abort",
+            "atexit", "quick_exit", "at_quick_exit", "atoi", "atol", "atoll", "atof", "strtol", "strtoul", "strtoll",
+            "strtoull", "strtod", "strtof", "strtold", "rand", "srand", "qsort", "bsearch", "getenv", "system",
+        };
+        for (const char* f : cstdlib)
+            if (n == f) return "<cstdlib>";
+        return nullptr;
+    }
+
+    // The emitted header states parameters and MACs per field evaluation as
+    // 32-bit constants and the worst-case MACs as a 64-bit one; a model too big
+    // for them would emit a header that does not compile. Counted in long
+    // double, which cannot overflow for widths within kMaxWidth.
+    void constants_fit() {
+        long double params = 0, field = 0, outside = 0, worst = 0;
+        auto add_dense = [&](const Dense& d, long double& macs) {
+            const long double m = static_cast<long double>(d.out) * d.in_total();
+            params += m + (d.has_bias ? d.out : 0);
+            macs += m;
+        };
+        // Top level: MACs outside fields once; each continuous block's field
+        // MACs times its worst-case evaluations.
+        for (const Block& b : model.blocks) {
+            if (b.kind == Block::Kind::continuous) {
+                long double f = 0;
+                for_each_dense(b.continuous.field, [&](const Dense& d) { add_dense(d, f); });
+                field += f;
+                worst += f * static_cast<long double>(worst_field_evals(b.continuous.solver));
+            } else {
+                std::vector<Block> one{b};
+                for_each_dense(one, [&](const Dense& d) { add_dense(d, outside); });
+            }
+        }
+        worst += outside;
+        const long double u32 = 4294967295.0L, u64 = 18446744073709551615.0L;
+        if (params > u32)
+            error(model.loc, fmt::format("model '{}' has {:.0Lf} parameters, more than the emitted 32-bit constant holds "
+                                         "({:.0Lf})", model.name, params, u32));
+        else if (field > u32)
+            error(model.loc, fmt::format("model '{}' needs {:.0Lf} multiply-accumulates per field evaluation, more than "
+                                         "the emitted 32-bit constant holds ({:.0Lf})", model.name, field, u32));
+        else if (worst > u64)
+            error(model.loc, fmt::format("model '{}' needs up to {:.3Le} multiply-accumulates per inference, more than "
+                                         "the emitted 64-bit constant holds", model.name, worst));
     }
 
     void run() {
+        const int errors_at_start = diags.error_count();
         if (!model.name.empty()) model_name();
         if (model.input_size < 1)
             error(model.input_loc, fmt::format("input '{}' has size {}; sizes must be at least 1", model.input_name, model.input_size));
+        else if (model.input_size > kMaxWidth)
+            error(model.input_loc, fmt::format("input '{}' has size {}; sizes must be at most {}", model.input_name, model.input_size, kMaxWidth));
         if (model.blocks.empty()) error(model.loc, fmt::format("model '{}' has no layers or blocks", model.name));
         if (!model.blocks.empty() && model.blocks.back().kind == Block::Kind::dense) last_top_layer = &model.blocks.back();
         int width = body(model.blocks, model.input_size, fmt::format("input '{}'", model.input_name), false);
         softmax(model.blocks);
         if (model.output_size < 1)
             error(model.output_loc, fmt::format("output '{}' has size {}; sizes must be at least 1", model.output_name, model.output_size));
-        else if (model.output_size != width) {
+        else if (model.output_size > kMaxWidth)
+            error(model.output_loc, fmt::format("output '{}' has size {}; sizes must be at most {}", model.output_name, model.output_size, kMaxWidth));
+        else if (width != kUnknownWidth && model.output_size != width) {
             std::string from = model.blocks.empty() ? fmt::format("input '{}'", model.input_name) : describe(model.blocks.back());
             error(model.output_loc, fmt::format("output '{}' has size {}, but {} gives {}", model.output_name, model.output_size, from, width));
         }
+        if (diags.error_count() == errors_at_start) constants_fit();
+        if (total_passes_limit)
+            error(total_passes_limit->solver.loc,
+                  fmt::format("model '{}': its continuous blocks together need up to {} field evaluations per inference, more "
+                              "than the emitted 32-bit counters hold ({}); the sum passes the limit at continuous '{}'",
+                              model.name, total_field_evals, kMaxFieldEvals, total_passes_limit->name));
     }
 
     // Softmax normalises the model's result; anywhere else it would feed a later layer.

@@ -651,6 +651,218 @@ const std::vector<Row> kCheckRows = {
      "in C++\n"
      "model _Pump\n"
      "      ^\n"},
+    {"model name is a macro of cmath",
+     "model NAN\n"
+     "input x[4]\n"
+     "dense a: 4 -> 2\n"
+     "output y[2]\n",
+     "bad.mnd:1:7: error: model name 'NAN' cannot be used: it becomes the emitted C++ namespace, and 'NAN' is a macro of the C library (<cmath>)\n"
+     "model NAN\n"
+     "      ^\n"},
+    {"model name is a limit macro of cstdint",
+     "model INT_LEAST16_MAX\n"
+     "input x[4]\n"
+     "dense a: 4 -> 2\n"
+     "output y[2]\n",
+     "bad.mnd:1:7: error: model name 'INT_LEAST16_MAX' cannot be used: it becomes the emitted C++ namespace, and 'INT_LEAST16_MAX' is a macro of the C library (<cstdint>)\n"
+     "model INT_LEAST16_MAX\n"
+     "      ^\n"},
+    {"model name is a constant macro of cstdint",
+     "model UINTMAX_C\n"
+     "input x[4]\n"
+     "dense a: 4 -> 2\n"
+     "output y[2]\n",
+     "bad.mnd:1:7: error: model name 'UINTMAX_C' cannot be used: it becomes the emitted C++ namespace, and 'UINTMAX_C' is a macro of the C library (<cstdint>)\n"
+     "model UINTMAX_C\n"
+     "      ^\n"},
+    {"model name is a macro of cstddef",
+     "model offsetof\n"
+     "input x[4]\n"
+     "dense a: 4 -> 2\n"
+     "output y[2]\n",
+     "bad.mnd:1:7: error: model name 'offsetof' cannot be used: it becomes the emitted C++ namespace, and 'offsetof' is a macro of the C library (<cstddef>)\n"
+     "model offsetof\n"
+     "      ^\n"},
+    {"model name is a type of cstdint",
+     "model int32_t\n"
+     "input x[4]\n"
+     "dense a: 4 -> 2\n"
+     "output y[2]\n",
+     "bad.mnd:1:7: error: model name 'int32_t' cannot be used: it becomes the emitted C++ namespace, and 'int32_t' is a type of the C library (<cstdint>)\n"
+     "model int32_t\n"
+     "      ^\n"},
+    {"model name is a type of cstddef",
+     "model max_align_t\n"
+     "input x[4]\n"
+     "dense a: 4 -> 2\n"
+     "output y[2]\n",
+     "bad.mnd:1:7: error: model name 'max_align_t' cannot be used: it becomes the emitted C++ namespace, and 'max_align_t' is a type of the C library (<cstddef>)\n"
+     "model max_align_t\n"
+     "      ^\n"},
+    {"model name is a classification function",
+     "model isnan\n"
+     "input x[4]\n"
+     "dense a: 4 -> 2\n"
+     "output y[2]\n",
+     "bad.mnd:1:7: error: model name 'isnan' cannot be used: it becomes the emitted C++ namespace, and 'isnan' is a function of the C library (<cmath>)\n"
+     "model isnan\n"
+     "      ^\n"},
+    {"model name is a float variant of a math function",
+     "model expm1f\n"
+     "input x[4]\n"
+     "dense a: 4 -> 2\n"
+     "output y[2]\n",
+     "bad.mnd:1:7: error: model name 'expm1f' cannot be used: it becomes the emitted C++ namespace, and 'expm1f' is a function of the C library (<cmath>)\n"
+     "model expm1f\n"
+     "      ^\n"},
+    {"model name is a function of cstdlib",
+     "model exit\n"
+     "input x[4]\n"
+     "dense a: 4 -> 2\n"
+     "output y[2]\n",
+     "bad.mnd:1:7: error: model name 'exit' cannot be used: it becomes the emitted C++ namespace, and 'exit' is a function of the C library (<cstdlib>)\n"
+     "model exit\n"
+     "      ^\n"},
+    {"model name ends in _t",
+     "model valve_t\n"
+     "input x[4]\n"
+     "dense a: 4 -> 2\n"
+     "output y[2]\n",
+     "bad.mnd:1:7: error: model name 'valve_t' cannot be used: names ending in '_t' are reserved for types by POSIX\n"
+     "model valve_t\n"
+     "      ^\n"},
+    {"max-steps beyond the 32-bit counters",
+     "model m\n"
+     "input x[4]\n"
+     "continuous c: 4, t in [0, 1] {\n"
+     "  dense f: 4 -> 4\n"
+     "  solver dormand-prince, rtol 1e-3, atol 1e-6, max-steps 2147483647\n"
+     "}\n"
+     "output y[4]\n",
+     "bad.mnd:5:10: error: solver line of continuous 'c': up to 12884901884 field evaluations per inference, more than the emitted 32-bit counters hold (4294967295)\n"
+     "  solver dormand-prince, rtol 1e-3, atol 1e-6, max-steps 2147483647\n"
+     "         ^\n"},
+    {"augment beyond the width limit",
+     "model m\n"
+     "input x[4]\n"
+     "continuous c: 4, t in [0, 1] {\n"
+     "  augment 2147483647\n"
+     "  dense f: 4 -> 4\n"
+     "  solver rk4, steps 4\n"
+     "}\n"
+     "output y[4]\n",
+     "bad.mnd:3:12: error: continuous 'c' has augment 2147483647; it must be at most 1048576\n"
+     "continuous c: 4, t in [0, 1] {\n"
+     "           ^\n"},
+    {"state beyond the width limit",
+     "model m\n"
+     "input x[4]\n"
+     "continuous c: 4, t in [0, 1] {\n"
+     "  augment 1048573\n"
+     "  dense f: 4 -> 4\n"
+     "  solver rk4, steps 4\n"
+     "}\n"
+     "output y[4]\n",
+     "bad.mnd:3:12: error: the state of continuous 'c' has width 1048577 (4 + augment 1048573); widths must be at most 1048576\n"
+     "continuous c: 4, t in [0, 1] {\n"
+     "           ^\n"},
+    {"interval beyond float32",
+     "model m\n"
+     "input x[4]\n"
+     "continuous c: 4, t in [1e300, 1.0000000000000002e300] {\n"
+     "  dense f: 4 -> 4\n"
+     "  solver rk4, steps 4\n"
+     "}\n"
+     "output y[4]\n",
+     "bad.mnd:3:23: error: continuous 'c' integrates over [1e300, 1.0000000000000002e300]: the start time 1e300 is beyond the largest float32 value 3.4028234663852886e38\n"
+     "continuous c: 4, t in [1e300, 1.0000000000000002e300] {\n"
+     "                      ^\n"},
+    {"interval end beyond float32",
+     "model m\n"
+     "input x[4]\n"
+     "continuous c: 4, t in [0, -3.5e38] {\n"
+     "  dense f: 4 -> 4\n"
+     "  solver rk4, steps 4\n"
+     "}\n"
+     "output y[4]\n",
+     "bad.mnd:3:23: error: continuous 'c' integrates over [0, -3.5e38]: the end time -3.5e38 is beyond the largest float32 value 3.4028234663852886e38\n"
+     "continuous c: 4, t in [0, -3.5e38] {\n"
+     "                      ^\n"},
+    {"interval empty in float32",
+     "model m\n"
+     "input x[4]\n"
+     "continuous c: 4, t in [1, 1.00000001] {\n"
+     "  dense f: 4 -> 4\n"
+     "  solver rk4, steps 4\n"
+     "}\n"
+     "output y[4]\n",
+     "bad.mnd:3:23: error: continuous 'c' integrates over [1, 1.00000001], which is empty in float32: both ends round to 1\n"
+     "continuous c: 4, t in [1, 1.00000001] {\n"
+     "                      ^\n"},
+    {"interval length overflows float32",
+     "model m\n"
+     "input x[4]\n"
+     "continuous c: 4, t in [-3e38, 3e38] {\n"
+     "  dense f: 4 -> 4\n"
+     "  solver rk4, steps 4\n"
+     "}\n"
+     "output y[4]\n",
+     "bad.mnd:3:23: error: continuous 'c' integrates over [-3e38, 3e38], whose length t1 - t0 is not finite in float32\n"
+     "continuous c: 4, t in [-3e38, 3e38] {\n"
+     "                      ^\n"},
+    {"interval length overflows float64",
+     "model m\n"
+     "input x[4]\n"
+     "continuous c: 4, t in [-1.7e308, 1.7e308] {\n"
+     "  dense f: 4 -> 4\n"
+     "  solver rk4, steps 4\n"
+     "}\n"
+     "output y[4]\n",
+     "bad.mnd:3:23: error: continuous 'c' integrates over [-1.7e308, 1.7e308], whose length t1 - t0 is not finite in float64\n"
+     "continuous c: 4, t in [-1.7e308, 1.7e308] {\n"
+     "                      ^\n"},
+    {"model field evaluations beyond the 32-bit counters",
+     "model m\n"
+     "input x[4]\n"
+     "continuous c: 4, t in [0, 1] {\n"
+     "  dense f: 4 -> 4\n"
+     "  solver dormand-prince, rtol 1e-3, atol 1e-6, max-steps 715827882, first-step 0.1\n"
+     "}\n"
+     "continuous d: 4, t in [0, 1] {\n"
+     "  dense g: 4 -> 4\n"
+     "  solver euler, steps 3\n"
+     "}\n"
+     "output y[4]\n",
+     // 1 + 6 x 715827882 = 4294967293 (Dormand-Prince: 7 stages, the last reused), + 3 Euler steps
+     "bad.mnd:9:10: error: model 'm': its continuous blocks together need up to 4294967296 field evaluations per "
+     "inference, more than the emitted 32-bit counters hold (4294967295); the sum passes the limit at continuous 'd'\n"
+     "  solver euler, steps 3\n"
+     "         ^\n"},
+    {"input size beyond the width limit",
+     "model m\n"
+     "input x[2000000]\n"
+     "dense a: 2000000 -> 2\n"
+     "output y[2]\n",
+     "bad.mnd:2:7: error: input 'x' has size 2000000; sizes must be at most 1048576\n"
+     "input x[2000000]\n"
+     "      ^\n"},
+    {"layer output beyond the width limit",
+     "model m\n"
+     "input x[4]\n"
+     "dense a: 4 -> 1048577\n"
+     "dense b: 1048577 -> 2\n"
+     "output y[2]\n",
+     "bad.mnd:3:7: error: layer 'a' has output width 1048577; widths must be at most 1048576\n"
+     "dense a: 4 -> 1048577\n"
+     "      ^\n"},
+    {"output size beyond the width limit",
+     "model m\n"
+     "input x[4]\n"
+     "dense a: 4 -> 2\n"
+     "output y[4194304]\n",
+     "bad.mnd:4:8: error: output 'y' has size 4194304; sizes must be at most 1048576\n"
+     "output y[4194304]\n"
+     "       ^\n"},
     {"duplicate layer name",
      "model m\n"
      "input x[4]\n"

@@ -233,5 +233,98 @@ TEST(Check, ReportsEveryProblemInOneRun) {
               "      ^\n");
 }
 
+// The emitted field-evaluation counters are std::uint32_t (largest value 2^32 - 1 =
+// 4294967295). Counts by hand from the tableaux: Dormand-Prince has 7 stages and
+// reuses the last (FSAL), so with a first step given it costs 1 + 6 x max-steps; an
+// Euler step costs 1.
+TEST(Check, FieldEvaluationsJustInsideTheCounters) {
+    ASSERT_EQ(1 + 6 * 715827882LL, 4294967293LL);
+    expect_clean(check(with_solver("  solver dormand-prince, rtol 1e-3, atol 1e-6, max-steps 715827882, first-step 0.1\n")));
+    // 1 + 6 x 715827883 = 4294967299: one step more is refused.
+    expect_mentions(check(with_solver("  solver dormand-prince, rtol 1e-3, atol 1e-6, max-steps 715827883, first-step 0.1\n")),
+                    false, "up to 4294967299 field evaluations per inference");
+    // The model's sum may reach 2^32 - 1 exactly: 4294967293 + 2 Euler steps.
+    const std::string two_blocks =
+        "model m\ninput x[3]\ncontinuous c: 3, t in [0, 1] {\n  dense f: 3 -> 3\n"
+        "  solver dormand-prince, rtol 1e-3, atol 1e-6, max-steps 715827882, first-step 0.1\n}\n"
+        "continuous d: 3, t in [0, 1] {\n  dense g: 3 -> 3\n  solver euler, steps ";
+    expect_clean(check(two_blocks + "2\n}\noutput y[3]\n"));
+    expect_mentions(check(two_blocks + "3\n}\noutput y[3]\n"), false, "together need up to 4294967296 field evaluations");
+}
+
+// Widths up to 2^20 = 1048576 pass; 2^20 + 1 is refused.
+TEST(Check, WidthsJustInsideTheLimit) {
+    // Narrow layers between the wide ones keep the parameter count within the
+    // emitted 32-bit constant (ParameterCountMustFitTheEmittedConstant).
+    expect_clean(check("model m\ninput x[1048576]\ndense a: 1048576 -> 1\ndense b: 1 -> 1048576\n"
+                       "dense c: 1048576 -> 1\noutput y[1]\n"));
+    expect_clean(check("model m\ninput x[4]\ncontinuous c: 4, t in [0, 1] {\n  augment 1048572\n"
+                       "  dense f: 1048576 -> 1\n  dense g: 1 -> 1048576\n  solver rk4, steps 2\n}\n"
+                       "dense h: 1048576 -> 2\noutput y[2]\n"));
+    expect_clean(check("model m\ninput x[1048576]\nresidual r: 1048576 {\n  dense a: 1048576 -> 1\n"
+                       "  dense b: 1 -> 1048576\n}\ndense c: 1048576 -> 1\noutput y[1]\n"));
+    expect_mentions(check("model m\ninput x[1048577]\ndense a: 1048577 -> 1\noutput y[1]\n"), false,
+                    "input 'x' has size 1048577; sizes must be at most 1048576");
+    expect_mentions(check("model m\ninput x[4]\nresidual r: 1048577 {\n  dense a: 1048577 -> 1048577\n}\noutput y[4]\n"), false,
+                    "residual 'r' has width 1048577; widths must be at most 1048576");
+}
+
+// A state too wide for int is reported once; the field is not compared against it.
+TEST(Check, HugeAugmentIsOneError) {
+    Result r = check("model m\ninput x[4]\ncontinuous c: 4, t in [0, 1] {\n  augment 2147483647\n"
+                     "  dense f: 4 -> 4\n  solver rk4, steps 2\n}\noutput y[4]\n");
+    EXPECT_FALSE(r.ok);
+    EXPECT_EQ(r.text,
+              "m.mnd:3:12: error: continuous 'c' has augment 2147483647; it must be at most 1048576\n"
+              "continuous c: 4, t in [0, 1] {\n"
+              "           ^\n");
+}
+
+// Interval limits in float32: FLT_MAX = 3.4028234663852886e38 (<cfloat>); the float
+// next to 1 is 1 + 2^-23 = 1.00000011920928955 (FLT_EPSILON).
+TEST(Check, IntervalsJustInsideFloat32) {
+    auto block = [](const std::string& interval) {
+        return "model m\ninput x[3]\ncontinuous c: 3, t in " + interval +
+               " {\n  dense f: 3 -> 3\n  solver rk4, steps 2\n}\noutput y[3]\n";
+    };
+    ASSERT_EQ(static_cast<double>(FLT_MAX), 3.4028234663852886e38);
+    ASSERT_NE(static_cast<float>(1.0000001), 1.0f);
+    ASSERT_EQ(static_cast<float>(1.00000001), 1.0f);
+    expect_clean(check(block("[1, 1.0000001]")));
+    expect_clean(check(block("[0, 3.4028234663852886e38]")));
+    expect_clean(check(block("[-1.7e38, 1.7e38]")));  // length 3.4e38 < FLT_MAX
+    expect_mentions(check(block("[0, 3.402823466385289e38]")), false, "the end time 3.402823466385289e38 is beyond");
+    // float64 keeps what float32 cannot tell apart, and lengths up to DBL_MAX.
+    expect_clean(check(block("[1e300, 1.0000000000000002e300]"), Precision::float64));
+    expect_clean(check(block("[1, 1.00000001]"), Precision::float64));
+    expect_clean(check(block("[-8e307, 8e307]"), Precision::float64));
+    expect_mentions(check(block("[-1e308, 1e308]"), Precision::float64), false,
+                    "whose length t1 - t0 is not finite in float64");
+}
+
+// Every class of refused model name, and names close to them that are fine.
+TEST(Check, ModelNamesOfTheCLibrary) {
+    auto named = [](const std::string& n) { return check("model " + n + "\ninput x[2]\ndense a: 2 -> 2\noutput y[2]\n"); };
+    for (const char* n : {"HUGE_VALF", "FP_SUBNORMAL", "math_errhandling", "M_PI", "NULL", "INT8_MIN", "UINT64_MAX",
+                          "INT_FAST32_MIN", "UINTPTR_MAX", "INTMAX_C", "SIZE_MAX", "PTRDIFF_MIN", "INT_MAX", "ULLONG_MAX"})
+        expect_mentions(named(n), false, "is a macro of the C library");
+    for (const char* n : {"uint8_t", "int_least64_t", "uintmax_t", "size_t", "nullptr_t", "float_t", "byte"})
+        expect_mentions(named(n), false, "is a type of the C library");
+    for (const char* n : {"sin", "cosf", "tanhl", "sqrt", "fmax", "nextafterf", "log1p", "signbit", "isunordered", "abs"})
+        expect_mentions(named(n), false, "is a function of the C library");
+    expect_mentions(named("pump_t"), false, "names ending in '_t' are reserved for types by POSIX");
+    for (const char* n : {"sine", "int32", "INT8", "INT8_MAXIMUM", "UINT128_MAX", "M_PIE", "logs", "sqrt_pump", "t", "pump_t1"})
+        expect_clean(named(n));
+}
+
+// The emitted header's uint32 constants: parameters 70000 x 70001 = 4900070000
+// > 2^32 - 1 = 4294967295; 65535 x 65535 + 65535 = 4294901760 fits.
+TEST(Check, ParameterCountMustFitTheEmittedConstant) {
+    expect_mentions(check("model m\ninput x[70000]\ndense a: 70000 -> 70000\noutput y[70000]\n"), false,
+                    "model 'm' has 4900070000 parameters, more than the emitted 32-bit constant holds (4294967295)");
+    expect_clean(check("model m\ninput x[65535]\ndense a: 65535 -> 65535, no-bias\ndense b: 65535 -> 1, no-bias\n"
+                       "output y[1]\n"));
+}
+
 }  // namespace
 }  // namespace meander
