@@ -29,32 +29,26 @@ constexpr int kModelError = 1;
 constexpr int kUsageError = 2;
 constexpr int kDiffTrouble = 2;
 
-// A finite number above zero (CLI11's own check lets NaN through and prints its
-// range with 300 digits).
-const CLI::Validator kFinitePositive(
-    [](std::string& text) -> std::string {
-        double v = 0;
-        try {
-            v = std::stod(text);
-        } catch (const std::exception&) {
-            return "expected a number, not '" + text + "'";
-        }
-        if (!std::isfinite(v) || v <= 0) return "expected a finite number above 0, not " + text;
-        return {};
-    },
-    "NUMBER > 0");
-const CLI::Validator kFiniteNonNegative(
-    [](std::string& text) -> std::string {
-        double v = 0;
-        try {
-            v = std::stod(text);
-        } catch (const std::exception&) {
-            return "expected a number, not '" + text + "'";
-        }
-        if (!std::isfinite(v) || v < 0) return "expected a finite number at or above 0, not " + text;
-        return {};
-    },
-    "NUMBER >= 0");
+// A finite number above (or at) zero. CLI11's own range checks let NaN
+// through and print their range with 300 digits.
+CLI::Validator finite_number(bool zero_allowed) {
+    return CLI::Validator(
+        [zero_allowed](std::string& text) -> std::string {
+            double v = 0;
+            try {
+                v = std::stod(text);
+            } catch (const std::exception&) {
+                return "expected a number, not '" + text + "'";
+            }
+            if (!std::isfinite(v) || v < 0 || (v == 0 && !zero_allowed))
+                return std::string("expected a finite number ") + (zero_allowed ? "at or above" : "above") + " 0, not " +
+                       text;
+            return {};
+        },
+        zero_allowed ? "NUMBER >= 0" : "NUMBER > 0");
+}
+const CLI::Validator kFinitePositive = finite_number(false);
+const CLI::Validator kFiniteNonNegative = finite_number(true);
 
 // Prints what was collected; returns true when there were no errors.
 bool flush(const Diagnostics& diags) {
