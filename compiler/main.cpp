@@ -65,6 +65,7 @@ Precision precision_of(const std::string& s) { return s == "float64" ? Precision
 struct LoadedWithRows {
     Loaded loaded;
     std::vector<std::vector<double>> rows;
+    std::vector<int> lines;         // the CSV line of each row
 };
 
 // `float32_inputs`: the rows feed emitted float32 code, so they must fit a float.
@@ -72,9 +73,10 @@ std::optional<LoadedWithRows> load_with_rows(const std::string& path, Precision 
                                              Diagnostics& diags, bool float32_inputs = false) {
     auto loaded = load_model(path, p, diags);
     if (!loaded) return std::nullopt;
-    auto rows = read_csv_rows(input, loaded->model.input_size, diags, float32_inputs);
+    std::vector<int> lines;
+    auto rows = read_csv_rows(input, loaded->model.input_size, diags, float32_inputs, &lines);
     if (!rows) return std::nullopt;
-    return LoadedWithRows{std::move(*loaded), std::move(*rows)};
+    return LoadedWithRows{std::move(*loaded), std::move(*rows), std::move(lines)};
 }
 
 std::vector<Eigen::VectorXd> to_vectors(const std::vector<std::vector<double>>& rows) {
@@ -107,12 +109,16 @@ int cmd_eval(const std::string& model_path, const std::string& input, const std:
     std::string stat_text;
     if (stats) stat_text = "row  field_evals  steps_taken  steps_rejected  h_min  h_max\n";
     int row = 0;
+    std::optional<Source> csv_src;  // read again only to point at a failing row
     for (const auto& x : to_vectors(in->rows)) {
         ++row;
         EvalResult r = evaluate(model, x);
         if (r.status != EvalStatus::ok) {
-            diags.error(input, fmt::format("row {}: {}{}", row, eval_status_name(r.status),
-                                           r.block.empty() ? "" : fmt::format(" in block '{}'", r.block)));
+            if (!csv_src) csv_src = load_source(input, diags);
+            const std::string what = fmt::format("the model returns {}{} for this row", eval_status_name(r.status),
+                                                 r.block.empty() ? "" : fmt::format(" in block '{}'", r.block));
+            if (csv_src)
+                diags.error(*csv_src, Loc{in->lines[static_cast<std::size_t>(row - 1)], 1}, what);
             continue;
         }
         for (Eigen::Index i = 0; i < r.output.size(); ++i) csv += (i ? "," : "") + format_double(r.output[i]);

@@ -123,6 +123,9 @@ std::optional<std::string> read_file(const std::string& path, Diagnostics& diags
 std::optional<Source> load_source(const std::string& path, Diagnostics& diags) {
     auto text = read_file(path, diags);
     if (!text) return std::nullopt;
+    // Some editors start UTF-8 files with a byte-order mark; blanking it keeps
+    // every byte offset, so columns stay right.
+    if (text->compare(0, 3, "\xEF\xBB\xBF") == 0) text->replace(0, 3, "   ");
     return Source(path, std::move(*text));
 }
 
@@ -249,7 +252,7 @@ bool parse_number(std::string_view field, double& out) {
 }  // namespace
 
 std::optional<std::vector<std::vector<double>>> read_csv_rows(const std::string& path, int width, Diagnostics& diags,
-                                                              bool float32_range) {
+                                                              bool float32_range, std::vector<int>* lines) {
     auto text = read_file(path, diags);
     if (!text) return std::nullopt;
     Source src(path, *text);
@@ -313,6 +316,7 @@ std::optional<std::vector<std::vector<double>>> read_csv_rows(const std::string&
             if (!fits) continue;
         }
         rows.push_back(std::move(row));
+        if (lines) lines->push_back(static_cast<int>(li));
     }
     if (diags.error_count() != errors_before) return std::nullopt;
     if (rows.empty()) {

@@ -80,8 +80,9 @@ std::uint64_t fnv1a64(std::string_view bytes, std::uint64_t seed = 0xcbf29ce4842
 // `width` values; errors are reported as path:line:col.
 // With `float32_range`, a value beyond the largest float (it would become
 // infinite in emitted float32 code) is an error too.
+// `lines`, when given, receives the 1-based file line of each row.
 std::optional<std::vector<std::vector<double>>> read_csv_rows(const std::string& path, int width, Diagnostics& diags,
-                                                              bool float32_range = false);
+                                                              bool float32_range = false, std::vector<int>* lines = nullptr);
 
 // Shortest text that reads back to the same double / float (fmt, locale-free).
 std::string format_double(double v);

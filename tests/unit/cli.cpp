@@ -278,3 +278,21 @@ TEST(ExitCodes, NotANumberIsAUsageError) {
     Outcome m = run("tune " + s + "/fan_balance.mnd --input " + s + "/inputs.csv --method rk5");
     EXPECT_EQ(m.status, 2) << m.output;
 }
+
+TEST(Eval, AFailingRowIsNamedByItsLine) {
+    const fs::path d = scratch("eval-row");
+    meander::test::write_text(d / "in.csv", "a,b,c,d,e,f,g,h\n1,2,3,4,5,6,7,8\n\n1,nan,3,4,5,6,7,8\n");
+    Outcome r = run("eval " + (fs::path(MEANDER_SOURCE_DIR) / "samples/fan_balance/fan_balance.mnd").string() +
+                    " --input " + (d / "in.csv").string());
+    EXPECT_EQ(r.status, 1);
+    EXPECT_EQ(r.output, (d / "in.csv").string() +
+                            ":4:1: error: the model returns input_not_finite for this row\n1,nan,3,4,5,6,7,8\n^\n");
+}
+
+TEST(Check, AByteOrderMarkIsAccepted) {
+    const fs::path mnd = edited_sample("fan_balance", "model fan_balance", "model fan_balance", "bom");
+    std::string text = read_text(mnd);
+    meander::test::write_text(mnd, "\xEF\xBB\xBF" + text);
+    Outcome r = run("check " + mnd.string());
+    EXPECT_EQ(r.status, 0) << r.output;
+}
