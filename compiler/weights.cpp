@@ -439,8 +439,16 @@ struct ZipFile {
     ~ZipFile() { if (zf) zip_fclose(zf); }
 };
 
+// Far beyond any weights a microcontroller can hold; a larger member is
+// refused before it is inflated into memory.
+constexpr zip_uint64_t kMaxMemberBytes = zip_uint64_t{256} << 20;
+
 // Reads member `index` whole; on failure sets `error`.
 std::optional<std::string> read_member(zip_t* za, zip_uint64_t index, const zip_stat_t& st, std::string& error) {
+    if ((st.valid & ZIP_STAT_SIZE) && st.size > kMaxMemberBytes) {
+        error = fmt::format("{} bytes, more than meander reads for one tensor ({} bytes)", st.size, kMaxMemberBytes);
+        return std::nullopt;
+    }
     if ((st.valid & ZIP_STAT_SIZE) && (st.valid & ZIP_STAT_COMP_SIZE) && (st.valid & ZIP_STAT_COMP_METHOD)) {
         // Deflate expands at most about 1032:1; a larger claim is damage.
         bool stored = st.comp_method == ZIP_CM_STORE;
@@ -467,6 +475,10 @@ std::optional<std::string> read_member(zip_t* za, zip_uint64_t index, const zip_
         }
         if (n == 0) break;
         data.append(buf, static_cast<std::size_t>(n));
+        if (data.size() > kMaxMemberBytes) {
+            error = fmt::format("more than meander reads for one tensor ({} bytes)", kMaxMemberBytes);
+            return std::nullopt;
+        }
         if ((st.valid & ZIP_STAT_SIZE) && data.size() > st.size) break;
     }
     if ((st.valid & ZIP_STAT_SIZE) && data.size() != st.size) {

@@ -336,6 +336,13 @@ const ReadCase read_cases[] = {
          return file(d, "w.mnw", "meander-weights 1\ntensor a float32 2 2\n1 2\ntensor b float32 1\n1\n");
      },
      "DIR/w.mnw:4:1: error: tensor 'a' is incomplete: a new tensor starts after 1 of its 2 value lines\ntensor b float32 1\n^\n"},
+    // A 256 MiB + 128 byte member (67108864 zero float32 values and the .npy header),
+    // 260 KiB deflated: refused before it is inflated.
+    {"npz_member_too_large", [](const fs::path& d) {
+         fs::copy_file(fs::path(MEANDER_SOURCE_DIR) / "tests/data/weights/huge_member.npz", d / "w.npz");
+         return d / "w.npz";
+     },
+     "DIR/w.npz: error: member 'junk.npy': 268435584 bytes, more than meander reads for one tensor (268435456 bytes)\n"},
     {"listing_unterminated_quote", [](const fs::path& d) {
          return file(d, "w.mnw", "meander-weights 1\ntensor \"lift weight float32 1\n1\n");
      },
