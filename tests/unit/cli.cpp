@@ -296,3 +296,20 @@ TEST(Check, AByteOrderMarkIsAccepted) {
     Outcome r = run("check " + mnd.string());
     EXPECT_EQ(r.status, 0) << r.output;
 }
+
+// The firmware snippet in README.md compiles against the emitted header under the strict flags.
+TEST(Readme, UsageSnippetCompiles) {
+    std::string readme = read_text(fs::path(MEANDER_SOURCE_DIR) / "README.md");
+    std::size_t start = readme.find("```cpp\n#include \"fan_balance.hpp\"");
+    ASSERT_NE(start, std::string::npos);
+    start += 7;
+    const std::string snippet = readme.substr(start, readme.find("```", start) - start);
+    const fs::path d = scratch("readme-snippet");
+    ASSERT_EQ(run("compile " + (fs::path(MEANDER_SOURCE_DIR) / "samples/fan_balance/fan_balance.mnd").string() +
+                  " -o " + d.string()).status, 0);
+    meander::test::write_text(d / "snippet.cpp", snippet);
+    Outcome cc = meander::test::run("cd '" + d.string() + "' && '" + MEANDER_CXX +
+                                    "' -std=c++17 -Wall -Wextra -Wconversion -Wdouble-promotion -Wshadow -Werror "
+                                    "-fno-exceptions -fno-rtti -c snippet.cpp fan_balance.cpp");
+    EXPECT_EQ(cc.status, 0) << cc.output;
+}
