@@ -852,8 +852,8 @@ const char* result_name(result r) noexcept;
         o += "            if (!all_finite(y, n)) return result::state_not_finite;\n";
         if (tb.fsal)
             o += fmt::format("            for (std::size_t j = 0; j < n; ++j) k1[j] = k{}[j];  // FSAL\n", s);
-        else
-            o += "            " + call("t", "y", "k1") + "\n";
+        else  // the next step's first stage; none after the last step
+            o += "            if (t != t1) " + call("t", "y", "k1") + "\n";
         o += "            break;\n";
         o += "        }\n";
         o += "    }\n";

@@ -150,7 +150,7 @@ IntegrateStatus integrate_adaptive(const Field& f, const Tableau& tb, double t0,
             if (!y.allFinite()) return IntegrateStatus::state_not_finite;
             if (tb.fsal) {
                 std::swap(k[0], k[s - 1]);
-            } else {
+            } else if (t != t1) {  // the next step's first stage; none after the last step
                 f(t, y, k[0]);
                 stats.field_evals += 1;
             }

@@ -328,6 +328,23 @@ TEST(Integrate, WorstFieldEvalsFollowsTheRule) {
     }
 }
 
+TEST(Integrate, FieldEvalsOfACompletedRunFollowTheRule) {
+    // DEVELOPERS.md: FSAL 1 + [auto] + attempts*(stages-1); not FSAL also one
+    // evaluation per accepted step but the last, which reaches T1.
+    for (const char* m : {"dormand-prince", "cash-karp", "tsitouras", "bogacki-shampine"}) {
+        SCOPED_TRACE(m);
+        const Tableau* tb = find_tableau(m);
+        Eigen::VectorXd y(1);
+        y << 1.0;
+        IntegrateStats stats;
+        std::vector<StepRecord> trace;
+        ASSERT_EQ(integrate(decay(), 0.0, 10.0, y, adaptive(m, 1e-4, 1e-7, 1000), stats, &trace), IntegrateStatus::ok);
+        const long attempts = static_cast<long>(trace.size());
+        const long expected = 2 + attempts * (tb->stages - 1) + (tb->fsal ? 0 : stats.steps_taken - 1);
+        EXPECT_EQ(stats.field_evals, expected);
+    }
+}
+
 TEST(Integrate, LinearSystemExactSolution) {
     // A = [[-1, 1], [0, -1]], y0 = (0, 1): y(2) = e^-2 (2, 1) (exact solution).
     const Field f = [](double, const Eigen::VectorXd& y, Eigen::VectorXd& dy) {

@@ -218,7 +218,7 @@ result block_rewind(real* work, const real* in, real* out, counters& count) noex
             t = t_new;
             for (std::size_t j = 0; j < n; ++j) y[j] = y_new[j];
             if (!all_finite(y, n)) return result::state_not_finite;
-            field_rewind(t, y, k1, count);
+            if (t != t1) field_rewind(t, y, k1, count);
             break;
         }
     }
