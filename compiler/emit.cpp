@@ -797,7 +797,10 @@ const char* result_name(result r) noexcept;
         }
         if (pi) o += fmt::format("    real err_prev = {};\n", L(1e-4));
         o += "    std::uint32_t attempts = 0u;\n";
-        o += "    while (t != t1) {\n";
+        // t never passes t1 (the last step is clipped to it), so an ordered
+        // comparison says "not there yet" without float equality (-Wfloat-equal).
+        const std::string not_there = forward ? "t < t1" : "t > t1";
+        o += "    while (" + not_there + ") {\n";
         o += "        // nextafter toward t1 is nextafter toward the direction of integration (t != t1).\n";
         o += fmt::format("        const real min_step = {} * std::fabs(std::nextafter(t, t1) - t);\n", L(10));
         o += "        if (h_abs < min_step) h_abs = min_step;  // as SciPy: only rejections end in step_too_small\n";
@@ -833,12 +836,12 @@ const char* result_name(result r) noexcept;
         o += "            }\n";
         o += "            real factor = max_factor;\n";
         if (!pi) {
-            o += fmt::format("            if (err != {}) {{\n", L(0));
+            o += fmt::format("            if (err > {}) {{\n", L(0));  // err >= 0 here
             o += "                const real grow = safety * std::pow(err, exponent);\n";
             o += "                factor = grow < max_factor ? grow : max_factor;\n";
             o += "            }\n";
         } else {
-            o += fmt::format("            if (err != {}) {{\n", L(0));
+            o += fmt::format("            if (err > {}) {{\n", L(0));  // err >= 0 here
             o += "                factor = safety * std::pow(err, pi_err_exp) * std::pow(err_prev, pi_prev_exp);\n";
             o += "                factor = factor < min_factor ? min_factor : (max_factor < factor ? max_factor : factor);\n";
             o += "            }\n";
@@ -853,7 +856,7 @@ const char* result_name(result r) noexcept;
         if (tb.fsal)
             o += fmt::format("            for (std::size_t j = 0; j < n; ++j) k1[j] = k{}[j];  // FSAL\n", s);
         else  // the next step's first stage; none after the last step
-            o += "            if (t != t1) " + call("t", "y", "k1") + "\n";
+            o += "            if (" + not_there + ") " + call("t", "y", "k1") + "\n";
         o += "            break;\n";
         o += "        }\n";
         o += "    }\n";

@@ -128,7 +128,7 @@ std::optional<VerifyReport> verify_model(const Model& model, const EmitOptions& 
     }
     // The flags users are told to build with: the emitted code must pass them.
     std::string cmd = fmt::format(
-        "{} -std=c++17 -O2 -Wall -Wextra -Wconversion -Wdouble-promotion -Wshadow -Werror -fno-exceptions -fno-rtti "
+        "{} -std=c++17 -O2 -Wall -Wextra -Wconversion -Wdouble-promotion -Wshadow -Wfloat-equal -Werror -fno-exceptions -fno-rtti "
         "-o {} {} {} > {} 2>&1",
         cxx, quote((dir / "verify_driver").string()), quote((dir / "verify_driver.cpp").string()),
         quote((dir / (model.name + ".cpp")).string()), quote((dir / "build.log").string()));

@@ -197,7 +197,7 @@ result block_drift(real* work, const real* in, real* out, counters& count) noexc
     }
     real err_prev = 0.0001f;
     std::uint32_t attempts = 0u;
-    while (t != t1) {
+    while (t < t1) {
         // nextafter toward t1 is nextafter toward the direction of integration (t != t1).
         const real min_step = 10.0f * std::fabs(std::nextafter(t, t1) - t);
         if (h_abs < min_step) h_abs = min_step;  // as SciPy: only rejections end in step_too_small
@@ -239,7 +239,7 @@ result block_drift(real* work, const real* in, real* out, counters& count) noexc
                 continue;
             }
             real factor = max_factor;
-            if (err != 0.0f) {
+            if (err > 0.0f) {
                 factor = safety * std::pow(err, pi_err_exp) * std::pow(err_prev, pi_prev_exp);
                 factor = factor < min_factor ? min_factor : (max_factor < factor ? max_factor : factor);
             }

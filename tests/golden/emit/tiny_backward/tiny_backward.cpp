@@ -167,7 +167,7 @@ result block_rewind(real* work, const real* in, real* out, counters& count) noex
         h_abs = h1 < 100.0 * h0 ? h1 : 100.0 * h0;
     }
     std::uint32_t attempts = 0u;
-    while (t != t1) {
+    while (t > t1) {
         // nextafter toward t1 is nextafter toward the direction of integration (t != t1).
         const real min_step = 10.0 * std::fabs(std::nextafter(t, t1) - t);
         if (h_abs < min_step) h_abs = min_step;  // as SciPy: only rejections end in step_too_small
@@ -208,7 +208,7 @@ result block_rewind(real* work, const real* in, real* out, counters& count) noex
                 continue;
             }
             real factor = max_factor;
-            if (err != 0.0) {
+            if (err > 0.0) {
                 const real grow = safety * std::pow(err, exponent);
                 factor = grow < max_factor ? grow : max_factor;
             }
@@ -218,7 +218,7 @@ result block_rewind(real* work, const real* in, real* out, counters& count) noex
             t = t_new;
             for (std::size_t j = 0; j < n; ++j) y[j] = y_new[j];
             if (!all_finite(y, n)) return result::state_not_finite;
-            if (t != t1) field_rewind(t, y, k1, count);
+            if (t > t1) field_rewind(t, y, k1, count);
             break;
         }
     }
