@@ -214,7 +214,8 @@ std::string render_verify(const VerifyReport& r, Precision p) {
     s += fmt::format("outputs per row      {}\n", r.outputs);
     s += fmt::format("precision            {}\n", p == Precision::float32 ? "float32" : "float64");
     s += fmt::format("largest abs. error   {:.3g} (row {}, output {})\n", r.max_abs, r.max_abs_row + 1, r.max_abs_col);
-    s += fmt::format("largest rel. error   {:.3g} (row {}, output {})\n", r.max_rel, r.max_rel_row + 1, r.max_rel_col);
+    s += fmt::format("largest rel. error   {:.3g} (row {}, output {}; |emitted - eval| / |eval|)\n", r.max_rel,
+                     r.max_rel_row + 1, r.max_rel_col);
     s += fmt::format("tolerance            {:.3g} x max(1, |eval|){}\n", r.tolerance,
                      r.tolerance == default_tolerance(p) ? " (default for this precision)" : "");
     s += fmt::format("field evaluations    emitted {}, eval {}\n", r.field_evals, r.eval_field_evals);
