@@ -143,24 +143,6 @@ void names_in(const std::vector<Block>& blocks, std::set<std::string>& out) {
     }
 }
 
-const std::string& block_name(const Block& b) {
-    switch (b.kind) {
-    case Block::Kind::dense: return b.dense.name;
-    case Block::Kind::residual: return b.residual.name;
-    case Block::Kind::continuous: return b.continuous.name;
-    }
-    return b.dense.name;
-}
-
-int out_width(const Block& b) {
-    switch (b.kind) {
-    case Block::Kind::dense: return b.dense.out;
-    case Block::Kind::residual: return b.residual.width;
-    case Block::Kind::continuous: return b.continuous.state();
-    }
-    return 0;
-}
-
 std::string solver_text(const SolverSpec& s, const Tableau* t) {
     if (t != nullptr && t->adaptive())
         return fmt::format("{}, rtol {}, atol {}, max-steps {}", s.method, format_double(s.rtol),
@@ -199,7 +181,7 @@ Measured measure_evals(const Model& model, const std::vector<std::vector<double>
     for (std::size_t i : cuts) {
         Model p = model;
         p.blocks.resize(i + 1);
-        p.output_size = out_width(p.blocks.back());
+        p.output_size = block_out_width(p.blocks.back());
         prefixes.push_back(std::move(p));
     }
     for (const auto& row : rows) {
@@ -220,14 +202,6 @@ Measured measure_evals(const Model& model, const std::vector<std::vector<double>
 // ---------------------------------------------------------------------------
 // Measuring the emitted object with the cross tools.
 
-std::string quote(const std::string& s) {
-    std::string q = "'";
-    for (char c : s) {
-        if (c == '\'') q += "'\\''"; else q += c;
-    }
-    return q + "'";
-}
-
 bool on_path(const std::string& tool) {
     if (tool.find('/') != std::string::npos) return access(tool.c_str(), X_OK) == 0;
     const char* path = std::getenv("PATH");
@@ -240,17 +214,6 @@ bool on_path(const std::string& tool) {
         if (access(full.c_str(), X_OK) == 0) return true;
     }
     return false;
-}
-
-std::optional<std::string> capture(const std::string& cmd) {
-    FILE* pipe = popen(cmd.c_str(), "r");
-    if (pipe == nullptr) return std::nullopt;
-    std::string out;
-    char buf[4096];
-    std::size_t n;
-    while ((n = std::fread(buf, 1, sizeof buf, pipe)) > 0) out.append(buf, n);
-    if (pclose(pipe) != 0) return std::nullopt;
-    return out;
 }
 
 std::string demangle(const std::string& name) {
@@ -449,60 +412,36 @@ long estimate_code_bytes(const Model& model, CoreClass core) {
     return std::lround(bytes);
 }
 
-struct TempDir {
-    fs::path path;
-    bool keep = false;
-    ~TempDir() {
-        std::error_code ec;
-        if (!keep && !path.empty()) fs::remove_all(path, ec);
-    }
-};
-
 // Compiles the emitted source for the core and fills code, constants, stack.
 bool measure_object(const Model& model, const std::vector<EmittedFile>& files, const CostOptions& opts, CoreClass core,
                     const std::vector<std::pair<std::string, std::set<std::string>>>& block_names, CostReport& rep,
                     Diagnostics& diags) {
-    TempDir dir;
-    std::error_code ec;
-    if (!opts.keep_dir.empty()) {
-        dir.path = opts.keep_dir;
-        dir.keep = true;
-        fs::create_directories(dir.path, ec);
-        if (ec) {
-            diags.error(opts.keep_dir, fmt::format("cannot create folder: {}", ec.message()));
-            return false;
-        }
-    } else {
-        std::string tmpl = (fs::temp_directory_path(ec) / "meander-cost-XXXXXX").string();
-        if (mkdtemp(tmpl.data()) == nullptr) {
-            diags.error(tmpl, "cannot create a temporary folder");
-            return false;
-        }
-        dir.path = tmpl;
-    }
+    auto folder = WorkFolder::open(opts.keep_dir, "meander-cost", diags);
+    if (!folder) return false;
+    const fs::path dir_path = folder->path();
     for (const EmittedFile& f : files)
-        if (!write_file_atomic((dir.path / f.name).string(), f.text, diags)) return false;
+        if (!write_file_atomic((dir_path / f.name).string(), f.text, diags)) return false;
 
     const std::string cxx = opts.cross_prefix + "g++";
     const std::string size = opts.cross_prefix + "size";
-    const fs::path src = dir.path / (model.name + ".cpp");
-    const fs::path obj = dir.path / (model.name + ".o");
+    const fs::path src = dir_path / (model.name + ".cpp");
+    const fs::path obj = dir_path / (model.name + ".o");
     std::string flags;
     for (const std::string& f : core_figures(core).cross_flags) flags += f + " ";
     flags += "-std=c++17 -Os -fno-exceptions -fno-rtti -ffunction-sections -fdata-sections";
-    const std::string cmd = fmt::format("cd {} && {} {} -fstack-usage -fcallgraph-info=su -c {} -o {} 2>&1", quote(dir.path.string()),
-                                        cxx, flags, quote(src.filename().string()), quote(obj.filename().string()));
-    const auto build = capture(cmd);
+    const std::string cmd = fmt::format("cd {} && {} {} -fstack-usage -fcallgraph-info=su -c {} -o {} 2>&1", shell_quote(dir_path.string()),
+                                        cxx, flags, shell_quote(src.filename().string()), shell_quote(obj.filename().string()));
+    const auto build = run_capture(cmd);
     if (!build) {
         diags.error(cxx, "compiling the emitted code for measurement failed");
         return false;
     }
-    const auto sizes_text = capture(fmt::format("{} -A {} 2>&1", size, quote(obj.string())));
+    const auto sizes_text = run_capture(fmt::format("{} -A {} 2>&1", size, shell_quote(obj.string())));
     if (!sizes_text) {
         diags.error(size, "reading the section sizes of the emitted object failed");
         return false;
     }
-    const auto version = capture(fmt::format("{} -dumpversion 2>/dev/null", cxx));
+    const auto version = run_capture(fmt::format("{} -dumpversion 2>/dev/null", cxx));
     std::string ver = version ? *version : "";
     while (!ver.empty() && (ver.back() == '\n' || ver.back() == '\r')) ver.pop_back();
 
@@ -515,9 +454,9 @@ bool measure_object(const Model& model, const std::vector<EmittedFile>& files, c
 
     Diagnostics quiet;
     std::map<std::string, long> frames;
-    if (auto su = read_file((dir.path / (model.name + ".su")).string(), quiet)) frames = parse_su(*su);
+    if (auto su = read_file((dir_path / (model.name + ".su")).string(), quiet)) frames = parse_su(*su);
     CallGraph graph;
-    if (auto ci = read_file((dir.path / (model.name + ".ci")).string(), quiet)) graph = parse_ci(*ci);
+    if (auto ci = read_file((dir_path / (model.name + ".ci")).string(), quiet)) graph = parse_ci(*ci);
     // Call-graph titles are mangled names, behind "file:" for internal ones.
     std::map<std::string, long> frame_of_symbol;
     for (const auto& [title, node] : graph.nodes)

@@ -26,14 +26,6 @@ struct Entry {
     std::string parent;             // name of the enclosing block; empty at the top
 };
 
-const std::string& block_name(const Block& b) {
-    switch (b.kind) {
-        case Block::Kind::residual: return b.residual.name;
-        case Block::Kind::continuous: return b.continuous.name;
-        case Block::Kind::dense: break;
-    }
-    return b.dense.name;
-}
 
 std::string kind_name(Block::Kind k) {
     switch (k) {

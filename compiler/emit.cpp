@@ -189,7 +189,7 @@ private:
 
     // The header carries a stamp that the source checks, so a header and a
     // source from different runs never build together. The stamp hashes the
-    // header's own text (with a placeholder where the stamp goes).
+    // header's own text, taken with kStampHole standing where the stamp then goes.
     static constexpr const char* kStampHole = "@STAMP@";
     static std::string stamp_of(const std::string& hpp) { return fmt::format("0x{:016x}ULL", fnv1a64(hpp)); }
     std::string finish_header(std::string hpp) const {
@@ -547,9 +547,7 @@ const char* result_name(result r) noexcept;
             const std::string src = slot_ptr(op.src, in, out);
             const std::string dst = slot_ptr(op.dst, in, out);
             const Block& b = *op.block;
-            const std::string& name = b.kind == Block::Kind::dense        ? b.dense.name
-                                      : b.kind == Block::Kind::residual ? b.residual.name
-                                                                        : b.continuous.name;
+            const std::string& name = block_name(b);
             if (top) o += fmt::format("{}{}_BLOCK_HOOK(\"{}\", 0);\n", pad, M(), name);
             switch (b.kind) {
             case Block::Kind::dense:

@@ -11,15 +11,6 @@ namespace meander {
 
 namespace {
 
-int out_width_of(const Block& b) {
-    switch (b.kind) {
-    case Block::Kind::dense: return b.dense.out;
-    case Block::Kind::residual: return b.residual.width;
-    case Block::Kind::continuous: return b.continuous.state();
-    }
-    return 0;
-}
-
 long dense_params(const Dense& d) {
     return static_cast<long>(d.out) * d.in_total() + (d.has_bias ? d.out : 0);
 }
@@ -42,7 +33,7 @@ struct Layout {
         // every intermediate result; the last layer writes the chain's output.
         std::size_t widest = 0;
         for (std::size_t j = 0; j + 1 < n; ++j)
-            widest = std::max(widest, static_cast<std::size_t>(out_width_of(blocks[j])));
+            widest = std::max(widest, static_cast<std::size_t>(block_out_width(blocks[j])));
         const std::size_t pings = n == 0 ? 0 : std::min<std::size_t>(n - 1, 2);
         std::size_t ping[2] = {0, 0};
         for (std::size_t p = 0; p < pings; ++p)
@@ -56,7 +47,7 @@ struct Layout {
             ChainOp op;
             op.block = &b;
             op.in_width = width;
-            op.out_width = out_width_of(b);
+            op.out_width = block_out_width(b);
             op.src = j == 0 ? Slot{Slot::Kind::chain_in, 0} : Slot{Slot::Kind::work, ping[(j - 1) % 2]};
             op.dst = j + 1 == n ? Slot{Slot::Kind::chain_out, 0} : Slot{Slot::Kind::work, ping[j % 2]};
             if (b.kind == Block::Kind::residual) {

@@ -90,9 +90,6 @@ std::string_view kind_name(const Block& b) {
     return b.kind == Block::Kind::residual ? "residual" : "continuous";
 }
 
-const std::string& block_name(const Block& b) {
-    return b.kind == Block::Kind::residual ? b.residual.name : b.continuous.name;
-}
 
 Loc block_loc(const Block& b) {
     return b.kind == Block::Kind::residual ? b.residual.loc : b.continuous.loc;

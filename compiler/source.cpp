@@ -5,6 +5,7 @@
 #include <cerrno>
 #include <cmath>
 #include <cstdio>
+#include <cstdlib>
 #include <cstring>
 #include <filesystem>
 #include <fstream>
@@ -215,6 +216,49 @@ bool write_files_atomic(const std::vector<std::pair<std::string, std::string>>& 
         }
     }
     return true;
+}
+
+std::optional<WorkFolder> WorkFolder::open(const std::string& keep, const std::string& stem, Diagnostics& diags) {
+    namespace fs = std::filesystem;
+    std::error_code ec;
+    if (!keep.empty()) {
+        fs::create_directories(keep, ec);
+        if (ec) {
+            diags.error(keep, fmt::format("cannot create folder: {}", ec.message()));
+            return std::nullopt;
+        }
+        return WorkFolder(keep, true);
+    }
+    std::string tmpl = (fs::temp_directory_path(ec) / (stem + "-XXXXXX")).string();
+    if (mkdtemp(tmpl.data()) == nullptr) {
+        diags.error(tmpl, "cannot create a temporary folder");
+        return std::nullopt;
+    }
+    return WorkFolder(tmpl, false);
+}
+
+WorkFolder::~WorkFolder() {
+    std::error_code ec;
+    if (!keep_ && !path_.empty()) std::filesystem::remove_all(path_, ec);
+}
+
+std::string shell_quote(const std::string& s) {
+    std::string q = "'";
+    for (char c : s) {
+        if (c == '\'') q += "'\\''"; else q += c;
+    }
+    return q + "'";
+}
+
+std::optional<std::string> run_capture(const std::string& command) {
+    FILE* pipe = popen(command.c_str(), "r");
+    if (pipe == nullptr) return std::nullopt;
+    std::string out;
+    char buf[4096];
+    std::size_t n;
+    while ((n = std::fread(buf, 1, sizeof buf, pipe)) > 0) out.append(buf, n);
+    if (pclose(pipe) != 0) return std::nullopt;
+    return out;
 }
 
 std::uint64_t fnv1a64(std::string_view bytes, std::uint64_t seed) {

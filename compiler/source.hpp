@@ -72,6 +72,31 @@ bool write_file_atomic(const std::string& path, std::string_view content, Diagno
 // renamed; when any write fails, none of the files is touched.
 bool write_files_atomic(const std::vector<std::pair<std::string, std::string>>& files, Diagnostics& diags);
 
+// A folder to build emitted code in: `keep` (created if needed, left in place)
+// or, when `keep` is empty, a fresh temporary folder named after `stem` that is
+// removed with this object.
+class WorkFolder {
+public:
+    static std::optional<WorkFolder> open(const std::string& keep, const std::string& stem, Diagnostics& diags);
+    WorkFolder(WorkFolder&& other) noexcept : path_(std::move(other.path_)), keep_(other.keep_) { other.path_.clear(); }
+    WorkFolder(const WorkFolder&) = delete;
+    WorkFolder& operator=(const WorkFolder&) = delete;
+    WorkFolder& operator=(WorkFolder&&) = delete;
+    ~WorkFolder();
+    const std::string& path() const { return path_; }
+
+private:
+    WorkFolder(std::string path, bool keep) : path_(std::move(path)), keep_(keep) {}
+    std::string path_;
+    bool keep_ = false;
+};
+
+// `s` as one word for /bin/sh.
+std::string shell_quote(const std::string& s);
+// Runs `command` through the shell; its standard output, or nullopt when it
+// cannot start or exits non-zero.
+std::optional<std::string> run_capture(const std::string& command);
+
 // 64-bit FNV-1a, for the content hash in emitted banners.
 std::uint64_t fnv1a64(std::string_view bytes, std::uint64_t seed = 0xcbf29ce484222325ULL);
 

@@ -58,26 +58,6 @@ std::string driver_source(const Model& m, const std::vector<std::vector<double>>
     return s;
 }
 
-std::string quote(const std::string& s) {
-    std::string q = "'";
-    for (char c : s) {
-        if (c == '\'') q += "'\\''"; else q += c;
-    }
-    return q + "'";
-}
-
-std::optional<std::string> run_capture(const std::string& cmd) {
-    FILE* pipe = popen(cmd.c_str(), "r");
-    if (!pipe) return std::nullopt;
-    std::string out;
-    char buf[4096];
-    std::size_t n;
-    while ((n = std::fread(buf, 1, sizeof buf, pipe)) > 0) out.append(buf, n);
-    int rc = pclose(pipe);
-    if (rc != 0) return std::nullopt;
-    return out;
-}
-
 unsigned status_code(EvalStatus s) {
     // The emitted result enumerators carry the same order (DEVELOPERS.md, emitted API).
     return static_cast<unsigned>(s);
@@ -89,32 +69,9 @@ std::optional<VerifyReport> verify_model(const Model& model, const EmitOptions& 
                                          const std::vector<std::vector<double>>& inputs,
                                          const VerifyOptions& opts, Diagnostics& diags) {
     const Precision p = emit_opts.precision;
-    std::error_code ec;
-    fs::path dir;
-    bool keep = !opts.keep_dir.empty();
-    if (keep) {
-        dir = opts.keep_dir;
-        fs::create_directories(dir, ec);
-        if (ec) {
-            diags.error(opts.keep_dir, fmt::format("cannot create folder: {}", ec.message()));
-            return std::nullopt;
-        }
-    } else {
-        std::string tmpl = (fs::temp_directory_path(ec) / "meander-verify-XXXXXX").string();
-        if (!mkdtemp(tmpl.data())) {
-            diags.error(tmpl, "cannot create a temporary folder");
-            return std::nullopt;
-        }
-        dir = tmpl;
-    }
-    struct Cleanup {
-        fs::path d;
-        bool keep;
-        ~Cleanup() {
-            std::error_code e;
-            if (!keep) fs::remove_all(d, e);
-        }
-    } cleanup{dir, keep};
+    auto folder = WorkFolder::open(opts.keep_dir, "meander-verify", diags);
+    if (!folder) return std::nullopt;
+    const fs::path dir = folder->path();
 
     for (const auto& f : emit_model(model, emit_opts))
         if (!write_file_atomic((dir / f.name).string(), f.text, diags)) return std::nullopt;
@@ -130,8 +87,8 @@ std::optional<VerifyReport> verify_model(const Model& model, const EmitOptions& 
     std::string cmd = fmt::format(
         "{} -std=c++17 -O2 -Wall -Wextra -Wconversion -Wdouble-promotion -Wshadow -Wfloat-equal -Werror -fno-exceptions -fno-rtti "
         "-o {} {} {} > {} 2>&1",
-        cxx, quote((dir / "verify_driver").string()), quote((dir / "verify_driver.cpp").string()),
-        quote((dir / (model.name + ".cpp")).string()), quote((dir / "build.log").string()));
+        cxx, shell_quote((dir / "verify_driver").string()), shell_quote((dir / "verify_driver.cpp").string()),
+        shell_quote((dir / (model.name + ".cpp")).string()), shell_quote((dir / "build.log").string()));
     if (std::system(cmd.c_str()) != 0) {
         std::string log;
         Diagnostics quiet;
@@ -140,7 +97,7 @@ std::optional<VerifyReport> verify_model(const Model& model, const EmitOptions& 
         diags.error(cxx, fmt::format("building the emitted code failed:\n{}", log));
         return std::nullopt;
     }
-    auto out = run_capture(quote((dir / "verify_driver").string()));
+    auto out = run_capture(shell_quote((dir / "verify_driver").string()));
     if (!out) {
         diags.error((dir / "verify_driver").string(), "the verify driver did not run to completion");
         return std::nullopt;

@@ -108,6 +108,25 @@ struct Model {
     std::vector<Block> blocks;
 };
 
+// The name of a layer or block, and the width it hands to what follows.
+inline const std::string& block_name(const Block& b) {
+    switch (b.kind) {
+    case Block::Kind::residual: return b.residual.name;
+    case Block::Kind::continuous: return b.continuous.name;
+    case Block::Kind::dense: break;
+    }
+    return b.dense.name;
+}
+
+inline int block_out_width(const Block& b) {
+    switch (b.kind) {
+    case Block::Kind::residual: return b.residual.width;
+    case Block::Kind::continuous: return b.continuous.state();
+    case Block::Kind::dense: break;
+    }
+    return b.dense.out;
+}
+
 // Calls f(const Dense&) for every dense layer, in description order, through
 // residual bodies and fields.
 template <class F>
