@@ -12,6 +12,7 @@
 #include <map>
 #include <string>
 
+#include "../runtime/evaluate.hpp"
 #include "../runtime/integrate.hpp"
 #include "../runtime/tableau.hpp"
 #include "format.hpp"
@@ -422,37 +423,31 @@ struct Checker {
 
     // The emitted header states parameters and MACs per field evaluation as
     // 32-bit constants and the worst-case MACs as a 64-bit one; a model too big
-    // for them would emit a header that does not compile. Counted in long
-    // double, which cannot overflow for widths within kMaxWidth.
+    // for them would emit a header that does not compile. With every width at
+    // most kMaxWidth a layer's MACs stay below 2^41, so the sums fit a long;
+    // only the worst case per inference needs a wider type.
     void constants_fit() {
-        long double params = 0, field = 0, outside = 0, worst = 0;
-        auto add_dense = [&](const Dense& d, long double& macs) {
-            const long double m = static_cast<long double>(d.out) * d.in_total();
-            params += m + (d.has_bias ? d.out : 0);
-            macs += m;
-        };
-        // Top level: MACs outside fields once; each continuous block's field
-        // MACs times its worst-case evaluations.
-        for (const Block& b : model.blocks) {
+        long params = 0, macs = 0, field = 0;
+        for_each_dense(model.blocks, [&](const Dense& d) {
+            params += dense_macs(d) + (d.has_bias ? d.out : 0);
+            macs += dense_macs(d);
+        });
+        long double worst = 0;
+        for (const Block& b : model.blocks)
             if (b.kind == Block::Kind::continuous) {
-                long double f = 0;
-                for_each_dense(b.continuous.field, [&](const Dense& d) { add_dense(d, f); });
+                const long f = field_macs(b.continuous);
                 field += f;
-                worst += f * static_cast<long double>(worst_field_evals(b.continuous.solver));
-            } else {
-                std::vector<Block> one{b};
-                for_each_dense(one, [&](const Dense& d) { add_dense(d, outside); });
+                worst += static_cast<long double>(f) * static_cast<long double>(worst_field_evals(b.continuous.solver));
             }
-        }
-        worst += outside;
-        const long double u32 = 4294967295.0L, u64 = 18446744073709551615.0L;
+        worst += static_cast<long double>(macs - field);  // the layers outside fields run once
+        const long u32 = 4294967295L;
         if (params > u32)
-            error(model.loc, fmt::format("model '{}' has {:.0Lf} parameters, more than the emitted 32-bit constant holds "
-                                         "({:.0Lf})", model.name, params, u32));
+            error(model.loc, fmt::format("model '{}' has {} parameters, more than the emitted 32-bit constant holds ({})",
+                                         model.name, params, u32));
         else if (field > u32)
-            error(model.loc, fmt::format("model '{}' needs {:.0Lf} multiply-accumulates per field evaluation, more than "
-                                         "the emitted 32-bit constant holds ({:.0Lf})", model.name, field, u32));
-        else if (worst > u64)
+            error(model.loc, fmt::format("model '{}' needs {} multiply-accumulates per field evaluation, more than the "
+                                         "emitted 32-bit constant holds ({})", model.name, field, u32));
+        else if (worst > 18446744073709551615.0L)
             error(model.loc, fmt::format("model '{}' needs up to {:.3Le} multiply-accumulates per inference, more than "
                                          "the emitted 64-bit constant holds", model.name, worst));
     }

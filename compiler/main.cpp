@@ -57,13 +57,11 @@ bool flush(const Diagnostics& diags) {
     return diags.ok();
 }
 
-using Loaded = LoadedModel;
-
 Precision precision_of(const std::string& s) { return s == "float64" ? Precision::float64 : Precision::float32; }
 
 // The model and the rows of an input CSV of its input width.
 struct LoadedWithRows {
-    Loaded loaded;
+    LoadedModel loaded;
     std::vector<std::vector<double>> rows;
     std::vector<int> lines;         // the CSV line of each row
 };
@@ -138,7 +136,7 @@ int cmd_eval(const std::string& model_path, const std::string& input, const std:
     return 0;
 }
 
-EmitOptions emit_options(const Loaded& l, Precision p, bool c_api) {
+EmitOptions emit_options(const LoadedModel& l, Precision p, bool c_api) {
     EmitOptions o;
     o.precision = p;
     o.c_api = c_api;
