@@ -4,17 +4,18 @@
 
 namespace meander {
 
-namespace {
-
-void apply_dense(const Dense& d, double t, const Eigen::VectorXd& x, Eigen::VectorXd& y) {
+void dense_affine(const Dense& d, double t, const Eigen::VectorXd& x, Eigen::VectorXd& z) {
     if (d.time_input) {
         Eigen::VectorXd xt(x.size() + 1);
         xt << x, t;  // time is the last input column
-        y = d.weight * xt;
+        z = d.weight * xt;
     } else {
-        y = d.weight * x;
+        z = d.weight * x;
     }
-    if (d.has_bias) y += d.bias;
+    if (d.has_bias) z += d.bias;
+}
+
+void dense_activate(const Dense& d, Eigen::VectorXd& y) {
     if (d.act == Activation::softmax) {
         // Max-subtracted: exp never overflows and the largest term is 1.
         const Eigen::ArrayXd z = (y.array() - y.maxCoeff()).exp();
@@ -23,6 +24,13 @@ void apply_dense(const Dense& d, double t, const Eigen::VectorXd& x, Eigen::Vect
     }
     for (Eigen::Index i = 0; i < y.size(); ++i) y[i] = activate(d.act, y[i], d.act_param);
 }
+
+void apply_dense(const Dense& d, double t, const Eigen::VectorXd& x, Eigen::VectorXd& y) {
+    dense_affine(d, t, x, y);
+    dense_activate(d, y);
+}
+
+namespace {
 
 // Dense layers and residual blocks in order (a residual body or a field).
 void apply_sequence(const std::vector<Block>& blocks, double t, const Eigen::VectorXd& x, Eigen::VectorXd& y);

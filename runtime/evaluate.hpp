@@ -23,6 +23,13 @@ struct EvalResult {
 // `model` must have passed check_model and bind_weights.
 EvalResult evaluate(const Model& model, const Eigen::VectorXd& input);
 
+// One dense layer, y = act(W [x; t] + b), in two halves: the affine map
+// (z = W [x; t] + b) and the activation applied to z in place. The gradient
+// passes (runtime/vjp.cpp) call the same two, so forward values agree bit for bit.
+void dense_affine(const Dense& d, double t, const Eigen::VectorXd& x, Eigen::VectorXd& z);
+void dense_activate(const Dense& d, Eigen::VectorXd& y);
+void apply_dense(const Dense& d, double t, const Eigen::VectorXd& x, Eigen::VectorXd& y);
+
 // One field evaluation of a continuous block: dy = f(t, y), y of size block.state().
 void eval_field(const Continuous& block, double t, const Eigen::VectorXd& y, Eigen::VectorXd& dy);
 
