@@ -1,7 +1,7 @@
 // Self-test source: NAME_selftest.hpp/.cpp with golden inputs, the outputs
 // eval gave for them, and a function that runs them through `infer`.
 // emit_model calls emit_self_test when EmitOptions.self_test_inputs is not
-// empty; the helpers below are shared by emit.cpp and selftest.cpp.
+// empty; the helpers below are shared by compiler/emit/ and selftest.cpp.
 #pragma once
 
 #include <string>

@@ -1,5 +1,5 @@
 // Activations in numerically stable forms, for double (reference) and float.
-// The emitter writes the same formulas into emitted code (compiler/emit.cpp).
+// The emitter writes the same formulas into emitted code (compiler/emit/activations.cpp).
 #pragma once
 
 #include <cmath>

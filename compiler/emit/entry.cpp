@@ -1,0 +1,104 @@
+// Emit, entry points: the chains of layers, infer, result_name and the C
+// entry point.
+#include <fmt/format.h>
+
+#include "render.hpp"
+
+namespace meander::emit_detail {
+
+bool chain_uses_work(const Chain& c) {
+    for (const ChainOp& op : c.ops) {
+        if (op.src.kind == Slot::Kind::work || op.dst.kind == Slot::Kind::work) return true;
+        if (op.block->kind == Block::Kind::residual && chain_uses_work(op.body)) return true;
+        if (op.block->kind == Block::Kind::continuous) return true;
+    }
+    return false;
+}
+
+namespace {
+
+std::string slot_ptr(const Slot& s, const std::string& in, const std::string& out) {
+    switch (s.kind) {
+    case Slot::Kind::chain_in: return in;
+    case Slot::Kind::chain_out: return out;
+    case Slot::Kind::work: return fmt::format("work + {}", s.offset);
+    }
+    return in;
+}
+std::string slot_at(const Slot& s, const std::string& in, const std::string& out) {
+    switch (s.kind) {
+    case Slot::Kind::chain_in: return in + "[i]";
+    case Slot::Kind::chain_out: return out + "[i]";
+    case Slot::Kind::work: return fmt::format("work[{} + i]", s.offset);
+    }
+    return in;
+}
+
+}  // namespace
+
+void render_chain(const Emission& e, std::string& o, const Chain& c, const std::string& in, const std::string& out,
+                  const std::string& pad, bool top) {
+    for (const ChainOp& op : c.ops) {
+        const std::string src = slot_ptr(op.src, in, out);
+        const std::string dst = slot_ptr(op.dst, in, out);
+        const Block& b = *op.block;
+        const std::string& name = block_name(b);
+        if (top) o += fmt::format("{}{}_BLOCK_HOOK(\"{}\", 0);\n", pad, e.M(), name);
+        switch (b.kind) {
+        case Block::Kind::dense:
+            o += fmt::format("{}dense_{}({}, {}{});\n", pad, b.dense.name, src, b.dense.time_input ? "t, " : "", dst);
+            break;
+        case Block::Kind::residual:
+            o += fmt::format("{}// residual {}: {} = x + g(x)\n", pad, b.residual.name, dst);
+            render_chain(e, o, op.body, src, dst, pad, false);
+            o += fmt::format("{}for (std::size_t i = 0; i < {}; ++i) {} += {};\n", pad, b.residual.width,
+                             slot_at(op.dst, in, out), slot_at(op.src, in, out));
+            break;
+        case Block::Kind::continuous:
+            o += fmt::format("{}if (const result r = block_{}(work, {}, {}, ctx.count); r != result::ok) return r;\n",
+                             pad, b.continuous.name, src, dst);
+            break;
+        }
+        if (top) o += fmt::format("{}{}_BLOCK_HOOK(\"{}\", 1);\n", pad, e.M(), name);
+        if (top && b.kind != Block::Kind::continuous)
+            o += fmt::format("{}if (!all_finite({}, {})) return result::state_not_finite;\n", pad, dst, op.out_width);
+    }
+}
+
+std::string render_infer(const Emission& e) {
+    std::string o;
+    o += "result infer(context& ctx, const real* input, real* output) noexcept {\n";
+    o += "    ctx.count = counters{0u, 0u, 0u};\n";
+    o += "    for (std::size_t i = 0; i < input_size; ++i)\n";
+    o += "        if (!std::isfinite(input[i])) return result::input_not_finite;\n";
+    if (chain_uses_work(e.low.top)) o += "    real* const work = ctx.work;\n";
+    if (e.low.top.ops.empty()) o += "    for (std::size_t i = 0; i < output_size; ++i) output[i] = input[i];\n";
+    render_chain(e, o, e.low.top, "input", "output", "    ", true);
+    o += "    return result::ok;\n}\n\n";
+    return o;
+}
+
+
+std::string render_result_name() {
+    return R"(const char* result_name(result r) noexcept {
+    switch (r) {
+    case result::ok: return "ok";
+    case result::input_not_finite: return "input_not_finite";
+    case result::state_not_finite: return "state_not_finite";
+    case result::step_limit: return "step_limit";
+    case result::step_too_small: return "step_too_small";
+    }
+    return "unknown";
+}
+
+)";
+}
+
+std::string render_c_entry(const Emission& e) {
+    return fmt::format("\nextern \"C\" int {0}_infer(void* context, const {1}* input, {1}* output) noexcept {{\n"
+                       "    return static_cast<int>({0}::infer(*static_cast<{0}::context*>(context), input, "
+                       "output));\n}}\n",
+                       e.model.name, e.real_name());
+}
+
+}  // namespace meander::emit_detail

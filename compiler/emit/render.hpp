@@ -1,0 +1,64 @@
+// The emitter's parts: each renders one part of NAME.hpp / NAME.cpp from the
+// lowered plan. emit.cpp puts them together in file order:
+//   header.cpp       banner and the header's contract (sizes, result codes, context)
+//   weights.cpp      weight and bias tables
+//   activations.cpp  math and activation kernels
+//   dense.cpp        dense layer kernels
+//   integrators.cpp  fields and continuous blocks (the unrolled Runge-Kutta loops)
+//   entry.cpp        chains of layers, infer, result_name and the C entry point
+#pragma once
+
+#include <string>
+
+#include "../../runtime/model.hpp"
+#include "../emit.hpp"
+#include "../lower.hpp"
+#include "../selftest.hpp"
+
+namespace meander::emit_detail {
+
+// What every part reads: the model, the options and the lowered plan.
+struct Emission {
+    Emission(const Model& m, const EmitOptions& o) : model(m), opts(o), p(o.precision), low(lower_model(m, p)) {}
+    const Model& model;
+    const EmitOptions& opts;
+    Precision p;
+    Lowered low;
+
+    std::string L(double v) const { return real_literal(v, p); }
+    std::string M() const { return macro_prefix(model.name); }
+    std::string real_name() const { return real_type(p); }
+};
+
+// header.cpp: NAME.hpp with kStampHole where the stamp goes; stamp_of hashes
+// that text, finish_header puts the stamp in.
+extern const char* const kStampHole;
+std::string render_header(const Emission& e);
+std::string stamp_of(const std::string& hpp);
+std::string finish_header(std::string hpp);
+
+// weights.cpp
+std::string render_weights(const Emission& e);
+
+// activations.cpp: the kernels the model's layers use, and a call of one.
+std::string render_activations(const Emission& e);
+std::string apply_activation(const Emission& e, const Dense& d, const std::string& x);
+
+// dense.cpp
+std::string render_dense_layers(const Emission& e);
+
+// integrators.cpp
+std::string render_continuous(const Emission& e, const ContinuousPlan& cp);
+
+// entry.cpp. `chain` renders a chain's statements; `in`/`out` are the pointer
+// expressions of the chain's own input and output; `top`: the model's own
+// chain (checks finiteness after every layer, as the reference evaluator
+// does, and runs continuous blocks).
+bool chain_uses_work(const Chain& c);
+void render_chain(const Emission& e, std::string& o, const Chain& c, const std::string& in, const std::string& out,
+                  const std::string& pad, bool top);
+std::string render_infer(const Emission& e);
+std::string render_result_name();
+std::string render_c_entry(const Emission& e);
+
+}  // namespace meander::emit_detail

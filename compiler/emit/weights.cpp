@@ -1,0 +1,39 @@
+// Emit, weight tables: each dense layer's weights (row-major) and bias as
+// constant arrays, in the section the firmware chooses.
+#include <fmt/format.h>
+
+#include "render.hpp"
+
+namespace meander::emit_detail {
+
+std::string render_weights(const Emission& e) {
+    std::string o;
+    const std::string M_ = e.M();
+    for_each_dense(e.model.blocks, [&](const Dense& d) {
+        const int cols = d.in_total();
+        std::vector<double> w;
+        w.reserve(static_cast<std::size_t>(d.out * cols));
+        for (int r = 0; r < d.out; ++r)
+            for (int c = 0; c < cols; ++c)
+                w.push_back(d.weight.size() == 0 ? 0.0 : d.weight(r, c));
+        o += fmt::format("// {}: weight {} x {} (row-major, y = W x{} + b){}\n", d.name, d.out, cols,
+                         d.time_input ? " with t as the last column of x" : "",
+                         d.weight_tensor.empty() ? "" : fmt::format(", tensor \"{}\"", d.weight_tensor));
+        o += fmt::format("{}_WEIGHTS_ATTR const real w_{}[{}] = {{\n", M_, d.name, w.size());
+        o += array_rows(w, e.p);
+        o += "};\n";
+        if (d.has_bias) {
+            std::vector<double> b(d.bias.data(), d.bias.data() + d.bias.size());
+            if (b.empty()) b.assign(static_cast<std::size_t>(d.out), 0.0);
+            o += fmt::format("// {}: bias {}{}\n", d.name, d.out,
+                             d.bias_tensor.empty() ? "" : fmt::format(", tensor \"{}\"", d.bias_tensor));
+            o += fmt::format("{}_WEIGHTS_ATTR const real b_{}[{}] = {{\n", M_, d.name, b.size());
+            o += array_rows(b, e.p);
+            o += "};\n";
+        }
+        o += "\n";
+    });
+    return o;
+}
+
+}  // namespace meander::emit_detail
