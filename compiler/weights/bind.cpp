@@ -1,0 +1,230 @@
+// Binding the tensors of a set to the model's dense layers, and the check
+// that the chosen precision can hold them.
+#include "formats.hpp"
+
+#include <fmt/format.h>
+#include <fmt/ranges.h>
+
+#include <algorithm>
+#include <cmath>
+#include <limits>
+
+namespace meander {
+
+using namespace weights;
+
+namespace {
+
+std::size_t edit_distance(const std::string& a, const std::string& b) {
+    std::vector<std::size_t> prev(b.size() + 1), cur(b.size() + 1);
+    for (std::size_t j = 0; j <= b.size(); ++j) prev[j] = j;
+    for (std::size_t i = 1; i <= a.size(); ++i) {
+        cur[0] = i;
+        for (std::size_t j = 1; j <= b.size(); ++j)
+            cur[j] = std::min({prev[j] + 1, cur[j - 1] + 1, prev[j - 1] + (a[i - 1] == b[j - 1] ? 0 : 1)});
+        std::swap(prev, cur);
+    }
+    return prev[b.size()];
+}
+
+bool ends_with(const std::string& s, const std::string& suffix) {
+    return s.size() >= suffix.size() && s.compare(s.size() - suffix.size(), suffix.size(), suffix) == 0;
+}
+
+std::string quoted_list(const std::vector<std::string>& names, std::size_t limit) {
+    std::string out;
+    for (std::size_t i = 0; i < names.size() && i < limit; ++i)
+        out += fmt::format("{}'{}'", i ? ", " : "", names[i]);
+    if (names.size() > limit) out += fmt::format(" and {} more", names.size() - limit);
+    return out;
+}
+
+std::string count_text(std::size_t n, const char* word) {
+    return fmt::format("{} {}{}", n, word, n == 1 ? "" : "s");
+}
+
+class Binder {
+public:
+    Binder(const Source& src, const TensorSet& set, Diagnostics& diags)
+        : src_(src), set_(set), diags_(diags), used_(set.tensors.size(), false) {}
+
+    // Names some layer asks for: never offered as a close name to another.
+    void collect(const std::vector<Block>& bs) {
+        for (const auto& b : bs) {
+            if (b.kind == Block::Kind::dense) {
+                wanted_.push_back(weight_name(b.dense));
+                if (b.dense.has_bias) wanted_.push_back(bias_name(b.dense));
+            } else if (b.kind == Block::Kind::residual) {
+                collect(b.residual.body);
+            } else {
+                collect(b.continuous.field);
+            }
+        }
+    }
+
+    void blocks(std::vector<Block>& bs) {
+        for (auto& b : bs) {
+            if (b.kind == Block::Kind::dense) dense(b.dense);
+            else if (b.kind == Block::Kind::residual) blocks(b.residual.body);
+            else blocks(b.continuous.field);
+        }
+    }
+
+    void unused(const Model& model) {
+        std::vector<std::string> names;
+        for (std::size_t i = 0; i < used_.size(); ++i)
+            if (!used_[i]) names.push_back(set_.tensors[i].name);
+        if (names.empty()) return;
+        std::string msg = names.size() == 1
+            ? fmt::format("tensor '{}' in {} is not used by any layer", names[0], set_.path)
+            : fmt::format("{} tensors in {} are not used by any layer: {}", names.size(), set_.path, quoted_list(names, 10));
+        diags_.error(src_, model.weights_loc, msg);
+        // A bias left over by a layer declared without one is the usual cause.
+        for (const Dense* d : no_bias_)
+            for (const auto& n : names)
+                if (n == bias_name(*d))
+                    diags_.note(src_, d->loc, fmt::format("layer '{}' is declared no-bias", d->name));
+    }
+
+private:
+    const Source& src_;
+    const TensorSet& set_;
+    Diagnostics& diags_;
+    std::vector<bool> used_;
+    std::vector<const Dense*> no_bias_;
+    std::vector<std::string> wanted_;
+
+    static std::string weight_name(const Dense& d) { return d.weight_tensor.empty() ? d.name + ".weight" : d.weight_tensor; }
+    static std::string bias_name(const Dense& d) { return d.bias_tensor.empty() ? d.name + ".bias" : d.bias_tensor; }
+
+    const Tensor* lookup(const Dense& d, const std::string& name) {
+        for (std::size_t i = 0; i < set_.tensors.size(); ++i)
+            if (set_.tensors[i].name == name) {
+                used_[i] = true;
+                return &set_.tensors[i];
+            }
+        // Close names: a small edit away, or the same name under a prefix
+        // (a module path from the training script).
+        std::vector<std::pair<std::size_t, std::string>> close;
+        std::size_t limit = std::max<std::size_t>(2, std::min<std::size_t>(3, name.size() / 4));
+        for (const auto& t : set_.tensors) {
+            if (std::find(wanted_.begin(), wanted_.end(), t.name) != wanted_.end()) continue;
+            std::size_t dist = edit_distance(name, t.name);
+            if (dist <= limit || ends_with(t.name, "." + name) || ends_with(name, "." + t.name)) close.emplace_back(dist, t.name);
+        }
+        std::sort(close.begin(), close.end());
+        std::string msg = fmt::format("layer '{}': no tensor '{}' in {}", d.name, name, set_.path);
+        if (!close.empty()) {
+            std::vector<std::string> names;
+            for (auto& c : close) names.push_back(c.second);
+            msg += fmt::format("; close names: {}", quoted_list(names, 5));
+        } else {
+            msg += fmt::format(" (it holds {})", count_text(set_.tensors.size(), "tensor"));
+        }
+        diags_.error(src_, d.loc, msg);
+        return nullptr;
+    }
+
+    bool shape_ok(const Dense& d, const Tensor& t, const std::vector<std::size_t>& want) {
+        if (t.shape == want) {
+            // The readers guarantee this; a set built in code might not.
+            if (t.values.size() == *element_count(want)) return true;
+            diags_.error(src_, d.loc, fmt::format("layer '{}': tensor '{}' holds {} values for its shape {}", d.name,
+                                                  t.name, t.values.size(), shape_text(t.shape)));
+            return false;
+        }
+        std::string msg = fmt::format("layer '{}': tensor '{}' has shape {}, expected {}", d.name, t.name,
+                                      shape_text(t.shape), shape_text(want));
+        if (want.size() == 2 && t.shape.size() == 2 && want[0] != want[1] && t.shape[0] == want[1] && t.shape[1] == want[0])
+            msg += ": it looks transposed (a weight is (out, in))";
+        else if (d.time_input && want.size() == 2 && t.shape.size() == 2 && t.shape[0] == want[0] && t.shape[1] + 1 == want[1])
+            msg += ": with '+ t' the weight has one more column, for time (the last)";
+        diags_.error(src_, d.loc, msg);
+        return false;
+    }
+
+    bool finite(const Dense& d, const Tensor& t) {
+        for (std::size_t i = 0; i < t.values.size(); ++i) {
+            double v = t.values[i];
+            if (std::isfinite(v)) continue;
+            const char* what = std::isnan(v) ? "NaN" : v > 0 ? "inf" : "-inf";
+            // The multi-index too: people look values up as w[i, j].
+            std::vector<std::size_t> idx(t.shape.size());
+            std::size_t rest = i;
+            for (std::size_t k = t.shape.size(); k-- > 0;) {
+                idx[k] = rest % t.shape[k];
+                rest /= t.shape[k];
+            }
+            diags_.error(src_, d.loc, fmt::format("layer '{}': tensor '{}' holds {} at flat index {} [{}]",
+                                                  d.name, t.name, what, i, fmt::join(idx, ", ")));
+            return false;
+        }
+        return true;
+    }
+
+    void dense(Dense& d) {
+        const std::size_t out = static_cast<std::size_t>(std::max(d.out, 0));
+        const std::size_t in = static_cast<std::size_t>(std::max(d.in_total(), 0));
+        const Tensor* w = lookup(d, weight_name(d));
+        if (w && shape_ok(d, *w, {out, in}) && finite(d, *w)) {
+            d.weight.resize(static_cast<Eigen::Index>(out), static_cast<Eigen::Index>(in));
+            for (std::size_t r = 0; r < out; ++r)
+                for (std::size_t c = 0; c < in; ++c)
+                    d.weight(static_cast<Eigen::Index>(r), static_cast<Eigen::Index>(c)) = w->values[r * in + c];
+        }
+        if (!d.has_bias) {
+            d.bias.resize(0);
+            no_bias_.push_back(&d);
+            return;
+        }
+        const Tensor* b = lookup(d, bias_name(d));
+        if (b && shape_ok(d, *b, {out}) && finite(d, *b)) {
+            d.bias.resize(static_cast<Eigen::Index>(out));
+            for (std::size_t r = 0; r < out; ++r) d.bias(static_cast<Eigen::Index>(r)) = b->values[r];
+        }
+    }
+};
+
+}  // namespace
+
+bool bind_weights(Model& model, const Source& src, const TensorSet& set, Diagnostics& diags) {
+    int before = diags.error_count();
+    Binder binder(src, set, diags);
+    binder.collect(model.blocks);
+    binder.blocks(model.blocks);
+    binder.unused(model);
+    return diags.error_count() == before;
+}
+
+bool check_weight_range(const Model& model, const Source& src, Precision precision, Diagnostics& diags) {
+    if (precision != Precision::float32) return true;
+    const int before = diags.error_count();
+    auto scan = [&](const Dense& d, const std::string& tensor, const double* v, Eigen::Index n) {
+        Eigen::Index flushed = 0;
+        for (Eigen::Index i = 0; i < n; ++i) {
+            double a = std::fabs(v[i]);
+            if (a > static_cast<double>(std::numeric_limits<float>::max())) {
+                diags.error(src, d.loc,
+                            fmt::format("layer '{}': tensor '{}' holds {} at flat index {}, beyond the float32 range "
+                                        "(largest {}); emit with --precision float64 or rescale the layer",
+                                        d.name, tensor, format_double(v[i]), i,
+                                        format_float(std::numeric_limits<float>::max())));
+                return;
+            }
+            if (a != 0.0 && static_cast<float>(v[i]) == 0.0f) ++flushed;
+        }
+        if (flushed)
+            diags.warning(src, d.loc,
+                          fmt::format("layer '{}': {} values of tensor '{}' are too small for float32 and become 0",
+                                      d.name, flushed, tensor));
+    };
+    for_each_dense(model.blocks, [&](const Dense& d) {
+        // Eigen stores the weight column-major; the order only matters for the index in the message.
+        Eigen::Matrix<double, Eigen::Dynamic, Eigen::Dynamic, Eigen::RowMajor> w = d.weight;
+        scan(d, d.weight_tensor, w.data(), w.size());
+        if (d.has_bias) scan(d, d.bias_tensor, d.bias.data(), d.bias.size());
+    });
+    return diags.error_count() == before;
+}
+
+}  // namespace meander

@@ -1,0 +1,50 @@
+// The weight file formats, each with an entry point that reads bytes already
+// in memory (the file-reading wrappers in read.cpp call them, and so can a
+// fuzzer), and the helpers they share.
+#pragma once
+
+#include <cstddef>
+#include <cstdint>
+#include <optional>
+#include <string>
+#include <string_view>
+#include <utility>
+#include <vector>
+
+#include "../weights.hpp"
+
+namespace meander::weights {
+
+constexpr std::size_t max_rank = 4;
+
+// Python's spelling of a shape: (), (16,), (16, 6).
+std::string shape_text(const std::vector<std::size_t>& shape);
+// Element count, or nullopt when the product overflows.
+std::optional<std::size_t> element_count(const std::vector<std::size_t>& shape);
+std::string lower(std::string s);
+bool host_is_little();
+// Unsigned little-endian integer of `n` bytes at `at`.
+std::uint64_t read_le(std::string_view b, std::size_t at, std::size_t n);
+
+// .npy (npy.cpp): one whole .npy image; on failure returns nullopt and sets `error`.
+std::optional<Tensor> parse_npy(std::string_view bytes, std::string name, std::string& error);
+// Name of a tensor stored as "STEM.npy" (case of the suffix ignored).
+bool npy_stem(const std::string& file, std::string& stem);
+// A .npy file's bytes as a set of one tensor named after the stem of `path`.
+std::optional<TensorSet> read_npy_bytes(std::string_view bytes, const std::string& path, Diagnostics& diags);
+
+// A folder of .npy files (folder.cpp): `files` holds (file name, bytes) pairs
+// in name order; `path` is the folder, for messages.
+std::optional<TensorSet> read_npy_folder_files(const std::string& path,
+                                               const std::vector<std::pair<std::string, std::string>>& files,
+                                               Diagnostics& diags);
+// The .npy files of a folder, sorted by file name (bytewise) for determinism.
+std::optional<std::vector<std::string>> npy_files_in(const std::string& folder, Diagnostics& diags);
+
+// .npz (npz.cpp): the archive's bytes; `path` names it in messages.
+std::optional<TensorSet> read_npz_bytes(std::string_view bytes, const std::string& path, Diagnostics& diags);
+
+// Weight listing (listing.cpp): the listing's text; `path` names it in messages.
+std::optional<TensorSet> read_listing_bytes(std::string text, const std::string& path, Diagnostics& diags);
+
+}  // namespace meander::weights
