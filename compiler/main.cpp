@@ -3,7 +3,11 @@
 #include <CLI/CLI.hpp>
 #include <fmt/format.h>
 
+#include <unistd.h>
+
+#include <atomic>
 #include <cmath>
+#include <csignal>
 #include <cstdio>
 #include <filesystem>
 
@@ -12,8 +16,13 @@
 #include "compiler/dump.hpp"
 #include "compiler/emit.hpp"
 #include "compiler/format.hpp"
+#include "compiler/labels.hpp"
 #include "compiler/load.hpp"
 #include "compiler/lower.hpp"
+#include "compiler/npz_writer.hpp"
+#include "compiler/parse.hpp"
+#include "compiler/check.hpp"
+#include "compiler/refit.hpp"
 #include "compiler/source.hpp"
 #include "compiler/tune.hpp"
 #include "compiler/verify.hpp"
@@ -98,11 +107,16 @@ int cmd_check(const std::string& model_path, const std::string& precision) {
     return 0;
 }
 
-int cmd_eval(const std::string& model_path, const std::string& input, const std::string& output, bool stats) {
+int cmd_eval(const std::string& model_path, const std::string& input, const std::string& output, bool stats,
+             const std::string& labels_path) {
     Diagnostics diags;
     auto in = load_with_rows(model_path, Precision::float64, input, diags);
     if (!in) return flush(diags), kModelError;
     const Model& model = in->loaded.model;
+    std::optional<Labels> labels;
+    if (!labels_path.empty() && !(labels = read_labels(labels_path, model, in->rows.size(), diags)))
+        return flush(diags), kModelError;
+    std::vector<Eigen::VectorXd> outputs;
     std::string csv = csv_header(model);
     std::string stat_text;
     if (stats) stat_text = "row  field_evals  steps_taken  steps_rejected  h_min  h_max\n";
@@ -121,6 +135,7 @@ int cmd_eval(const std::string& model_path, const std::string& input, const std:
         }
         for (Eigen::Index i = 0; i < r.output.size(); ++i) csv += (i ? "," : "") + format_double(r.output[i]);
         csv += "\n";
+        outputs.push_back(r.output);
         if (stats)
             stat_text += fmt::format("{}  {}  {}  {}  {}  {}\n", row, r.stats.field_evals, r.stats.steps_taken,
                                      r.stats.steps_rejected, format_double(r.stats.h_min), format_double(r.stats.h_max));
@@ -133,6 +148,9 @@ int cmd_eval(const std::string& model_path, const std::string& input, const std:
     }
     flush(diags);
     if (stats) std::fputs(stat_text.c_str(), stderr);
+    if (labels)  // beside the CSV, not in it
+        std::fprintf(stderr, "%s: %s\n", labels_path.c_str(),
+                     metric_text(task_metric(is_classifier(model), outputs, *labels), model).c_str());
     return 0;
 }
 
@@ -238,12 +256,17 @@ int cmd_cost(const std::string& model_path, const std::string& input, const std:
 }
 
 int cmd_tune(const std::string& model_path, const std::string& input, const std::string& precision, double target,
-             const std::vector<std::string>& methods, int sweep, bool json) {
+             const std::vector<std::string>& methods, int sweep, bool json, const std::string& labels_path,
+             std::optional<double> metric_slack) {
     Diagnostics diags;
     Precision p = precision_of(precision);
     auto in = load_with_rows(model_path, p, input, diags);
     if (!in) return flush(diags), kModelError;
     TuneOptions to;
+    if (!labels_path.empty() && !(to.labels = read_labels(labels_path, in->loaded.model, in->rows.size(), diags)))
+        return flush(diags), kModelError;
+    to.classification = is_classifier(in->loaded.model);
+    to.metric_slack = metric_slack;
     to.target = target;
     to.methods = methods;
     to.max_steps_sweep = sweep;
@@ -253,6 +276,118 @@ int cmd_tune(const std::string& model_path, const std::string& input, const std:
     flush(diags);
     if (!rep) return kModelError;
     std::fputs((json ? render_tune_json(*rep) : render_tune_text(*rep)).c_str(), stdout);
+    return 0;
+}
+
+std::atomic<bool> g_interrupted{false};
+extern "C" void on_interrupt(int) { g_interrupted.store(true); }
+
+struct RefitArgs {
+    std::string method;
+    int steps = 0;
+    double rtol = 0, atol = 0;
+    int max_steps = 0;
+    std::vector<std::string> blocks;
+    std::string labels, fit = "reference", way = "discrete", check_input, check_labels;
+    RefitOptions o;
+};
+
+// Refit: train, then write NEW.mnd, NEW.npz and NEW.mnw together, or nothing.
+int cmd_refit(const std::string& model_path, const std::string& input, const std::string& out_path, RefitArgs& a) {
+    Diagnostics diags;
+    auto in = load_with_rows(model_path, Precision::float64, input, diags);
+    if (!in) return flush(diags), kModelError;
+    const Model& model = in->loaded.model;
+    RefitOptions& o = a.o;
+    o.inputs = in->rows;
+    o.classification = is_classifier(model);
+    o.fit_labels = a.fit == "labels";
+    o.way = a.way == "adjoint" ? GradientWay::adjoint : GradientWay::discrete;
+    if (!a.labels.empty() && !(o.labels = read_labels(a.labels, model, in->rows.size(), diags)))
+        return flush(diags), kModelError;
+    if (o.fit_labels && !o.labels) {
+        std::fprintf(stderr, "meander refit: --fit labels needs --labels\n");
+        return kUsageError;
+    }
+    if (!a.check_input.empty()) {
+        std::vector<int> lines;
+        auto rows = read_csv_rows(a.check_input, model.input_size, diags, false, &lines);
+        if (!rows) return flush(diags), kModelError;
+        o.check_inputs = *rows;
+        if (!a.check_labels.empty() && !(o.check_labels = read_labels(a.check_labels, model, rows->size(), diags)))
+            return flush(diags), kModelError;
+    }
+    const bool labelled = a.check_input.empty() ? o.labels.has_value() : o.check_labels.has_value();
+    SolverSpec& sv = o.solver;
+    sv.method = a.method;
+    const Tableau* tb = find_tableau(a.method);
+    if (a.steps > 0) sv.steps = a.steps, sv.written.push_back("steps");
+    if (a.rtol > 0) sv.rtol = a.rtol, sv.written.push_back("rtol");
+    if (a.atol > 0) sv.atol = a.atol, sv.written.push_back("atol");
+    if (a.max_steps > 0) sv.max_steps = a.max_steps, sv.written.push_back("max-steps");
+    (void)tb;
+    // The new description, checked as `meander check` would: a solver line a block cannot take is a usage error.
+    auto cheap = with_solver(model, a.blocks, sv, diags);
+    if (!cheap) return flush(diags), kUsageError;
+    const fs::path out_mnd(out_path);
+    const std::string stem = out_mnd.stem().string();
+    const std::string npz_name = stem + ".npz";
+    const std::string note = fmt::format("Refitted by meander refit from {} for solver {}", fs::path(model_path).filename().string(),
+                                         format_solver(sv));
+    {
+        const std::string text = refit_description(in->loaded.source, model, *cheap, npz_name, note);
+        Source src(out_mnd.string(), text);
+        Diagnostics check_diags;
+        auto parsed = parse_description(src, check_diags);
+        CheckOptions copts;
+        if (!parsed || !check_diags.ok() || !check_model(*parsed, src, copts, check_diags)) {
+            std::string names;
+            for (const Block& b : cheap->blocks)
+                if (b.kind == Block::Kind::continuous && (a.blocks.empty() || std::find(a.blocks.begin(), a.blocks.end(), b.continuous.name) != a.blocks.end()))
+                    names += (names.empty() ? "" : ", ") + b.continuous.name;
+            std::fprintf(stderr, "meander refit: block %s cannot take solver '%s':\n%s", names.c_str(),
+                         format_solver(sv).c_str(), check_diags.render().c_str());
+            return kUsageError;
+        }
+    }
+    const bool tty = isatty(fileno(stderr)) != 0;
+    if (tty)
+        o.progress = [](const RefitProgress& p) {
+            const double left = p.epoch > 0 ? p.seconds / p.epoch * (p.epochs - p.epoch) : 0.0;
+            std::fprintf(stderr, "\repoch %d/%d  loss %.4g  held-out %.4g  %.0f s, at most %.0f s left   ", p.epoch,
+                         p.epochs, p.train_loss, p.holdout_loss, p.seconds, left);
+            std::fflush(stderr);
+        };
+    o.stop = &g_interrupted;
+    std::signal(SIGINT, on_interrupt);
+    auto rep = refit_model(model, o, diags);
+    std::signal(SIGINT, SIG_DFL);
+    if (tty) std::fputs("\n", stderr);
+    if (!rep) return flush(diags), kModelError;
+    if (rep->end == RefitReport::End::interrupted) {
+        flush(diags);
+        std::fprintf(stderr, "meander refit: interrupted after %d epochs; nothing written\n", rep->epochs_run);
+        return 130;
+    }
+    if (rep->end == RefitReport::End::diverged) {
+        flush(diags);
+        std::fprintf(stderr, "meander refit: diverged: %s; nothing written\n", rep->message.c_str());
+        return kModelError;
+    }
+    const std::string text = refit_description(in->loaded.source, model, rep->model, npz_name, note);
+    const TensorSet set = refit_tensors(rep->model);
+    auto npz = npz_bytes(set, "float32");
+    if (!npz) {
+        diags.error(out_path, "cannot build the .npz archive");
+        return flush(diags), kModelError;
+    }
+    const fs::path dir = out_mnd.parent_path();
+    std::vector<std::pair<std::string, std::string>> files{
+        {out_mnd.string(), text}, {(dir / npz_name).string(), *npz}, {(dir / (stem + ".mnw")).string(), write_listing(set)}};
+    if (!write_files_atomic(files, diags)) return flush(diags), kModelError;
+    flush(diags);
+    std::fputs(render_refit(*rep, model, labelled, o.classification).c_str(), stdout);
+    std::printf("\nwrote %s, %s and %s\n", files[0].first.c_str(), files[1].first.c_str(), files[2].first.c_str());
     return 0;
 }
 
@@ -313,6 +448,8 @@ int main(int argc, char** argv) {
     eval->add_option("--input", input, "CSV of input rows")->required();
     eval->add_option("--output", output, "write the CSV here instead of standard output");
     eval->add_flag("--stats", stats, "print field evaluations, accepted/rejected steps and step sizes per row (stderr)");
+    std::string labels_path;
+    eval->add_option("--labels", labels_path, "CSV of held-out labels, a row per input row: print the task metric (stderr)");
 
     auto* compile = app.add_subcommand("compile", "emit standalone C++ for the model");
     compile->add_option("model", model, "description (.mnd)")->required();
@@ -359,6 +496,46 @@ int main(int argc, char** argv) {
         ->check(kFinitePositive);
     tune->add_option("--precision", precision, "float32 (default) or float64")->check(CLI::IsMember(precisions));
     tune->add_flag("--json", json, "JSON for tools instead of text");
+    auto* tune_labels =
+        tune->add_option("--labels", labels_path, "CSV of held-out labels, a row per input row: report each candidate's task metric");
+    double metric_slack = -1.0;
+    auto* slack_opt = tune->add_option("--metric-slack", metric_slack,
+                                       "with --labels: choose the cheapest budget whose held-out metric is at most this "
+                                       "fraction above the deployed solver's (0.01: 1% worse)")
+                          ->check(kFiniteNonNegative)
+                          ->needs(tune_labels);
+
+    RefitArgs ra;
+    std::string refit_out;
+    auto* refit = app.add_subcommand("refit", "fine-tune the weights for a cheaper solver; writes a new description and weights");
+    refit->add_option("model", model, "description (.mnd)")->required();
+    refit->add_option("--input", input, "CSV of input rows (unlabelled: the model learns to match its reference on them)")->required();
+    refit->add_option("-o,--output", refit_out, "the new description NEW.mnd (NEW.npz and NEW.mnw go beside it)")->required();
+    refit->add_option("--method", ra.method, "the new solver's method")->required()->check(CLI::IsMember(method_keys));
+    refit->add_option("--steps", ra.steps, "fixed step: the number of steps")->check(kFinitePositive);
+    refit->add_option("--rtol", ra.rtol, "adaptive: relative tolerance")->check(kFinitePositive);
+    refit->add_option("--atol", ra.atol, "adaptive: absolute tolerance")->check(kFinitePositive);
+    refit->add_option("--max-steps", ra.max_steps, "adaptive: attempted steps allowed")->check(kFinitePositive);
+    refit->add_option("--block", ra.blocks, "give the new solver to this continuous block only (repeatable; default: all)");
+    refit->add_option("--labels", ra.labels, "CSV of labels, a row per input row: report the task metric (and fit it with --fit labels)");
+    refit->add_option("--check-input", ra.check_input, "CSV of rows not trained on, for the before and after figures");
+    auto* check_labels_opt =
+        refit->add_option("--check-labels", ra.check_labels, "CSV of labels of the --check-input rows: the task metric before and after");
+    refit->add_option("--fit", ra.fit, "reference (default: match the original model) or labels")
+        ->check(CLI::IsMember({"reference", "labels"}));
+    check_labels_opt->needs(refit->get_option("--check-input"));
+    refit->add_option("--gradient", ra.way, "discrete (default: through the steps taken) or adjoint")
+        ->check(CLI::IsMember({"discrete", "adjoint"}));
+    refit->add_option("--epochs", ra.o.epochs, "most epochs (default 300)")->check(kFinitePositive);
+    refit->add_option("--batch", ra.o.batch, "rows per mini-batch (default 16)")->check(kFinitePositive);
+    refit->add_option("--rate", ra.o.rate, "Adam step size (default 1e-5)")->check(kFinitePositive);
+    refit->add_option("--holdout", ra.o.holdout, "fraction of rows held out for early stopping (default 0.25)")
+        ->check(CLI::Range(0.01, 0.9));
+    refit->add_option("--patience", ra.o.patience, "stop after this many epochs without a better held-out loss (default 30)")
+        ->check(kFinitePositive);
+    refit->add_option("--seed", ra.o.seed, "seed of the split and the batch order (default 1)");
+    refit->add_option("--threads", ra.o.threads, "threads (default: every core; the result does not depend on it)")
+        ->check(kFinitePositive);
 
     std::string other;
     double weight_tol = 0.0;
@@ -383,11 +560,14 @@ int main(int argc, char** argv) {
 
     try {
         if (*check) return cmd_check(model, precision);
-        if (*eval) return cmd_eval(model, input, output, stats);
+        if (*eval) return cmd_eval(model, input, output, stats, labels_path);
         if (*compile) return cmd_compile(model, outdir, precision, c_api, self_test, dump);
         if (*verify) return cmd_verify(model, input, precision, tol, cxx, keep, show);
         if (*cost) return cmd_cost(model, input, precision, core, cycles_per_mac, json);
-        if (*tune) return cmd_tune(model, input, precision, target, methods, sweep, json);
+        if (*tune)
+            return cmd_tune(model, input, precision, target, methods, sweep, json, labels_path,
+                            slack_opt->count() ? std::optional<double>(metric_slack) : std::nullopt);
+        if (*refit) return cmd_refit(model, input, refit_out, ra);
         if (*diff) return cmd_diff(model, other, weight_tol, json);
         if (*format) return cmd_format(model, in_place, check_only);
     } catch (const std::exception& e) {

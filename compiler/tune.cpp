@@ -123,9 +123,10 @@ Run run_block(const Split& sp, const Eigen::VectorXd& x, const SolverSpec& spec)
 
 // Runs `spec` on every row and fills the candidate's deviation and counts.
 void measure(const Split& sp, const std::vector<Eigen::VectorXd>& block_inputs,
-             const std::vector<Eigen::VectorXd>& refs, TuneCandidate& cand) {
+             const std::vector<Eigen::VectorXd>& refs, const TuneOptions& opts, TuneCandidate& cand) {
     cand.ok = true;
     cand.deviation = 0.0;
+    std::vector<Eigen::VectorXd> outputs;
     for (std::size_t row = 0; row < block_inputs.size(); ++row) {
         const Run r = run_block(sp, block_inputs[row], cand.spec);
         cand.measured_field_evals = std::max(cand.measured_field_evals, r.stats.field_evals);
@@ -137,6 +138,7 @@ void measure(const Split& sp, const std::vector<Eigen::VectorXd>& block_inputs,
             cand.failure_block = r.block;
             return;
         }
+        if (opts.labels) outputs.push_back(r.output);
         const Eigen::VectorXd& ref = refs[row];
         for (Eigen::Index i = 0; i < ref.size(); ++i) {
             const double d = std::fabs(r.output[i] - ref[i]) / std::max(1.0, std::fabs(ref[i]));
@@ -148,38 +150,52 @@ void measure(const Split& sp, const std::vector<Eigen::VectorXd>& block_inputs,
             }
         }
     }
+    if (opts.labels) cand.metric = task_metric(opts.classification, outputs, *opts.labels);
 }
 
-void finish(TuneCandidate& cand, long field_macs, double target) {
+// `deployed`: the deployed solver's metric, for the metric rule (nullptr while measuring the deployed one).
+void finish(TuneCandidate& cand, long field_macs, const TuneOptions& opts, const TuneCandidate* deployed) {
     cand.worst_field_evals = worst_field_evals(cand.spec);
     cand.worst_macs = static_cast<long long>(field_macs) * cand.worst_field_evals;
-    cand.meets = cand.ok && cand.deviation <= target;
+    if (opts.metric_slack && opts.labels) {
+        const TuneCandidate& base = deployed ? *deployed : cand;
+        cand.meets = cand.ok && cand.metric && base.metric &&
+                     cand.metric->score <= base.metric->score * (1.0 + *opts.metric_slack);
+    } else {
+        cand.meets = cand.ok && cand.deviation <= opts.target;
+    }
 }
 
 TuneCandidate fixed_candidate(const Split& sp, const std::vector<Eigen::VectorXd>& xs,
                               const std::vector<Eigen::VectorXd>& refs, const std::string& method, int steps,
-                              long field_macs, double target) {
+                              long field_macs, const TuneOptions& opts, const TuneCandidate& deployed) {
     TuneCandidate cand;
     cand.spec = fixed_spec(method, steps);
-    measure(sp, xs, refs, cand);
-    finish(cand, field_macs, target);
+    measure(sp, xs, refs, opts, cand);
+    finish(cand, field_macs, opts, &deployed);
     return cand;
 }
 
 TuneCandidate adaptive_candidate(const Split& sp, const std::vector<Eigen::VectorXd>& xs,
                                  const std::vector<Eigen::VectorXd>& refs, const std::string& method, double rtol,
-                                 double atol, long field_macs, double target) {
+                                 double atol, long field_macs, const TuneOptions& opts, const TuneCandidate& deployed) {
     TuneCandidate cand;
     cand.adaptive = true;
     cand.spec = adaptive_spec(method, sp.block->solver, rtol, atol);
     cand.spec.max_steps = kMeasureMaxSteps;
-    measure(sp, xs, refs, cand);
+    measure(sp, xs, refs, opts, cand);
     // The limit: the most attempts any row needed plus 25%, rounded up. A run
     // under a limit it never reaches is the same run, so the deviation stands.
     const long limit = std::max(1L, (5 * cand.max_attempts + 3) / 4);
     cand.spec.max_steps = static_cast<int>(std::min<long>(limit, kMeasureMaxSteps));
-    finish(cand, field_macs, target);
+    finish(cand, field_macs, opts, &deployed);
     return cand;
+}
+
+// Whether `a` is nearer the goal than `b`: smaller deviation, or smaller task metric under the metric rule.
+bool closer(const TuneCandidate& a, const TuneCandidate& b, const TuneOptions& opts) {
+    if (opts.metric_slack && a.metric && b.metric) return a.metric->score < b.metric->score;
+    return a.deviation < b.deviation;
 }
 
 // Whether two solver lines integrate differently (max-steps only bounds the work).
@@ -209,6 +225,19 @@ bool check_options(const Model& model, const TuneOptions& opts, Diagnostics& dia
             diags.error(kWhere, fmt::format("unknown solver method '{}' (known: {})", m, known));
             good = false;
         }
+    }
+    if (opts.metric_slack && !opts.labels) {
+        diags.error(kWhere, "choosing by the task metric needs labels (--labels)");
+        good = false;
+    }
+    if (opts.metric_slack && !(*opts.metric_slack >= 0.0 && std::isfinite(*opts.metric_slack))) {
+        diags.error(kWhere, fmt::format("the metric slack must be a finite number at or above 0, not {}",
+                                        format_double(*opts.metric_slack)));
+        good = false;
+    }
+    if (opts.labels && opts.labels->rows.size() != opts.inputs.size()) {
+        diags.error(kWhere, fmt::format("{} label rows for {} input rows", opts.labels->rows.size(), opts.inputs.size()));
+        good = false;
     }
     if (opts.inputs.empty()) {
         diags.error(kWhere, "no input rows: tuning compares outputs on at least one input");
@@ -274,8 +303,8 @@ bool tune_block(const Model& model, std::size_t index, const TuneOptions& opts, 
     out.deployed.spec = c.solver;
     const Tableau* own = find_tableau(c.solver.method);
     out.deployed.adaptive = own != nullptr && own->adaptive() && c.solver.steps == 0;
-    measure(sp, xs, refs, out.deployed);
-    finish(out.deployed, out.field_macs, opts.target);
+    measure(sp, xs, refs, opts, out.deployed);
+    finish(out.deployed, out.field_macs, opts, nullptr);
 
     std::vector<std::string> methods = opts.methods;
     if (methods.empty()) methods.push_back(c.solver.method);
@@ -287,28 +316,28 @@ bool tune_block(const Model& model, std::size_t index, const TuneOptions& opts, 
             continue;  // named twice: sweep it once
         if (!tb->adaptive()) {
             for (int n : step_grid(opts.max_steps_sweep))
-                out.candidates.push_back(fixed_candidate(sp, xs, refs, m, n, out.field_macs, opts.target));
+                out.candidates.push_back(fixed_candidate(sp, xs, refs, m, n, out.field_macs, opts, out.deployed));
         } else {
             for (std::size_t d = 0; d < std::size(kRtolDecades); ++d) {
                 if (kRtolDecades[d] < floor) break;
                 out.candidates.push_back(
-                    adaptive_candidate(sp, xs, refs, m, kRtolDecades[d], kAtolDecades[d], out.field_macs, opts.target));
+                    adaptive_candidate(sp, xs, refs, m, kRtolDecades[d], kAtolDecades[d], out.field_macs, opts, out.deployed));
             }
         }
     }
 
     for (std::size_t i = 0; i < out.candidates.size(); ++i) {
         const TuneCandidate& k = out.candidates[i];
-        if (k.ok && (!out.closest || k.deviation < out.candidates[*out.closest].deviation)) out.closest = i;
+        if (k.ok && (!out.closest || closer(k, out.candidates[*out.closest], opts))) out.closest = i;
         if (!k.meets) continue;
         if (!out.chosen) {
             out.chosen = i;
             continue;
         }
         const TuneCandidate& best = out.candidates[*out.chosen];
-        // Fewest worst-case evaluations; on a tie the smaller deviation.
+        // Fewest worst-case evaluations; on a tie the smaller deviation (or metric).
         if (k.worst_field_evals < best.worst_field_evals ||
-            (k.worst_field_evals == best.worst_field_evals && k.deviation < best.deviation))
+            (k.worst_field_evals == best.worst_field_evals && closer(k, best, opts)))
             out.chosen = i;
     }
     if (out.chosen) {
@@ -354,13 +383,14 @@ std::string failure_text(const TuneCandidate& k) {
     return fmt::format("{} in {} on row {}", k.failure, k.failure_block, k.failure_row + 1);
 }
 
-std::vector<std::string> candidate_row(const TuneCandidate& k, bool chosen) {
+std::vector<std::string> candidate_row(const TuneCandidate& k, bool chosen, bool labelled) {
     std::vector<std::string> row{format_solver(k.spec)};
     if (k.ok) {
         row.push_back(deviation_text(k.deviation));
     } else {
         row.push_back("-");
     }
+    if (labelled) row.push_back(k.metric ? metric_cell(*k.metric) : "-");
     row.push_back(fmt::format("{}", k.worst_field_evals));
     row.push_back(k.ok ? fmt::format("{}", k.measured_field_evals) : "-");
     row.push_back(fmt::format("{}", k.worst_macs));
@@ -399,6 +429,17 @@ nlohmann::json candidate_json(const TuneCandidate& k) {
     j["worst_field_evals"] = k.worst_field_evals;
     j["worst_macs"] = k.worst_macs;
     j["meets_target"] = k.meets;
+    if (k.metric) {
+        const TaskMetric& m = *k.metric;
+        j["metric"] = {{"score", m.score}};
+        if (m.classification) {
+            j["metric"]["accuracy"] = m.accuracy;
+            j["metric"]["cross_entropy"] = m.cross_entropy;
+        } else {
+            j["metric"]["rmse"] = m.rmse;
+            j["metric"]["mae"] = m.mae;
+        }
+    }
     return j;
 }
 
@@ -413,6 +454,10 @@ std::optional<TuneReport> tune_model(const Model& model, const TuneOptions& opts
     report.rtol_floor = rtol_floor(opts.precision);
     report.rows = static_cast<int>(opts.inputs.size());
     report.outputs = model.output_size;
+    report.labelled = opts.labels.has_value();
+    report.classification = opts.classification;
+    report.metric_slack = opts.metric_slack;
+    report.output_name = model.output_name;
 
     std::vector<Eigen::VectorXd> rows;
     for (const auto& r : opts.inputs) rows.push_back(Eigen::Map<const Eigen::VectorXd>(r.data(), static_cast<Eigen::Index>(r.size())));
@@ -429,8 +474,17 @@ std::optional<TuneReport> tune_model(const Model& model, const TuneOptions& opts
 std::string render_tune_text(const TuneReport& r) {
     std::string out;
     out += fmt::format("tuning {}: {} input rows, {} outputs, {}\n", r.model, r.rows, r.outputs, precision_name(r.precision));
-    out += fmt::format("target: deviation <= {}, the deviation being |out - ref| / max(1, |ref|) over every row and output\n",
-                       format_double(r.target));
+    if (r.metric_slack)
+        out += fmt::format("target: held-out {} at most {}% above the deployed solver's (labels given); deviation = "
+                           "|out - ref| / max(1, |ref|) over every row and output, shown beside it\n",
+                           metric_name(r.classification), format_double(100.0 * *r.metric_slack));
+    else
+        out += fmt::format("target: deviation <= {}, the deviation being |out - ref| / max(1, |ref|) over every row and output\n",
+                           format_double(r.target));
+    if (r.labelled)
+        out += fmt::format("held-out {} against the labels: {}\n", metric_name(r.classification),
+                           r.classification ? "mean of -log(probability of the labelled class)"
+                                            : "root mean square of out - label over every row and output");
     out += "deviations are those of the reference evaluator in double";
     out += r.precision == Precision::float32 ? "; the emitted float code adds its rounding (meander verify measures it)\n" : "\n";
     if (r.blocks.empty()) {
@@ -447,11 +501,13 @@ std::string render_tune_text(const TuneReport& r) {
                                r.rtol_floor, precision_name(r.precision));
         out += "\n";
         std::vector<std::vector<std::string>> rows;
-        rows.push_back({"solver", "deviation", "evals (worst)", "evals (measured)", "MACs (worst)", "meets", ""});
+        std::vector<std::string> head{"solver", "deviation", "evals (worst)", "evals (measured)", "MACs (worst)", "meets", ""};
+        if (r.labelled) head.insert(head.begin() + 2, metric_name(r.classification));
+        rows.push_back(head);
         for (std::size_t i = 0; i < b.candidates.size(); ++i)
-            rows.push_back(candidate_row(b.candidates[i], b.chosen && *b.chosen == i));
+            rows.push_back(candidate_row(b.candidates[i], b.chosen && *b.chosen == i, r.labelled));
         rows.push_back({});
-        std::vector<std::string> dep = candidate_row(b.deployed, false);
+        std::vector<std::string> dep = candidate_row(b.deployed, false, r.labelled);
         dep[0] += "  (deployed)";
         rows.push_back(dep);
         out += table(rows, "  ");
@@ -462,10 +518,18 @@ std::string render_tune_text(const TuneReport& r) {
             out += fmt::format("    deviation {}, {} field evaluations and {} MACs per inference at worst", deviation_text(k.deviation),
                                k.worst_field_evals, k.worst_macs);
             out += fmt::format(" (deployed: {} and {})\n", b.deployed.worst_field_evals, b.deployed.worst_macs);
+            if (k.metric && b.deployed.metric)
+                out += fmt::format("    held-out {} {} (deployed {})\n", metric_name(r.classification),
+                                   metric_cell(*k.metric), metric_cell(*b.deployed.metric));
             if (same_discretisation(k.spec, b.deployed.spec) && k.spec.max_steps == b.deployed.spec.max_steps)
                 out += "    the deployed solver line is already this one\n";
             if (k.adaptive)
                 out += "    max-steps is the most attempts these inputs needed plus 25%: inputs unlike them may need more\n";
+        } else if (b.closest && r.metric_slack) {
+            const TuneCandidate& k = b.candidates[*b.closest];
+            out += fmt::format("  no candidate keeps the held-out {} within {}% of the deployed solver's: the smallest is {}, "
+                               "with solver {}\n", metric_name(r.classification), format_double(100.0 * *r.metric_slack),
+                               k.metric ? metric_cell(*k.metric) : "-", format_solver(k.spec));
         } else if (b.closest) {
             const TuneCandidate& k = b.candidates[*b.closest];
             out += fmt::format("  no candidate meets the target {}: the smallest deviation is {}, with solver {}\n",
@@ -482,6 +546,8 @@ std::string render_tune_json(const TuneReport& r) {
     nlohmann::json j;
     j["model"] = r.model;
     j["target"] = r.target;
+    if (r.labelled) j["metric"] = metric_name(r.classification);
+    if (r.metric_slack) j["metric_slack"] = *r.metric_slack;
     j["precision"] = precision_name(r.precision);
     j["rtol_floor"] = r.rtol_floor;
     j["rows"] = r.rows;

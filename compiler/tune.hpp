@@ -11,6 +11,7 @@
 #include <vector>
 
 #include "../runtime/model.hpp"
+#include "labels.hpp"
 #include "source.hpp"
 
 namespace meander {
@@ -26,6 +27,13 @@ struct TuneOptions {
     // float32 stops the rtol sweep at sqrt(FLT_EPSILON), float64 at sqrt(DBL_EPSILON).
     Precision precision = Precision::float32;
     std::vector<std::vector<double>> inputs;  // rows of the model's input width
+    // Held-out labels for the rows: every candidate's task metric is reported.
+    std::optional<Labels> labels;
+    bool classification = false;    // the model ends in softmax (is_classifier)
+    // With labels: choose by "task metric no worse than the deployed solver's
+    // by more than this fraction" (score <= deployed score * (1 + slack))
+    // instead of by deviation.
+    std::optional<double> metric_slack;
 };
 
 // One solver budget tried on every input row.
@@ -43,7 +51,8 @@ struct TuneCandidate {
     long measured_field_evals = 0;  // of this block: largest over the rows
     long max_attempts = 0;          // adaptive: largest accepted + rejected steps over the rows
     long long worst_macs = 0;       // field MACs x worst_field_evals
-    bool meets = false;             // ok and deviation <= target
+    bool meets = false;             // ok and deviation <= target (or the metric rule, TuneOptions::metric_slack)
+    std::optional<TaskMetric> metric;  // with labels, when ok
 };
 
 struct TuneBlock {
@@ -64,6 +73,10 @@ struct TuneBlock {
 struct TuneReport {
     std::string model;
     double target = 0.0;
+    bool labelled = false;
+    bool classification = false;
+    std::optional<double> metric_slack;
+    std::string output_name;
     Precision precision = Precision::float32;
     double rtol_floor = 0.0;        // smallest rtol swept for this precision
     int rows = 0;
