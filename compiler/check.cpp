@@ -11,6 +11,7 @@
 #include <cmath>
 #include <map>
 #include <string>
+#include <utility>
 
 #include "../runtime/evaluate.hpp"
 #include "../runtime/integrate.hpp"
@@ -39,6 +40,11 @@ std::string describe(const Block& b) {
 // The largest size of an input, output, layer or state: keeps every width and
 // width + augment far inside int.
 constexpr int kMaxWidth = 1 << 20;
+
+// The model name names the emitted files ("NAME_selftest.hpp", and while
+// writing "NAME_selftest.hpp.meander-XXXXXX"): 128 leaves room under the
+// 255-byte file name limit of ext4, XFS, Btrfs, APFS and NTFS.
+constexpr std::size_t kMaxModelName = 128;
 
 // The emitted field-evaluation counters are std::uint32_t.
 constexpr long long kMaxFieldEvals = 4294967295LL;
@@ -324,6 +330,10 @@ struct Checker {
             "std", "real", "result", "context", "counters", "infer", "main",
         };
         const std::string& n = model.name;
+        if (n.size() > kMaxModelName)
+            return error(model.loc, fmt::format("model name '{}...' is {} characters long; names must be at most {}: it "
+                                                "names the emitted files, and file systems take at most 255 bytes",
+                                                n.substr(0, 16), n.size(), kMaxModelName));
         auto refuse = [&](std::string_view why) {
             error(model.loc, fmt::format("model name '{}' cannot be used: it becomes the emitted C++ namespace, and '{}' {}", n, n, why));
         };
@@ -333,6 +343,7 @@ struct Checker {
             return error(model.loc, fmt::format("model name '{}' cannot be used: names beginning with '_' or containing '__' are "
                                                 "reserved in C++",
                                                 n));
+        if (const char* which = compiler_macro(n)) return refuse(fmt::format("is a macro predefined by {}", which));
         if (const char* header = c_macro(n)) return refuse(fmt::format("is a macro of the C library ({})", header));
         if (const char* header = c_type(n)) return refuse(fmt::format("is a type of the C library ({})", header));
         if (const char* header = c_function(n)) return refuse(fmt::format("is a function of the C library ({})", header));
@@ -340,8 +351,73 @@ struct Checker {
             error(model.loc, fmt::format("model name '{}' cannot be used: names ending in '_t' are reserved for types by POSIX", n));
     }
 
+    // The compilers that predefine `n` as a macro, or null. Source: the names
+    // without a leading '_' in `-std=gnu++17 -dM -E` of GCC 12 (x86-64) and
+    // Clang 14 for x86-64, i386, MIPS and SPARC Solaris targets (Debian 12),
+    // which are those of the GCC manual's "System-specific Predefined Macros"
+    // (unix, linux, i386, sun, sparc, mips; vax there too). Under GNU dialects
+    // (GCC's default) `namespace linux` reads `namespace 1`.
+    static const char* compiler_macro(const std::string& n) {
+        static const char* const names[] = {"linux", "unix", "i386", "sun", "sparc", "mips", "vax", "MIPSEB", "MIPSEL"};
+        for (const char* m : names)
+            if (n == m) return "GCC and Clang under GNU dialects (-std=gnu++17, their default) on some targets";
+        return nullptr;
+    }
+
     // The header that defines macro `n`, or null.
     static const char* c_macro(const std::string& n) {
+        // Macros (or macro-like names) of the C library that firmware often
+        // includes before the emitted header, C17 (ISO/IEC 9899:2018) clause 7:
+        // a namespace of that name breaks as soon as the header comes first.
+        static const std::pair<const char*, const char*> clib[] = {
+            {"errno", "<cerrno>"}, {"assert", "<cassert>"}, {"NDEBUG", "<cassert>"},
+            {"stdin", "<cstdio>"}, {"stdout", "<cstdio>"}, {"stderr", "<cstdio>"}, {"EOF", "<cstdio>"},
+            {"BUFSIZ", "<cstdio>"}, {"FILENAME_MAX", "<cstdio>"}, {"FOPEN_MAX", "<cstdio>"}, {"L_tmpnam", "<cstdio>"},
+            {"TMP_MAX", "<cstdio>"}, {"SEEK_SET", "<cstdio>"}, {"SEEK_CUR", "<cstdio>"}, {"SEEK_END", "<cstdio>"},
+            {"EXIT_SUCCESS", "<cstdlib>"}, {"EXIT_FAILURE", "<cstdlib>"}, {"RAND_MAX", "<cstdlib>"},
+            {"MB_CUR_MAX", "<cstdlib>"}, {"MB_LEN_MAX", "<climits>"}, {"CHAR_BIT", "<climits>"},
+            {"setjmp", "<csetjmp>"}, {"va_start", "<cstdarg>"}, {"va_arg", "<cstdarg>"}, {"va_end", "<cstdarg>"},
+            {"va_copy", "<cstdarg>"}, {"CLOCKS_PER_SEC", "<ctime>"}, {"TIME_UTC", "<ctime>"}, {"WEOF", "<cwchar>"},
+            {"complex", "<complex.h>"}, {"imaginary", "<complex.h>"}, {"I", "<complex.h>"},
+            {"noreturn", "<stdnoreturn.h>"}, {"kill_dependency", "<stdatomic.h>"}, {"ONCE_FLAG_INIT", "<threads.h>"},
+            {"TSS_DTOR_ITERATIONS", "<threads.h>"},
+        };
+        for (const auto& [m, header] : clib)
+            if (n == m) return header;
+        // The error numbers of <errno.h> (C17 7.5: EDOM, EILSEQ, ERANGE; POSIX.1-2017 <errno.h>: the rest) and
+        // the signals of <signal.h> (C17 7.14; POSIX.1-2017 <signal.h>). C reserves all of E + capital and
+        // SIG + capital for them (C17 7.31.3, 7.31.7); the names that exist are refused, so ECG_filter stays usable.
+        static const char* const errnos[] = {
+            "E2BIG", "EACCES", "EADDRINUSE", "EADDRNOTAVAIL", "EAFNOSUPPORT", "EAGAIN", "EALREADY", "EBADF", "EBADMSG",
+            "EBUSY", "ECANCELED", "ECHILD", "ECONNABORTED", "ECONNREFUSED", "ECONNRESET", "EDEADLK", "EDESTADDRREQ",
+            "EDOM", "EDQUOT", "EEXIST", "EFAULT", "EFBIG", "EHOSTUNREACH", "EIDRM", "EILSEQ", "EINPROGRESS", "EINTR",
+            "EINVAL", "EIO", "EISCONN", "EISDIR", "ELOOP", "EMFILE", "EMLINK", "EMSGSIZE", "EMULTIHOP", "ENAMETOOLONG",
+            "ENETDOWN", "ENETRESET", "ENETUNREACH", "ENFILE", "ENOBUFS", "ENODATA", "ENODEV", "ENOENT", "ENOEXEC",
+            "ENOLCK", "ENOLINK", "ENOMEM", "ENOMSG", "ENOPROTOOPT", "ENOSPC", "ENOSR", "ENOSTR", "ENOSYS", "ENOTCONN",
+            "ENOTDIR", "ENOTEMPTY", "ENOTRECOVERABLE", "ENOTSOCK", "ENOTSUP", "ENOTTY", "ENXIO", "EOPNOTSUPP",
+            "EOVERFLOW", "EOWNERDEAD", "EPERM", "EPIPE", "EPROTO", "EPROTONOSUPPORT", "EPROTOTYPE", "ERANGE", "EROFS",
+            "ESPIPE", "ESRCH", "ESTALE", "ETIME", "ETIMEDOUT", "ETXTBSY", "EWOULDBLOCK", "EXDEV",
+        };
+        for (const char* m : errnos)
+            if (n == m) return "<cerrno>";
+        static const char* const signals[] = {
+            "SIGABRT", "SIGFPE", "SIGILL", "SIGINT", "SIGSEGV", "SIGTERM", "SIG_DFL", "SIG_ERR", "SIG_IGN", "SIGALRM",
+            "SIGBUS", "SIGCHLD", "SIGCONT", "SIGHUP", "SIGKILL", "SIGPIPE", "SIGQUIT", "SIGSTOP", "SIGTSTP", "SIGTTIN",
+            "SIGTTOU", "SIGUSR1", "SIGUSR2", "SIGPOLL", "SIGPROF", "SIGSYS", "SIGTRAP", "SIGURG", "SIGVTALRM",
+            "SIGXCPU", "SIGXFSZ",
+        };
+        for (const char* m : signals)
+            if (n == m) return "<csignal>";
+        // Families whose every member is a macro name by the standard: LC_ + capital (<locale.h>, 7.31.5),
+        // FE_ + capital (<fenv.h>, 7.31.4), PRI/SCN + lowercase or X (<inttypes.h>, 7.31.6), and <float.h>'s
+        // FLT_, DBL_, LDBL_ limits (7.7).
+        auto capital = [&](std::size_t i) { return i < n.size() && n[i] >= 'A' && n[i] <= 'Z'; };
+        auto starts = [&](std::string_view p) { return n.compare(0, p.size(), p) == 0; };
+        if (starts("LC_") && capital(3)) return "<clocale>";
+        if (starts("FE_") && capital(3)) return "<cfenv>";
+        if ((starts("PRI") || starts("SCN")) && n.size() > 3 && ((n[3] >= 'a' && n[3] <= 'z') || n[3] == 'X'))
+            return "<cinttypes>";
+        if (starts("FLT_") || starts("DBL_") || starts("LDBL_")) return "<cfloat>";
         static const char* const cmath[] = {
             "NAN", "INFINITY", "HUGE_VAL", "HUGE_VALF", "HUGE_VALL", "FP_NAN", "FP_INFINITE", "FP_ZERO", "FP_NORMAL",
             "FP_SUBNORMAL", "FP_FAST_FMA", "FP_FAST_FMAF", "FP_FAST_FMAL", "FP_ILOGB0", "FP_ILOGBNAN", "FP_INT_UPWARD",

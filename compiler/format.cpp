@@ -140,7 +140,7 @@ template <> struct layout_action<g::comment> {
     }
 };
 
-std::string quoted(const std::string& s) { return "\"" + s + "\""; }
+std::string quoted(const std::string& s) { return quote_string(s); }
 
 std::string dense_text(const Dense& d) {
     std::string out = fmt::format("dense {}: {}{} -> {}", d.name, d.in, d.time_input ? " + t" : "", d.out);

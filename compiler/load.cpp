@@ -31,12 +31,17 @@ std::optional<LoadedModel> load_model(const std::string& path, Precision precisi
         fs::path wpath = fs::path(out.model.weights_path);
         if (wpath.is_relative()) wpath = fs::path(path).parent_path() / wpath;
         const std::string weights = wpath.lexically_normal().string();
+        // A weights file's errors name the file; the note names the line that chose it.
+        auto named_here = [&]() {
+            diags.note(out.source, out.model.weights_loc, fmt::format("the weights file '{}' is named here", weights));
+            return std::nullopt;
+        };
         auto set = read_weights(weights, diags);
-        if (!set) return std::nullopt;
+        if (!set) return named_here();
         if (!bind_weights(out.model, out.source, *set, diags)) return std::nullopt;
         if (!check_weight_range(out.model, out.source, precision, diags)) return std::nullopt;
         auto bytes = weights_bytes(weights, diags);
-        if (!bytes) return std::nullopt;
+        if (!bytes) return named_here();
         hash = fnv1a64(*bytes, hash);
     }
     out.content_hash = fmt::format("fnv1a64:{:016x}", hash);

@@ -58,6 +58,9 @@ CLI::Validator finite_number(bool zero_allowed) {
 }
 const CLI::Validator kFinitePositive = finite_number(false);
 const CLI::Validator kFiniteNonNegative = finite_number(true);
+// An output path: an empty one names no file or folder, a usage error.
+const CLI::Validator kNonEmptyPath(
+    [](std::string& text) -> std::string { return text.empty() ? "expected a path, not an empty name" : ""; }, "PATH");
 
 // Prints what was collected; returns true when there were no errors.
 bool flush(const Diagnostics& diags) {
@@ -193,6 +196,12 @@ int cmd_compile(const std::string& model_path, const std::string& outdir, const 
     if (dump == "emit")
         for (const auto& f : files) std::fputs(fmt::format("// ---- {}\n{}", f.name, f.text).c_str(), stdout);
     std::error_code ec;
+    // The folders this compile creates, deepest last: a failed write removes them again.
+    std::vector<fs::path> created;
+    for (fs::path p = fs::path(outdir).lexically_normal(); !p.empty() && !fs::exists(p, ec); p = p.parent_path()) {
+        created.insert(created.begin(), p);
+        if (p == p.parent_path()) break;
+    }
     fs::create_directories(outdir, ec);
     if (ec) {
         diags.error(outdir, fmt::format("cannot create folder: {}", ec.message()));
@@ -200,7 +209,10 @@ int cmd_compile(const std::string& model_path, const std::string& outdir, const 
     }
     std::vector<std::pair<std::string, std::string>> out;
     for (const auto& f : files) out.emplace_back((fs::path(outdir) / f.name).string(), f.text);
-    if (!write_files_atomic(out, diags)) return flush(diags), kModelError;
+    if (!write_files_atomic(out, diags)) {
+        for (auto it = created.rbegin(); it != created.rend(); ++it) fs::remove(*it, ec);  // only empty ones go
+        return flush(diags), kModelError;
+    }
     if (self_test.empty()) {
         // A self-test left by an earlier compile would test other code and still build.
         for (const char* suffix : {"_selftest.hpp", "_selftest.cpp"}) {
@@ -446,14 +458,14 @@ int main(int argc, char** argv) {
     auto* eval = app.add_subcommand("eval", "evaluate the model in double precision; CSV in, CSV out");
     eval->add_option("model", model, "description (.mnd)")->required();
     eval->add_option("--input", input, "CSV of input rows")->required();
-    eval->add_option("--output", output, "write the CSV here instead of standard output");
+    eval->add_option("--output", output, "write the CSV here instead of standard output")->check(kNonEmptyPath);
     eval->add_flag("--stats", stats, "print field evaluations, accepted/rejected steps and step sizes per row (stderr)");
     std::string labels_path;
     eval->add_option("--labels", labels_path, "CSV of held-out labels, a row per input row: print the task metric (stderr)");
 
     auto* compile = app.add_subcommand("compile", "emit standalone C++ for the model");
     compile->add_option("model", model, "description (.mnd)")->required();
-    compile->add_option("-o,--output-dir", outdir, "folder for the emitted files")->required();
+    compile->add_option("-o,--output-dir", outdir, "folder for the emitted files")->required()->check(kNonEmptyPath);
     compile->add_option("--precision", precision, "float32 (default) or float64")->check(CLI::IsMember(precisions));
     compile->add_flag("--c-api", c_api, "also emit an extern \"C\" entry point");
     compile->add_option("--self-test", self_test, "CSV of golden inputs: emit a self-test with eval's outputs for them");

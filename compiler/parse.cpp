@@ -50,6 +50,7 @@ struct State {
     Loc output_stmt;
     bool have_blocks = false;
     bool reported_after_output = false;
+    int layers_and_blocks = 0;      // placed so far, for kMaxLayersAndBlocks
 
     std::vector<Frame> open;        // blocks being built, innermost last
     int skip_depth = 0;
@@ -145,8 +146,18 @@ void top_level_statement(State& s, Loc stmt) {
     }
 }
 
+// Thrown past kMaxLayersAndBlocks (already reported) to stop the parse.
+struct TooManyBlocks {};
+
 // A layer or block placed in the current body (or at the top level).
 void placed(State& s, Loc stmt, std::string_view what) {
+    if (++s.layers_and_blocks > kMaxLayersAndBlocks) {
+        const std::string message = fmt::format("{} is beyond the limit of {} layers and blocks in a description; "
+                                                "parsing stops here",
+                                                what, kMaxLayersAndBlocks);
+        s.error(stmt, message);
+        throw TooManyBlocks{};
+    }
     if (s.open.empty()) {
         top_level_statement(s, stmt);
         s.have_blocks = true;
@@ -272,11 +283,21 @@ template <> struct action<g::string_open> {
     }
 };
 
-// String contents: no escapes; an empty string names nothing.
+// String contents, with the escapes \" \\ \n read (the grammar admits no
+// others); an empty string names nothing.
 struct text_action {
     template <typename Input>
     static void apply(const Input& in, State& s) {
-        s.text = in.string();
+        s.text.clear();
+        const std::string_view raw(in.begin(), in.size());
+        for (std::size_t i = 0; i < raw.size(); ++i) {
+            if (raw[i] == '\\' && i + 1 < raw.size()) {
+                ++i;
+                s.text += raw[i] == 'n' ? '\n' : raw[i];
+            } else {
+                s.text += raw[i];
+            }
+        }
         if (s.text.empty()) s.error(s.text_loc, "empty string: a path or tensor name is needed here");
     }
 };
@@ -587,6 +608,8 @@ struct control : pegtl::normal<Rule> {
         std::size_t at = next_token(s.src, static_cast<std::size_t>(in.current() - s.src.text.data()));
         std::string message = g::error_message<Rule>;
         if constexpr (std::is_same_v<Rule, g::string_close>) at = s.string_open;
+        if constexpr (std::is_same_v<Rule, g::string_escape_char>)  // at the backslash
+            at = static_cast<std::size_t>(in.current() - s.src.text.data()) - 1;
         if constexpr (std::is_same_v<Rule, g::close_brace>) {
             s.abandon_blocks = true;
             if (!s.open.empty()) {
@@ -638,12 +661,19 @@ struct control : pegtl::normal<Rule> {
 
 std::optional<Model> parse_description(const Source& src, Diagnostics& diags) {
     const int errors_before = diags.error_count();
+    if (src.text.size() > kMaxDescriptionBytes) {
+        diags.error(src.path, fmt::format("the description is {} bytes long; at most {} (8 MiB) are read",
+                                          src.text.size(), kMaxDescriptionBytes));
+        return std::nullopt;
+    }
     State s(src, diags);
     pegtl::memory_input<> in(src.text.data(), src.text.data() + src.text.size(), src.path);
     try {
         (void)pegtl::parse<g::description, action, control>(in, s);
     } catch (const pegtl::parse_error&) {
         // Already reported by the control (a missing model line cannot be skipped).
+        return std::nullopt;
+    } catch (const TooManyBlocks&) {
         return std::nullopt;
     }
     if (diags.error_count() != errors_before) return std::nullopt;

@@ -30,8 +30,25 @@ struct Diagnostic {
     std::string file;               // may be empty (usage errors)
     Loc loc;                        // line 0: no position
     std::string message;
-    std::string line_text;          // copy of the source line, when there is a position
+    std::string line_text;          // the source line (clipped around the caret), when there is a position
+    int text_col = 0;               // the caret's 1-based column in line_text (0: loc.col)
 };
+
+// Limits that keep diagnostics small however hostile the input: at most
+// kMaxDiagnosticsShown diagnostics are kept and printed (the rest are counted:
+// "N more errors not shown"), and a source line longer than kLineShown bytes
+// is shown kLineContext bytes either side of the caret, "..." marking a cut.
+inline constexpr int kMaxDiagnosticsShown = 50;
+inline constexpr std::size_t kLineShown = 200;
+inline constexpr std::size_t kLineContext = 80;
+
+// `s` with control characters (and DEL) written as escapes (\n, \t, \x1b),
+// so a name read from a file cannot forge a diagnostic line or drive the
+// terminal; every diagnostic's file and message go through it.
+std::string escape_controls(std::string_view s);
+// `s` between double quotes as the description language writes a string:
+// \" \\ and \n escaped (grammar/LANGUAGE.md, "Strings").
+std::string quote_string(std::string_view s);
 
 // Collects diagnostics; renders each as
 //   file:line:col: error: message
@@ -49,28 +66,39 @@ public:
     void warning(std::string file, std::string message);
 
     int error_count() const { return errors_; }
+    int not_shown() const { return not_shown_; }   // diagnostics past kMaxDiagnosticsShown
     bool ok() const { return errors_ == 0; }
     const std::vector<Diagnostic>& all() const { return items_; }
-    std::string render() const;     // every diagnostic, in order, each ending with '\n'
+    std::string render() const;     // every kept diagnostic, in order, each ending with '\n', and the count of the rest
     static std::string render(const Diagnostic& d);
 
 private:
+    void keep(Diagnostic d);
     std::vector<Diagnostic> items_;
     int errors_ = 0;
+    int not_shown_ = 0;
+    int errors_not_shown_ = 0;
 };
 
 // Reads a whole file; reports "path: error: cannot read file: <reason>" on failure.
 std::optional<std::string> read_file(const std::string& path, Diagnostics& diags);
 std::optional<Source> load_source(const std::string& path, Diagnostics& diags);
 
-// Writes `content` to a temporary file beside `path`, then renames it over
-// `path`: either the whole new file is there or the old one is untouched.
-// A symbolic link is written through (the link stays); the replaced file's
-// permissions are kept.
+// Writes `content` to a new temporary file beside `path` (a unique name made
+// with O_CREAT|O_EXCL, so no planted file or link is followed), flushes it to
+// the disk, then renames it over `path`: either the whole new file is there or
+// the old one is untouched. A symbolic link at `path` is written through (the
+// link stays); the replaced file's permissions are kept.
 bool write_file_atomic(const std::string& path, std::string_view content, Diagnostics& diags);
-// Several files (path, content) as one: all are written to temporaries, then
-// renamed; when any write fails, none of the files is touched.
+// Several files (path, content) as one: all are written to temporaries; then,
+// holding flock(2) on each folder (so concurrent writers take turns), they are
+// renamed, and when a rename fails the files already replaced are put back
+// from hard links kept for the purpose. The folder holds the old set or the
+// new set; only a crash between two renames leaves a mixed set (see
+// DEVELOPERS.md, "Output files").
 bool write_files_atomic(const std::vector<std::pair<std::string, std::string>>& files, Diagnostics& diags);
+// Tests only: the rename used by write_files_atomic (nullptr: rename(2)).
+void set_rename_for_tests(int (*rename_fn)(const char*, const char*));
 
 // A folder to build emitted code in: `keep` (created if needed, left in place)
 // or, when `keep` is empty, a fresh temporary folder named after `stem` that is

@@ -40,6 +40,7 @@ template<> inline constexpr const char* error_message< kw_t > = "expected 't'";
 template<> inline constexpr const char* error_message< kw_in > = "expected 'in'";
 template<> inline constexpr const char* error_message< interval > = "expected '[' and the time interval";
 // Reported at the opening quote.
+template<> inline constexpr const char* error_message< string_escape_char > = "unknown escape in a string: write \\\" for a quote, \\\\ for a backslash, \\n for a line break";
 template<> inline constexpr const char* error_message< string_close > = "expected '\"' to end this string on the same line";
 
 // Strings

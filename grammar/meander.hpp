@@ -29,7 +29,9 @@ struct mantissa : sor< seq< plus< digit >, opt< fraction > >, seq< one< '.' >, p
 struct real : seq< opt< one< '+', '-' > >, mantissa, opt< exponent >, not_at< sor< one< '.', '_' >, alpha > > > {};
 struct string_open : one< '"' > {};
 struct string_close : one< '"' > {};
-struct string_chars : star< not_one< '"', '\n', '\r' > > {};
+struct string_escape_char : one< '"', '\\', 'n' > {};
+struct string_escape : seq< one< '\\' >, must< string_escape_char > > {};
+struct string_chars : star< sor< string_escape, not_one< '"', '\\', '\n', '\r' > > > {};
 struct colon : one< ':' > {};
 struct comma : one< ',' > {};
 struct arrow : string< '-', '>' > {};
@@ -158,7 +160,7 @@ struct augment_size : integer {};
 struct augment_line : seq< kw_augment, sep, must< augment_size >, must< statement_end > > {};
 
 // ---- error recovery: skip to the next statement keyword, over braced groups ----
-struct skip_string : seq< one< '"' >, star< not_one< '"', '\n' > >, opt< one< '"' > > > {};
+struct skip_string : seq< one< '"' >, star< sor< seq< one< '\\' >, not_one< '\n' > >, not_one< '"', '\n' > > >, opt< one< '"' > > > {};
 struct skip_token : sor< plus< blank >, comment, skip_string, plus< word_char >, not_one< '{', '}' > > {};
 struct skip_group : seq< open_brace, star< not_at< top_only_keyword >, sor< skip_group, skip_token, open_brace > >, opt< close_brace > > {};
 struct skip_unit : sor< skip_group, skip_token, open_brace > {};

@@ -2,6 +2,7 @@
 // constant arrays, in the section the firmware chooses.
 #include <fmt/format.h>
 
+#include "../source.hpp"
 #include "render.hpp"
 
 namespace meander::emit_detail {
@@ -18,7 +19,7 @@ std::string render_weights(const Emission& e) {
                 w.push_back(d.weight.size() == 0 ? 0.0 : d.weight(r, c));
         o += fmt::format("// {}: weight {} x {} (row-major, y = W x{} + b){}\n", d.name, d.out, cols,
                          d.time_input ? " with t as the last column of x" : "",
-                         d.weight_tensor.empty() ? "" : fmt::format(", tensor \"{}\"", d.weight_tensor));
+                         d.weight_tensor.empty() ? "" : ", tensor " + escape_controls(quote_string(d.weight_tensor)));
         o += fmt::format("{}_WEIGHTS_ATTR const real w_{}[{}] = {{\n", M_, d.name, w.size());
         o += array_rows(w, e.p);
         o += "};\n";
@@ -26,7 +27,7 @@ std::string render_weights(const Emission& e) {
             std::vector<double> b(d.bias.data(), d.bias.data() + d.bias.size());
             if (b.empty()) b.assign(static_cast<std::size_t>(d.out), 0.0);
             o += fmt::format("// {}: bias {}{}\n", d.name, d.out,
-                             d.bias_tensor.empty() ? "" : fmt::format(", tensor \"{}\"", d.bias_tensor));
+                             d.bias_tensor.empty() ? "" : ", tensor " + escape_controls(quote_string(d.bias_tensor)));
             o += fmt::format("{}_WEIGHTS_ATTR const real b_{}[{}] = {{\n", M_, d.name, b.size());
             o += array_rows(b, e.p);
             o += "};\n";
