@@ -21,6 +21,7 @@
 #include "compiler/lower.hpp"
 #include "compiler/npz_writer.hpp"
 #include "compiler/parse.hpp"
+#include "compiler/plot.hpp"
 #include "compiler/check.hpp"
 #include "compiler/refit.hpp"
 #include "compiler/source.hpp"
@@ -269,7 +270,7 @@ int cmd_cost(const std::string& model_path, const std::string& input, const std:
 
 int cmd_tune(const std::string& model_path, const std::string& input, const std::string& precision, double target,
              const std::vector<std::string>& methods, int sweep, bool json, const std::string& labels_path,
-             std::optional<double> metric_slack) {
+             std::optional<double> metric_slack, const std::string& plot_path) {
     Diagnostics diags;
     Precision p = precision_of(precision);
     auto in = load_with_rows(model_path, p, input, diags);
@@ -285,6 +286,7 @@ int cmd_tune(const std::string& model_path, const std::string& input, const std:
     to.precision = p;
     to.inputs = in->rows;
     auto rep = tune_model(in->loaded.model, to, diags);
+    if (rep && !plot_path.empty() && !write_file_atomic(plot_path, render_tune_svg(*rep), diags)) rep.reset();
     flush(diags);
     if (!rep) return kModelError;
     std::fputs((json ? render_tune_json(*rep) : render_tune_text(*rep)).c_str(), stdout);
@@ -508,6 +510,8 @@ int main(int argc, char** argv) {
         ->check(kFinitePositive);
     tune->add_option("--precision", precision, "float32 (default) or float64")->check(CLI::IsMember(precisions));
     tune->add_flag("--json", json, "JSON for tools instead of text");
+    std::string plot_path;
+    tune->add_option("--plot", plot_path, "also draw deviation (or the metric) against field evaluations as an SVG file");
     auto* tune_labels =
         tune->add_option("--labels", labels_path, "CSV of held-out labels, a row per input row: report each candidate's task metric");
     double metric_slack = -1.0;
@@ -578,7 +582,7 @@ int main(int argc, char** argv) {
         if (*cost) return cmd_cost(model, input, precision, core, cycles_per_mac, json);
         if (*tune)
             return cmd_tune(model, input, precision, target, methods, sweep, json, labels_path,
-                            slack_opt->count() ? std::optional<double>(metric_slack) : std::nullopt);
+                            slack_opt->count() ? std::optional<double>(metric_slack) : std::nullopt, plot_path);
         if (*refit) return cmd_refit(model, input, refit_out, ra);
         if (*diff) return cmd_diff(model, other, weight_tol, json);
         if (*format) return cmd_format(model, in_place, check_only);
