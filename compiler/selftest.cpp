@@ -32,6 +32,8 @@ struct self_test_report {
     real max_abs_deviation;           // largest |got - want| over finite deviations
     real max_rel_deviation;           // largest |got - want| / max(1, |want|) over finite deviations
     result first_bad_result;          // the first result other than ok, ok when none
+    bool build_conditions_hold;       // build_conditions_hold(): false means this build's bits may
+                                      // differ from other targets' (FMA contraction, fast-math, ...)
 };
 
 // Runs every golden vector through infer with `ctx` (overwriting its work and
@@ -67,7 +69,7 @@ self_test_report self_test(context& ctx, real tolerance) noexcept;
     c += emit_detail::array_rows(out, p);
     c += "};\n\n}  // namespace\n\n";
     c += fmt::format(R"(self_test_report self_test(context& ctx, real tolerance) noexcept {{
-    self_test_report rep{{0u, 0u, -1, {0}, {0}, result::ok}};
+    self_test_report rep{{0u, 0u, -1, {0}, {0}, result::ok, build_conditions_hold()}};
     real got[output_size] = {{}};
     for (std::size_t v = 0; v < self_test_vectors; ++v) {{
         ++rep.vectors_run;

@@ -1,5 +1,6 @@
 // Activations in numerically stable forms, for double (reference) and float.
-// The emitter writes the same formulas into emitted code (compiler/emit/activations.cpp).
+// float64 emitted code uses the same formulas (compiler/emit/activations.cpp); float32
+// emitted code uses meander's own kernels (runtime/math_float.inc).
 #pragma once
 
 #include <cmath>

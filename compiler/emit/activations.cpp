@@ -1,14 +1,96 @@
-// Emit, math and activation kernels: one inline function per activation the
-// model's layers use, in the same stable forms as runtime/activation.cpp.
+// Emit, math and activation kernels. float32: meander's own kernels, copied
+// from runtime/math_float.inc (one text for the tests and the emitted code),
+// only the sections the model needs. float64: one inline function per
+// activation in the same stable forms as runtime/activation.cpp.
 #include <fmt/format.h>
 
 #include <set>
+#include <sstream>
 
+#include "math_kernels_text.hpp"
 #include "render.hpp"
 
 namespace meander::emit_detail {
 
+namespace {
+
+// The kernel sections of runtime/math_float.inc, in file order: each starts
+// with "// kernel NAME: needs A B".
+struct KernelSection {
+    std::string name;
+    std::vector<std::string> needs;
+    std::string text;
+};
+
+std::vector<KernelSection> kernel_sections() {
+    std::vector<KernelSection> sections;
+    std::istringstream in{std::string(kMathFloatText)};
+    const std::string mark = "// kernel ";
+    for (std::string line; std::getline(in, line);) {
+        if (line.compare(0, mark.size(), mark) == 0) {
+            KernelSection s;
+            const std::size_t colon = line.find(':');
+            s.name = line.substr(mark.size(), colon - mark.size());
+            std::istringstream needs(line.substr(line.find("needs", colon) + 5));
+            for (std::string n; needs >> n;) s.needs.push_back(n);
+            sections.push_back(std::move(s));
+        }
+        if (!sections.empty()) sections.back().text += line + "\n";
+    }
+    return sections;
+}
+
+const char* kernel_of(Activation a) {
+    switch (a) {
+    case Activation::identity: return nullptr;
+    case Activation::softmax: return "exp";
+    case Activation::relu: return "relu";
+    case Activation::leaky_relu: return "leaky_relu";
+    case Activation::tanh: return "tanh";
+    case Activation::sigmoid: return "sigmoid";
+    case Activation::softplus: return "softplus";
+    case Activation::silu: return "silu";
+    case Activation::gelu: return "gelu";
+    case Activation::elu: return "elu";
+    }
+    return nullptr;
+}
+
+bool has_adaptive_block(const Emission& e) {
+    for (const ContinuousPlan* cp : continuous_plans(e.low))
+        if (cp->adaptive) return true;
+    return false;
+}
+
+std::string float_kernels(const Emission& e) {
+    std::set<std::string> wanted;
+    for_each_dense(e.model.blocks, [&](const Dense& d) {
+        if (const char* k = kernel_of(d.act)) wanted.insert(k);
+    });
+    if (has_adaptive_block(e)) {  // the step-size controller
+        wanted.insert("pow");
+        wanted.insert("nextafter");
+    }
+    if (wanted.empty()) return "";
+    const std::vector<KernelSection> sections = kernel_sections();
+    // What the wanted sections need, and what that needs (a section only
+    // needs sections before it, so one pass from the end closes the set).
+    for (auto s = sections.rbegin(); s != sections.rend(); ++s)
+        if (wanted.count(s->name)) wanted.insert(s->needs.begin(), s->needs.end());
+    std::string o = "// meander's float math kernels (runtime/math_float.inc), the sections this model uses.\n\n";
+    for (const KernelSection& s : sections) {
+        if (!wanted.count(s.name)) continue;
+        std::string text = s.text;
+        while (text.size() > 1 && text[text.size() - 2] == '\n') text.pop_back();  // one newline at the end
+        o += text + "\n";
+    }
+    return o;
+}
+
+}  // namespace
+
 std::string render_activations(const Emission& e) {
+    if (e.p == Precision::float32) return float_kernels(e);
     std::set<Activation> used;
     for_each_dense(e.model.blocks, [&](const Dense& d) { used.insert(d.act); });
     const bool f = e.p == Precision::float32;

@@ -29,7 +29,7 @@ std::string render_dense_layers(const Emission& e) {
                              d.out);
             o += fmt::format("    real sum = {};\n", e.L(0));
             o += fmt::format("    for (std::size_t o = 0; o < {}; ++o) {{\n", d.out);
-            o += "        y[o] = std::exp(y[o] - top);\n        sum += y[o];\n    }\n";
+            o += fmt::format("        y[o] = {}(y[o] - top);\n        sum += y[o];\n    }}\n", e.math("exp"));
             o += fmt::format("    const real inv_sum = {} / sum;\n", e.L(1));
             o += fmt::format("    for (std::size_t o = 0; o < {}; ++o) y[o] *= inv_sum;\n", d.out);
         }

@@ -17,7 +17,8 @@ namespace {
 std::string render_source(const Emission& e, const std::string& stamp) {
     const std::string M_ = e.M();
     std::string o = banner(e.model, e.opts, e.model.name + ".cpp");
-    o += fmt::format("#include \"{}.hpp\"\n\n#include <cmath>\n#include <cstddef>\n#include <cstdint>\n\n", e.model.name);
+    o += fmt::format("#include \"{}.hpp\"\n\n#include <cmath>\n#include <cstddef>\n#include <cstdint>\n{}\n", e.model.name,
+                     e.p == Precision::float32 ? "#include <cstring>\n" : "");
     o += fmt::format("#if !defined({}_MEANDER_STAMP) || {}_MEANDER_STAMP != {}\n", M_, M_, stamp);
     o += fmt::format("#error \"{}.hpp is not the header generated with this source: regenerate both\"\n#endif\n\n",
                      e.model.name);
@@ -60,6 +61,7 @@ std::string render_source(const Emission& e, const std::string& stamp) {
     o += "}  // namespace\n\n";
     o += render_infer(e);
     o += render_result_name();
+    o += render_build_check(e);
     o += fmt::format("}}  // namespace {}\n", e.model.name);
     if (e.opts.c_api) o += render_c_entry(e);
     return o;

@@ -94,6 +94,32 @@ std::string render_result_name() {
 )";
 }
 
+std::string render_build_check(const Emission& e) {
+    const bool f = e.p == Precision::float32;
+    // Values for which contraction, another rounding mode or flushing would
+    // change the result; volatile so the compiler cannot fold them away.
+    return fmt::format(R"(// The build conditions the bits rely on (see the banner), checked on values the
+// compiler cannot see: x*x + z is 0 when the product is rounded (and {0} when
+// fused into an FMA); 1 + 0.75 ulp rounds up only to nearest; half the least
+// normal number is 0 when subnormals are flushed.
+bool build_conditions_hold() noexcept {{
+    volatile real a = {1};  // 1 + {2}
+    volatile real c = {3};  // -(1 + {9})
+    volatile real b = {4};  // 0.75 ulp of 1
+    volatile real tiny = {5};  // the least normal number
+    const real x = a;
+    const real fused = x * x + c;
+    const real up = {6} + b;
+    const real half_tiny = tiny * {7};
+    return !(fused < {8} || fused > {8}) && up > {6} && half_tiny > {8};
+}}
+
+)",
+                       f ? "2^-24" : "2^-54", f ? "0x1.001p+0f" : "0x1.0000002p+0", f ? "2^-12" : "2^-27",
+                       f ? "-0x1.002p+0f" : "-0x1.0000004p+0", f ? "0x3p-25f" : "0x3p-54", f ? "0x1p-126f" : "0x1p-1022",
+                       e.L(1), e.L(0.5), e.L(0), f ? "2^-11" : "2^-26");
+}
+
 std::string render_c_entry(const Emission& e) {
     return fmt::format("\nextern \"C\" int {0}_infer(void* context, const {1}* input, {1}* output) noexcept {{\n"
                        "    return static_cast<int>({0}::infer(*static_cast<{0}::context*>(context), input, "

@@ -6,6 +6,7 @@
 #include <cmath>
 
 #include "../../runtime/integrate.hpp"
+#include "../../runtime/math_kernels.hpp"
 #include "../format.hpp"
 #include "../source.hpp"
 #include "render.hpp"
@@ -127,6 +128,20 @@ std::string banner(const Model& model, const EmitOptions& opts, std::string_view
                      opts.content_hash.empty() ? std::string("not given") : opts.content_hash);
     o += fmt::format("// precision: {} (real = {})\n", opts.precision == Precision::float32 ? "float32" : "float64",
                      real_type(opts.precision));
+    if (opts.precision == Precision::float32) {
+        o += "// math: meander's own float kernels (runtime/math_float.inc), no C library maths;\n";
+        o += "//   largest error in ulp against MPFR:";
+        for (const KernelBound& b : kFloatKernelBounds) o += fmt::format(" {} {:.1f}", b.name, b.ulp);
+        o += "\n";
+    }
+    if (opts.precision == Precision::float32) {
+        o += "// bits: the same outputs on every core when built with -ffp-contract=off (no FMA\n";
+        o += "//   contraction), without -ffast-math, rounding to nearest, subnormals kept;\n";
+    } else {
+        o += "// math: the C++ library's <cmath>; build with -ffp-contract=off, without -ffast-math,\n";
+        o += "//   rounding to nearest, subnormals kept;\n";
+    }
+    o += "//   build_conditions_hold() checks a build, the self-test reports it\n";
     banner_blocks(o, model.blocks);
     o += "// Caution: this code is not certified for use in safety functions. Where its outputs can\n";
     o += "// hurt people, follow the applicable functional safety standard and have it qualified and\n";
@@ -236,6 +251,11 @@ result infer(context& ctx, const real* input, real* output) noexcept;
 
 // "ok", "input_not_finite", ... (the enumerator's name).
 const char* result_name(result r) noexcept;
+
+// True when this build keeps the conditions the banner states for identical
+// bits (no FMA contraction, rounding to nearest, subnormals kept); the
+// self-test reports it.
+bool build_conditions_hold() noexcept;
 
 )";
     o += fmt::format("}}  // namespace {}\n", e.model.name);

@@ -86,7 +86,7 @@ void adaptive_body(const Emission& e, std::string& o, const ContinuousPlan& cp, 
         o += "        const real dmax = d1 < d2 ? d2 : d1;\n";
         o += fmt::format("        const real h1 = (d1 <= {0} && d2 <= {0})\n", e.L(1e-15));
         o += fmt::format("                            ? ({0} < h0 * {1} ? h0 * {1} : {0})\n", e.L(1e-6), e.L(1e-3));
-        o += fmt::format("                            : std::pow({} / dmax, {});\n", e.L(0.01), e.L(1.0 / (q + 1)));
+        o += fmt::format("                            : {}({} / dmax, {});\n", e.math("pow"), e.L(0.01), e.L(1.0 / (q + 1)));
         o += fmt::format("        h_abs = h1 < {0} * h0 ? h1 : {0} * h0;\n", e.L(100));
         o += "    }\n";
     }
@@ -97,7 +97,7 @@ void adaptive_body(const Emission& e, std::string& o, const ContinuousPlan& cp, 
     const std::string not_there = forward ? "t < t1" : "t > t1";
     o += "    while (" + not_there + ") {\n";
     o += "        // nextafter toward t1 is nextafter toward the direction of integration (t != t1).\n";
-    o += fmt::format("        const real min_step = {} * std::fabs(std::nextafter(t, t1) - t);\n", e.L(10));
+    o += fmt::format("        const real min_step = {} * std::fabs({}(t, t1) - t);\n", e.L(10), e.math("nextafter"));
     o += "        if (h_abs < min_step) h_abs = min_step;  // as SciPy: only rejections end in step_too_small\n";
     o += "        bool rejected = false;\n";
     o += "        for (;;) {\n";
@@ -123,7 +123,7 @@ void adaptive_body(const Emission& e, std::string& o, const ContinuousPlan& cp, 
     o += "            ++attempts;\n";
     o += fmt::format("            if (!(err < {})) {{  // reject (a NaN error too: it shrinks by min-factor)\n",
                      e.L(1));
-    o += "                const real shrink = safety * std::pow(err, exponent);\n";
+    o += fmt::format("                const real shrink = safety * {}(err, exponent);\n", e.math("pow"));
     o += "                h_abs *= shrink > min_factor ? shrink : min_factor;\n";
     o += "                ++count.steps_rejected;\n";
     o += "                rejected = true;\n";
@@ -132,12 +132,12 @@ void adaptive_body(const Emission& e, std::string& o, const ContinuousPlan& cp, 
     o += "            real factor = max_factor;\n";
     if (!pi) {
         o += fmt::format("            if (err > {}) {{\n", e.L(0));  // err >= 0 here
-        o += "                const real grow = safety * std::pow(err, exponent);\n";
+        o += fmt::format("                const real grow = safety * {}(err, exponent);\n", e.math("pow"));
         o += "                factor = grow < max_factor ? grow : max_factor;\n";
         o += "            }\n";
     } else {
         o += fmt::format("            if (err > {}) {{\n", e.L(0));  // err >= 0 here
-        o += "                factor = safety * std::pow(err, pi_err_exp) * std::pow(err_prev, pi_prev_exp);\n";
+        o += fmt::format("                factor = safety * {0}(err, pi_err_exp) * {0}(err_prev, pi_prev_exp);\n", e.math("pow"));
         o += "                factor = factor < min_factor ? min_factor : (max_factor < factor ? max_factor : factor);\n";
         o += "            }\n";
         o += fmt::format("            err_prev = err < {0} ? {0} : err;\n", e.L(1e-4));

@@ -28,6 +28,11 @@ struct Emission {
     std::string L(double v) const { return real_literal(v, p); }
     std::string M() const { return macro_prefix(model.name); }
     std::string real_name() const { return real_type(p); }
+    // A maths function of the emitted code: float32 calls meander's own
+    // kernel (runtime/math_float.inc), float64 the C++ library's.
+    std::string math(const char* name) const {
+        return p == Precision::float32 ? std::string(name) + "_kernel" : std::string("std::") + name;
+    }
 };
 
 // header.cpp: NAME.hpp with kStampHole where the stamp goes; stamp_of hashes
@@ -59,6 +64,7 @@ void render_chain(const Emission& e, std::string& o, const Chain& c, const std::
                   const std::string& pad, bool top);
 std::string render_infer(const Emission& e);
 std::string render_result_name();
+std::string render_build_check(const Emission& e);
 std::string render_c_entry(const Emission& e);
 
 }  // namespace meander::emit_detail

@@ -9,10 +9,15 @@
 #   cortex-m7       build for Cortex-M7 (single-precision FPU), run on qemu mps2-an500
 #   arm-linux       build for 32-bit ARM Linux (-O2 -static), run under qemu-arm
 #   arm-linux-f64   the same with --precision float64
+#   host-gcc | host-clang
+#                   build with g++ / clang++ -O2 for this machine and run it
+#   bits            compare the output bit patterns (bits.txt) the float32 run
+#                   modes above wrote for this sample: one differing bit fails
 #   warnings-gcc | warnings-clang | warnings-arm
 #                   the emitted sources compile cleanly with the strict warning set
 #   image           a Cortex-M4F float image of the emitted code links no
-#                   software-double helper (__aeabi_d*), no malloc, no operator new
+#                   software-double helper (__aeabi_d*), no malloc, no operator new,
+#                   no C library float maths but sqrtf
 #   stack           every emitted function's stack use (-fstack-usage) is static
 #   cost            `meander cost --json` states the code bytes arm-none-eabi-size
 #                   and the entry frame the .su file give for the emitted object,
@@ -73,7 +78,9 @@ case "$mode" in
     cortex-m4f|cortex-m3|cortex-m7|image|stack|warnings-arm) need arm-none-eabi-g++ ;;
     cost) need arm-none-eabi-g++ arm-none-eabi-size ;;
     arm-linux|arm-linux-f64) need arm-linux-gnueabihf-g++ qemu-arm ;;
-    warnings-gcc) need g++ ;;
+    warnings-gcc|host-gcc) need g++ ;;
+    host-clang) need clang++ ;;
+    bits) ;;
     warnings-clang) need clang++ ;;
     *) echo "run_target.sh: unknown mode '$mode'" >&2; exit 2 ;;
 esac
@@ -82,6 +89,33 @@ case "$mode" in
     image) need arm-none-eabi-nm ;;
 esac
 command -v timeout > /dev/null 2>&1 || { echo "SKIP: timeout (coreutils) is not installed"; exit 77; }
+
+# The float32 run modes whose bits must agree.
+bit_modes=(host-gcc host-clang arm-linux cortex-m4f cortex-m3 cortex-m7)
+if [ "$mode" = bits ]; then
+    runs=$(dirname "$work")
+    ref=""
+    status=0
+    for m in "${bit_modes[@]}"; do
+        f=$runs/$m/bits.txt
+        if [ ! -s "$f" ]; then
+            echo "$m: no bits.txt (its test did not run or failed)"
+            status=1
+            continue
+        fi
+        if [ -z "$ref" ]; then ref=$m; continue; fi
+        if ! cmp -s "$runs/$ref/bits.txt" "$f"; then
+            echo "$m differs from $ref:"
+            diff "$runs/$ref/bits.txt" "$f" | head -20
+            status=1
+        else
+            echo "$m: $(wc -l < "$f") rows, every output bit equal to $ref's"
+        fi
+    done
+    [ "$status" -eq 0 ] || fail "the targets' output bits differ"
+    echo "PASS: $mode"
+    exit 0
+fi
 
 # The model's name: the identifier after the first `model` keyword.
 name=$(sed -e 's/#.*//' "$mnd" | awk '{ for (i = 1; i < NF; ++i) if ($i == "model") { print $(i + 1); exit } }')
@@ -170,6 +204,7 @@ compare() {
         $1 == "self-test" {
             selftest = 1
             if ($5 != 0 || $NF != "ok") { printf "self-test on the target failed: %s\n", $0; ++bad }
+            for (i = 1; i < NF; ++i) if ($i == "build-conditions" && $(i + 1) != 1) { print "build_conditions_hold() is false: this build may not give the common bits"; ++bad }
         }
         END {
             if (seen != n) { printf "%d rows printed, expected.csv has %d\n", seen, n; ++bad }
@@ -189,6 +224,7 @@ emulate() {
     timeout "$limit" "$@" > "$log" 2>&1
     rc=$?
     cat "$log"
+    grep '^bits ' "$log" > "$work/bits.txt" || true
     [ "$rc" -ne 124 ] || fail "the run did not end within $limit s"
     compare "$log" || fail "outputs differ from expected.csv"
     [ "$rc" -eq 0 ] || fail "the program exited with status $rc"
@@ -198,7 +234,7 @@ emulate() {
 board() {
     local machine=$1; shift
     write_inputs
-    run arm-none-eabi-g++ "${common_cross[@]}" "$@" "${driver_defs[@]}" \
+    run arm-none-eabi-g++ "${common_cross[@]}" -ffp-contract=off "$@" "${driver_defs[@]}" \
         "$here/startup.cpp" "$here/board_main.cpp" "${sources[@]}" \
         -T "$here/mps2.ld" -nostartfiles --specs=rdimon.specs -Wl,--gc-sections -o "$work/app.elf" ||
         fail "cross build failed"
@@ -206,12 +242,19 @@ board() {
 }
 
 case "$mode" in
+host-gcc|host-clang)
+    write_inputs
+    if [ "$mode" = host-gcc ]; then cxx=g++; else cxx=clang++; fi
+    run "$cxx" -std=c++17 -O2 -ffp-contract=off -fno-exceptions -fno-rtti "${driver_defs[@]}" \
+        "$here/board_main.cpp" "${sources[@]}" -o "$work/app" || fail "host build failed"
+    emulate "$work/app"
+    ;;
 cortex-m4f) board mps2-an386 "${m4f_flags[@]}" ;;
 cortex-m3)  board mps2-an385 "${m3_flags[@]}" ;;
 cortex-m7)  board mps2-an500 "${m7_flags[@]}" ;;
 arm-linux|arm-linux-f64)
     write_inputs
-    run arm-linux-gnueabihf-g++ -std=c++17 -O2 -static -fno-exceptions -fno-rtti "${driver_defs[@]}" \
+    run arm-linux-gnueabihf-g++ -std=c++17 -O2 -ffp-contract=off -static -fno-exceptions -fno-rtti "${driver_defs[@]}" \
         "$here/board_main.cpp" "${sources[@]}" -o "$work/app" || fail "cross build failed"
     emulate qemu-arm "$work/app"
     ;;
@@ -254,7 +297,12 @@ EOF
     if grep -E ' (__aeabi_(c?d[a-z0-9_]*|[a-z]+2d)|malloc|_malloc_r|calloc|realloc|free|_free_r|_Zn[wa][jm].*|_Zd[la]Pv.*)$' "$work/image.nm"; then
         fail "the Cortex-M4F float image links the symbols above"
     fi
-    echo "$(wc -l < "$work/image.nm") symbols, none of them software double, heap or operator new"
+    # meander's own kernels stand in for the C library's float maths (sqrtf,
+    # correctly rounded, is the one allowed).
+    if grep -E ' (__ieee754_)?(expf|expm1f|logf|log1pf|tanhf|powf|nextafterf|exp2f|log2f)$' "$work/image.nm"; then
+        fail "the Cortex-M4F float image calls the C library maths above"
+    fi
+    echo "$(wc -l < "$work/image.nm") symbols, none of them software double, heap, operator new or C library maths but sqrtf"
     echo "PASS: $mode"
     ;;
 stack)

@@ -2,6 +2,11 @@
 // model: tiny_adaptive
 // content hash (description and weights): 0123456789abcdef
 // precision: float32 (real = float)
+// math: meander's own float kernels (runtime/math_float.inc), no C library maths;
+//   largest error in ulp against MPFR: exp 1.0 expm1 1.5 tanh 1.5 sigmoid 2.5 softplus 2.5 silu 3.0 gelu 3.0
+// bits: the same outputs on every core when built with -ffp-contract=off (no FMA
+//   contraction), without -ffast-math, rounding to nearest, subnormals kept;
+//   build_conditions_hold() checks a build, the self-test reports it
 // continuous drift: state 3 (2 + augment 1), t from 0 to 0.5
 //   method: Dormand-Prince 5(4) (`dormand-prince`); coefficients from Dormand & Prince, J. Comput. Appl. Math. 6(1):19-26, 1980
 //   order 5, embedded order 4, 7 stages, FSAL (last stage = f(t + h, y_new))
@@ -22,8 +27,9 @@
 #include <cmath>
 #include <cstddef>
 #include <cstdint>
+#include <cstring>
 
-#if !defined(TINY_ADAPTIVE_MEANDER_STAMP) || TINY_ADAPTIVE_MEANDER_STAMP != 0xd0405bbb70e200fbULL
+#if !defined(TINY_ADAPTIVE_MEANDER_STAMP) || TINY_ADAPTIVE_MEANDER_STAMP != 0x1797808a14591b24ULL
 #error "tiny_adaptive.hpp is not the header generated with this source: regenerate both"
 #endif
 
@@ -66,9 +72,104 @@ TINY_ADAPTIVE_WEIGHTS_ATTR const real w_g2[15] = {
     -0.3284402f, -0.15266897f, 0.3150889f, 0.33050698f, -0.08219388f, -0.22574238f, -0.057224695f,
 };
 
+// meander's float math kernels (runtime/math_float.inc), the sections this model uses.
+
+// kernel bits_of: needs
+// Bit pattern of a float and back (std::memcpy: no aliasing trouble).
+inline std::uint32_t bits_of(float x) noexcept {
+    std::uint32_t u;
+    std::memcpy(&u, &x, sizeof u);
+    return u;
+}
+
+// kernel float_of: needs
+inline float float_of(std::uint32_t u) noexcept {
+    float x;
+    std::memcpy(&x, &u, sizeof x);
+    return x;
+}
+// 2^k for -126 <= k <= 127, exactly.
+inline float pow2(int k) noexcept { return float_of(static_cast<std::uint32_t>(k + 127) << 23); }
+
+// kernel exp: needs float_of
+// s exp(hi + lo) for |lo| <= 2^-20 |hi| and 2^-8 <= |s| <= 2^8: hi = k ln2 + r
+// with |r| <= ln2/2 (Cody and Waite: ln2 in two parts, k ln2_hi exact), e^r
+// by the polynomial of the Cephes Math Library's expf (S. L. Moshier), then
+// s e^r times 2^k in two exact halves, so a subnormal result is rounded once.
+// Overflow gives +inf (s = 1 only), an underflow 0, NaN stays NaN.
+inline float exp_scaled(float hi, float lo, float s) noexcept {
+    if (std::isnan(hi)) return hi;
+    if (hi > 88.8f) return HUGE_VALF;
+    if (hi < -112.0f) return 0.0f * s;
+    const float t = hi * 1.44269504f;  // log2(e)
+    const int k = static_cast<int>(t < 0.0f ? t - 0.5f : t + 0.5f);
+    const float kf = static_cast<float>(k);
+    const float r = (hi - kf * 0.693145751953125f) - kf * 1.42860677e-6f + lo;
+    const float r2 = r * r;
+    const float p = (((((1.98756915e-4f * r + 1.39819995e-3f) * r + 8.33345190e-3f) * r + 4.16657959e-2f) * r +
+                      1.66666655e-1f) * r + 5.00000012e-1f) * r2 + r + 1.0f;
+    const int k1 = k / 2;
+    return p * s * pow2(k1) * pow2(k - k1);
+}
+inline float exp_kernel(float x) noexcept { return exp_scaled(x, 0.0f, 1.0f); }
+
+// kernel log1p_series: needs
+// log(1 + t) for 0 <= t <= 1 (what softplus needs): log(1+t) = 2 atanh(z),
+// z = t/(2+t), by its series (z^2 <= 0.04: terms to z^11). For t >= 1/2,
+// 1 + t = 2(1 + u) with u = (t - 1)/2 exact, so log(1+t) = ln2 + log(1+u),
+// which keeps |z| <= 1/7 and the series short.
+inline float log1p_series(float z) noexcept {
+    const float z2 = z * z;
+    const float p = ((((1.0f / 11.0f * z2 + 1.0f / 9.0f) * z2 + 1.0f / 7.0f) * z2 + 1.0f / 5.0f) * z2 + 1.0f / 3.0f) * z2;
+    return 2.0f * z + 2.0f * z * p;
+}
+
+// kernel log1p: needs log1p_series
+inline float log1p_kernel(float t) noexcept {
+    if (t < 0.5f) return log1p_series(t / (2.0f + t));
+    const float u = (t - 1.0f) * 0.5f;
+    return 0.693145751953125f + (log1p_series(u / (2.0f + u)) + 1.42860677e-6f);
+}
+
+// kernel softplus: needs exp log1p
 // max(x, 0) + log1p(exp(-|x|)): no overflow for large x.
-inline real act_softplus(real x) noexcept {
-    return (x > 0.0f ? x : 0.0f) + std::log1p(std::exp(-std::fabs(x)));
+inline float act_softplus(float x) noexcept {
+    const float l = log1p_kernel(exp_kernel(-std::fabs(x)));
+    return x > 0.0f ? x + l : l;
+}
+
+// kernel pow: needs exp log1p_series bits_of float_of
+// x^y for x >= 0 (the step-size controller's err^exponent): exp(y log x),
+// log(m 2^e) = e ln2 + log(m) with m in [sqrt(1/2), sqrt(2)).
+inline float log_kernel(float x) noexcept {
+    if (!(x > 0.0f)) return x < 0.0f || std::isnan(x) ? NAN : -HUGE_VALF;
+    if (std::isinf(x)) return x;
+    const std::uint32_t b = bits_of(x);
+    int e = static_cast<int>(b >> 23) - 127;
+    float m = float_of((b & 0x007fffffu) | 0x3f800000u);  // in [1, 2)
+    if (e == -127) {  // subnormal: scale by 2^23 first
+        const std::uint32_t bs = bits_of(x * 8388608.0f);
+        e = static_cast<int>(bs >> 23) - 127 - 23;
+        m = float_of((bs & 0x007fffffu) | 0x3f800000u);
+    }
+    if (m > 1.41421354f) {  // m in [sqrt2, 2): use m/2 in [0.707, 1)
+        m *= 0.5f;
+        ++e;
+    }
+    const float u = m - 1.0f;  // exact, in [-0.293, 0.415)
+    const float ef = static_cast<float>(e);
+    return ef * 0.693145751953125f + (log1p_series(u / (2.0f + u)) + ef * 1.42860677e-6f);
+}
+inline float pow_kernel(float x, float y) noexcept { return exp_kernel(y * log_kernel(x)); }
+
+// kernel nextafter: needs bits_of float_of
+// The next float after finite t toward finite target (t != target).
+inline float nextafter_kernel(float t, float target) noexcept {
+    std::uint32_t b = bits_of(t);
+    if ((b & 0x7fffffffu) == 0u) return target > 0.0f ? float_of(1u) : float_of(0x80000001u);
+    const bool away = (t < target) == (t > 0.0f);  // grows in magnitude
+    b = away ? b + 1u : b - 1u;
+    return float_of(b);
 }
 
 bool all_finite(const real* v, std::size_t n) noexcept {
@@ -192,14 +293,14 @@ result block_drift(real* work, const real* in, real* out, counters& count) noexc
         const real dmax = d1 < d2 ? d2 : d1;
         const real h1 = (d1 <= 1e-15f && d2 <= 1e-15f)
                             ? (1e-06f < h0 * 0.001f ? h0 * 0.001f : 1e-06f)
-                            : std::pow(0.01f / dmax, 0.2f);
+                            : pow_kernel(0.01f / dmax, 0.2f);
         h_abs = h1 < 100.0f * h0 ? h1 : 100.0f * h0;
     }
     real err_prev = 0.0001f;
     std::uint32_t attempts = 0u;
     while (t < t1) {
         // nextafter toward t1 is nextafter toward the direction of integration (t != t1).
-        const real min_step = 10.0f * std::fabs(std::nextafter(t, t1) - t);
+        const real min_step = 10.0f * std::fabs(nextafter_kernel(t, t1) - t);
         if (h_abs < min_step) h_abs = min_step;  // as SciPy: only rejections end in step_too_small
         bool rejected = false;
         for (;;) {
@@ -232,7 +333,7 @@ result block_drift(real* work, const real* in, real* out, counters& count) noexc
             const real err = std::sqrt(sum * inv_n);
             ++attempts;
             if (!(err < 1.0f)) {  // reject (a NaN error too: it shrinks by min-factor)
-                const real shrink = safety * std::pow(err, exponent);
+                const real shrink = safety * pow_kernel(err, exponent);
                 h_abs *= shrink > min_factor ? shrink : min_factor;
                 ++count.steps_rejected;
                 rejected = true;
@@ -240,7 +341,7 @@ result block_drift(real* work, const real* in, real* out, counters& count) noexc
             }
             real factor = max_factor;
             if (err > 0.0f) {
-                factor = safety * std::pow(err, pi_err_exp) * std::pow(err_prev, pi_prev_exp);
+                factor = safety * pow_kernel(err, pi_err_exp) * pow_kernel(err_prev, pi_prev_exp);
                 factor = factor < min_factor ? min_factor : (max_factor < factor ? max_factor : factor);
             }
             err_prev = err < 0.0001f ? 0.0001f : err;
@@ -280,6 +381,22 @@ const char* result_name(result r) noexcept {
     case result::step_too_small: return "step_too_small";
     }
     return "unknown";
+}
+
+// The build conditions the bits rely on (see the banner), checked on values the
+// compiler cannot see: x*x + z is 0 when the product is rounded (and 2^-24 when
+// fused into an FMA); 1 + 0.75 ulp rounds up only to nearest; half the least
+// normal number is 0 when subnormals are flushed.
+bool build_conditions_hold() noexcept {
+    volatile real a = 0x1.001p+0f;  // 1 + 2^-12
+    volatile real c = -0x1.002p+0f;  // -(1 + 2^-11)
+    volatile real b = 0x3p-25f;  // 0.75 ulp of 1
+    volatile real tiny = 0x1p-126f;  // the least normal number
+    const real x = a;
+    const real fused = x * x + c;
+    const real up = 1.0f + b;
+    const real half_tiny = tiny * 0.5f;
+    return !(fused < 0.0f || fused > 0.0f) && up > 1.0f && half_tiny > 0.0f;
 }
 
 }  // namespace tiny_adaptive

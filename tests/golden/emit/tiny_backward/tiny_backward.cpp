@@ -2,6 +2,9 @@
 // model: tiny_backward
 // content hash (description and weights): 0123456789abcdef
 // precision: float64 (real = double)
+// math: the C++ library's <cmath>; build with -ffp-contract=off, without -ffast-math,
+//   rounding to nearest, subnormals kept;
+//   build_conditions_hold() checks a build, the self-test reports it
 // continuous rewind: state 2 (2 + augment 0), t from 1 to 0
 //   method: Cash-Karp 5(4) (`cash-karp`); coefficients from Cash & Karp, ACM Trans. Math. Softw. 16(3):201-222, 1990
 //   order 5, embedded order 4, 6 stages, not FSAL
@@ -23,7 +26,7 @@
 #include <cstddef>
 #include <cstdint>
 
-#if !defined(TINY_BACKWARD_MEANDER_STAMP) || TINY_BACKWARD_MEANDER_STAMP != 0x6c15b492a517765fULL
+#if !defined(TINY_BACKWARD_MEANDER_STAMP) || TINY_BACKWARD_MEANDER_STAMP != 0xc07bbd4674930b6bULL
 #error "tiny_backward.hpp is not the header generated with this source: regenerate both"
 #endif
 
@@ -248,6 +251,22 @@ const char* result_name(result r) noexcept {
     case result::step_too_small: return "step_too_small";
     }
     return "unknown";
+}
+
+// The build conditions the bits rely on (see the banner), checked on values the
+// compiler cannot see: x*x + z is 0 when the product is rounded (and 2^-54 when
+// fused into an FMA); 1 + 0.75 ulp rounds up only to nearest; half the least
+// normal number is 0 when subnormals are flushed.
+bool build_conditions_hold() noexcept {
+    volatile real a = 0x1.0000002p+0;  // 1 + 2^-27
+    volatile real c = -0x1.0000004p+0;  // -(1 + 2^-26)
+    volatile real b = 0x3p-54;  // 0.75 ulp of 1
+    volatile real tiny = 0x1p-1022;  // the least normal number
+    const real x = a;
+    const real fused = x * x + c;
+    const real up = 1.0 + b;
+    const real half_tiny = tiny * 0.5;
+    return !(fused < 0.0 || fused > 0.0) && up > 1.0 && half_tiny > 0.0;
 }
 
 }  // namespace tiny_backward

@@ -2,6 +2,9 @@
 // model: tiny_backward
 // content hash (description and weights): 0123456789abcdef
 // precision: float64 (real = double)
+// math: the C++ library's <cmath>; build with -ffp-contract=off, without -ffast-math,
+//   rounding to nearest, subnormals kept;
+//   build_conditions_hold() checks a build, the self-test reports it
 // continuous rewind: state 2 (2 + augment 0), t from 1 to 0
 //   method: Cash-Karp 5(4) (`cash-karp`); coefficients from Cash & Karp, ACM Trans. Math. Softw. 16(3):201-222, 1990
 //   order 5, embedded order 4, 6 stages, not FSAL
@@ -22,7 +25,7 @@
 
 // Shared by this header and its source from the same meander run; the source refuses
 // any other header.
-#define TINY_BACKWARD_MEANDER_STAMP 0x6c15b492a517765fULL
+#define TINY_BACKWARD_MEANDER_STAMP 0xc07bbd4674930b6bULL
 
 #include <cstddef>
 #include <cstdint>
@@ -91,6 +94,11 @@ result infer(context& ctx, const real* input, real* output) noexcept;
 
 // "ok", "input_not_finite", ... (the enumerator's name).
 const char* result_name(result r) noexcept;
+
+// True when this build keeps the conditions the banner states for identical
+// bits (no FMA contraction, rounding to nearest, subnormals kept); the
+// self-test reports it.
+bool build_conditions_hold() noexcept;
 
 }  // namespace tiny_backward
 

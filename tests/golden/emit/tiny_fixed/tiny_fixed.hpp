@@ -2,6 +2,11 @@
 // model: tiny_fixed
 // content hash (description and weights): 0123456789abcdef
 // precision: float32 (real = float)
+// math: meander's own float kernels (runtime/math_float.inc), no C library maths;
+//   largest error in ulp against MPFR: exp 1.0 expm1 1.5 tanh 1.5 sigmoid 2.5 softplus 2.5 silu 3.0 gelu 3.0
+// bits: the same outputs on every core when built with -ffp-contract=off (no FMA
+//   contraction), without -ffast-math, rounding to nearest, subnormals kept;
+//   build_conditions_hold() checks a build, the self-test reports it
 // continuous glide: state 3 (3 + augment 0), t from 0 to 1
 //   method: classic Runge-Kutta 4 (`rk4`); coefficients from Kutta 1901; HNW I, II.1
 //   order 4, 4 stages, not FSAL
@@ -15,7 +20,7 @@
 
 // Shared by this header and its source from the same meander run; the source refuses
 // any other header.
-#define TINY_FIXED_MEANDER_STAMP 0x4ce1f5bbfb89359bULL
+#define TINY_FIXED_MEANDER_STAMP 0x62060722f5e6e8e8ULL
 
 // For C callers: the context is an opaque block of this many bytes, aligned to
 // TINY_FIXED_CONTEXT_ALIGN (the source checks both against sizeof/alignof(context)).
@@ -90,6 +95,11 @@ result infer(context& ctx, const real* input, real* output) noexcept;
 
 // "ok", "input_not_finite", ... (the enumerator's name).
 const char* result_name(result r) noexcept;
+
+// True when this build keeps the conditions the banner states for identical
+// bits (no FMA contraction, rounding to nearest, subnormals kept); the
+// self-test reports it.
+bool build_conditions_hold() noexcept;
 
 }  // namespace tiny_fixed
 
