@@ -239,7 +239,7 @@ private:
         Cursor& c = cursors_.back();
         switch (r.kind) {
             case Kind::model: return "model " + model_.name;
-            case Kind::weights: return "weights " + quoted(model_.weights_path);
+            case Kind::weights: return "weights " + quoted(model_.weights_path) + (model_.weights_key.empty() ? "" : " under " + quoted(model_.weights_key));
             case Kind::input: return fmt::format("input {}[{}]", model_.input_name, model_.input_size);
             case Kind::output: return fmt::format("output {}[{}]", model_.output_name, model_.output_size);
             case Kind::dense: return dense_text((*c.body)[c.next++].dense);

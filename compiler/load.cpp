@@ -12,6 +12,12 @@ namespace meander {
 
 namespace fs = std::filesystem;
 
+std::string weights_path_of(const Model& model, const std::string& description_path) {
+    fs::path wpath = fs::path(model.weights_path);
+    if (wpath.is_relative()) wpath = fs::path(description_path).parent_path() / wpath;
+    return wpath.lexically_normal().string();
+}
+
 std::optional<LoadedModel> load_model(const std::string& path, Precision precision, Diagnostics& diags,
                                       bool with_weights) {
     auto src = load_source(path, diags);
@@ -28,15 +34,13 @@ std::optional<LoadedModel> load_model(const std::string& path, Precision precisi
             diags.error(out.source, out.model.loc, "the description names no weights: add a line 'weights \"FILE\"'");
             return std::nullopt;
         }
-        fs::path wpath = fs::path(out.model.weights_path);
-        if (wpath.is_relative()) wpath = fs::path(path).parent_path() / wpath;
-        const std::string weights = wpath.lexically_normal().string();
+        const std::string weights = weights_path_of(out.model, path);
         // A weights file's errors name the file; the note names the line that chose it.
         auto named_here = [&]() {
             diags.note(out.source, out.model.weights_loc, fmt::format("the weights file '{}' is named here", weights));
             return std::nullopt;
         };
-        auto set = read_weights(weights, diags);
+        auto set = read_weights(weights, diags, out.model.weights_key);
         if (!set) return named_here();
         if (!bind_weights(out.model, out.source, *set, diags)) return std::nullopt;
         if (!check_weight_range(out.model, out.source, precision, diags)) return std::nullopt;

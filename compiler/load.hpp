@@ -20,6 +20,9 @@ struct LoadedModel {
 // description's folder. `precision` is the one code will be emitted in (it sets
 // the rtol floor and the weight range checks). Without weights, only the
 // description is hashed and the matrices stay empty.
+// The model's weights path as the description names it, relative to its folder.
+std::string weights_path_of(const Model& model, const std::string& description_path);
+
 std::optional<LoadedModel> load_model(const std::string& path, Precision precision, Diagnostics& diags,
                                       bool with_weights = true);
 

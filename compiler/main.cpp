@@ -25,6 +25,8 @@
 #include "compiler/check.hpp"
 #include "compiler/refit.hpp"
 #include "compiler/source.hpp"
+#include "compiler/tensors.hpp"
+#include "compiler/weights.hpp"
 #include "compiler/tune.hpp"
 #include "compiler/verify.hpp"
 #include "runtime/evaluate.hpp"
@@ -100,6 +102,34 @@ std::string csv_header(const Model& m) {
     std::string h;
     for (int i = 0; i < m.output_size; ++i) h += fmt::format("{}{}.{}", i ? "," : "", m.output_name, i);
     return h + "\n";
+}
+
+// A weights file's tensors; given a description, its weights and which tensors its layers bind.
+int cmd_tensors(const std::string& file, const std::string& under) {
+    Diagnostics diags;
+    const bool description = fs::path(file).extension() == ".mnd";
+    std::optional<LoadedModel> loaded;
+    std::string weights = file, key = under;
+    if (description) {
+        loaded = load_model(file, Precision::float64, diags, false);
+        if (!loaded) return flush(diags), kModelError;
+        if (loaded->model.weights_path.empty()) {
+            diags.error(loaded->source, loaded->model.loc, "the description names no weights: add a line 'weights \"FILE\"'");
+            return flush(diags), kModelError;
+        }
+        weights = weights_path_of(loaded->model, file);
+        if (key.empty()) key = loaded->model.weights_key;
+    }
+    auto set = read_weights(weights, diags, key);
+    if (!set) return flush(diags), kModelError;
+    std::vector<bool> used;
+    if (loaded) {
+        Diagnostics bind_diags;  // check names the problems; this lists what binds
+        bind_weights(loaded->model, loaded->source, *set, bind_diags, &used);
+    }
+    flush(diags);
+    std::fputs(render_tensor_table(*set, loaded ? &used : nullptr).c_str(), stdout);
+    return 0;
 }
 
 int cmd_check(const std::string& model_path, const std::string& precision) {
@@ -562,6 +592,11 @@ int main(int argc, char** argv) {
         ->check(kFiniteNonNegative);
     diff->add_flag("--json", json, "JSON for tools instead of text");
 
+    std::string under;
+    auto* tensors = app.add_subcommand("tensors", "list a weights file's tensors: name, dtype, shape, min, max (and, given a description, which bind)");
+    tensors->add_option("file", model, "weights file, or a description (.mnd) to list its weights")->required();
+    tensors->add_option("--under", under, "key path of the dictionary of tensors in a PyTorch checkpoint (model/state_dict)");
+
     auto* format = app.add_subcommand("format", "print the description in canonical layout");
     format->add_option("model", model, "description (.mnd)")->required();
     format->add_flag("-i,--in-place", in_place, "rewrite the file");
@@ -586,6 +621,7 @@ int main(int argc, char** argv) {
         if (*refit) return cmd_refit(model, input, refit_out, ra);
         if (*diff) return cmd_diff(model, other, weight_tol, json);
         if (*format) return cmd_format(model, in_place, check_only);
+        if (*tensors) return cmd_tensors(model, under);
     } catch (const std::exception& e) {
         // Every expected failure is a diagnostic; this is a last line against a crash.
         std::fprintf(stderr, "meander: internal error: %s\n", e.what());

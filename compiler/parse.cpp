@@ -46,6 +46,7 @@ struct State {
     // Top-level order: model, [weights], input, blocks, output.
     bool have_model = false;
     bool have_weights = false;
+    std::string weights_key;        // of the weights statement just read
     Loc input_stmt;                 // line 0: not seen
     Loc output_stmt;
     bool have_blocks = false;
@@ -302,6 +303,13 @@ struct text_action {
     }
 };
 template <> struct action<g::weights_path_text> : text_action {};
+template <> struct action<g::weights_key_text> {
+    template <typename Input>
+    static void apply(const Input& in, State& s) {
+        s.weights_key = in.string();
+        if (s.weights_key.empty()) s.error(loc_of(in, s), "empty string: a key path is needed here");
+    }
+};
 
 template <> struct action<g::model_line> {
     template <typename Input>
@@ -330,6 +338,7 @@ template <> struct action<g::weights_line> {
         s.have_weights = true;
         s.model.weights_path = s.text;
         s.model.weights_loc = s.text_loc;
+        s.model.weights_key = s.weights_key;
     }
 };
 

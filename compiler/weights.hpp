@@ -1,5 +1,6 @@
-// Weights: read NumPy .npy/.npz, a folder of .npy files, or a weight listing
-// (.mnw), and bind the tensors to the model's layers.
+// Weights: read NumPy .npy/.npz, a folder of .npy files, a weight listing
+// (.mnw), a PyTorch torch.save checkpoint or a safetensors file, and bind the
+// tensors to the model's layers.
 #pragma once
 
 #include <cstddef>
@@ -16,7 +17,7 @@ struct Tensor {
     std::string name;
     std::vector<std::size_t> shape;
     std::vector<double> values;     // C order, converted exactly from the stored dtype
-    std::string dtype;              // "float32" or "float64"
+    std::string dtype;              // "float32", "float64"; from frameworks also "float16", "bfloat16", "int64", ...
 };
 
 struct TensorSet {
@@ -27,12 +28,16 @@ struct TensorSet {
 
 // By the path: "*.npz", "*.npy" (one tensor, named after the file's stem),
 // a folder (every "*.npy" in it, named after their stems, sorted by name),
-// "*.mnw" (weight listing).
-std::optional<TensorSet> read_weights(const std::string& path, Diagnostics& diags);
+// "*.mnw" (weight listing), "*.pt"/"*.pth" (torch.save), "*.safetensors".
+// `key_path` ("model/state_dict") selects a nested dictionary of tensors in a
+// checkpoint; it is an error for the other formats.
+std::optional<TensorSet> read_weights(const std::string& path, Diagnostics& diags, const std::string& key_path = "");
 
 // Fills every Dense's weight and bias; reports missing, extra, misshapen and
 // non-finite tensors at the layer's position in the description.
-bool bind_weights(Model& model, const Source& src, const TensorSet& set, Diagnostics& diags);
+// With `used`, it receives one flag per tensor of the set: bound by a layer.
+bool bind_weights(Model& model, const Source& src, const TensorSet& set, Diagnostics& diags,
+                  std::vector<bool>* used = nullptr);
 
 // Weights the chosen precision cannot hold: a value beyond the float32 range
 // is an error (it would become infinite), values that flush to zero a warning.

@@ -45,6 +45,7 @@ template<> inline constexpr const char* error_message< string_close > = "expecte
 
 // Strings
 template<> inline constexpr const char* error_message< weights_path > = "expected a quoted path after 'weights'";
+template<> inline constexpr const char* error_message< weights_key > = "expected a quoted key path after 'under' (\"model/state_dict\")";
 template<> inline constexpr const char* error_message< weight_tensor > = "expected a quoted tensor name after 'weight'";
 template<> inline constexpr const char* error_message< bias_tensor > = "expected a quoted tensor name after 'bias'";
 template<> inline constexpr const char* error_message< from_prefix > = "expected a quoted tensor name prefix after 'from'";

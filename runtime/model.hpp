@@ -99,6 +99,7 @@ struct Model {
     Loc loc;
     std::string weights_path;       // as written; relative to the description's folder
     Loc weights_loc;
+    std::string weights_key;        // `under "KEY/PATH"`: a nested dictionary of a checkpoint; empty for none
     std::string input_name;
     int input_size = 0;
     Loc input_loc;

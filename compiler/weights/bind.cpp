@@ -70,6 +70,8 @@ public:
         }
     }
 
+    const std::vector<bool>& used() const { return used_; }
+
     void unused(const Model& model) {
         std::vector<std::string> names;
         for (std::size_t i = 0; i < used_.size(); ++i)
@@ -187,12 +189,13 @@ private:
 
 }  // namespace
 
-bool bind_weights(Model& model, const Source& src, const TensorSet& set, Diagnostics& diags) {
+bool bind_weights(Model& model, const Source& src, const TensorSet& set, Diagnostics& diags, std::vector<bool>* used) {
     int before = diags.error_count();
     Binder binder(src, set, diags);
     binder.collect(model.blocks);
     binder.blocks(model.blocks);
     binder.unused(model);
+    if (used) *used = binder.used();
     return diags.error_count() == before;
 }
 

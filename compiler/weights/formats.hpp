@@ -26,6 +26,34 @@ bool host_is_little();
 // Unsigned little-endian integer of `n` bytes at `at`.
 std::uint64_t read_le(std::string_view b, std::size_t at, std::size_t n);
 
+// Element types of the framework formats (elements.cpp).
+struct ElementType {
+    enum class Kind { ieee, half, bfloat, signed_int, unsigned_int };
+    const char* safetensors;    // "F32"
+    const char* storage;        // PyTorch's storage class: "FloatStorage"
+    const char* name;           // Tensor::dtype: "float32"
+    std::size_t bytes;
+    Kind kind;
+};
+// By the safetensors spelling or the PyTorch storage class name; null if unknown.
+const ElementType* element_type(std::string_view spelling);
+std::string element_type_list();
+// Reads `shape` elements from `storage` starting at element `offset` with
+// `strides` in elements (empty: C order), widening each to double exactly.
+// Checks that every element lies inside the storage before reading.
+bool decode_elements(const ElementType& type, std::string_view storage, std::size_t offset,
+                     const std::vector<std::size_t>& shape, const std::vector<std::size_t>& strides, bool little,
+                     std::vector<double>& out, std::string& error);
+
+// safetensors (safetensors.cpp): the file's bytes; `path` names it in messages.
+std::optional<TensorSet> read_safetensors_bytes(std::string_view bytes, const std::string& path, Diagnostics& diags);
+
+// PyTorch checkpoints written by torch.save (checkpoint.cpp): the zip's bytes;
+// `key_path` ("model/state_dict", empty for the top level) selects a nested
+// dictionary of tensors.
+std::optional<TensorSet> read_checkpoint_bytes(std::string_view bytes, const std::string& path,
+                                               const std::string& key_path, Diagnostics& diags);
+
 // .npy (npy.cpp): one whole .npy image; on failure returns nullopt and sets `error`.
 std::optional<Tensor> parse_npy(std::string_view bytes, std::string name, std::string& error);
 // Name of a tensor stored as "STEM.npy" (case of the suffix ignored).

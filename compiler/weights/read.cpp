@@ -100,14 +100,28 @@ std::optional<TensorSet> read_listing(const std::string& path, Diagnostics& diag
 
 }  // namespace
 
-std::optional<TensorSet> read_weights(const std::string& path, Diagnostics& diags) {
+std::optional<TensorSet> read_weights(const std::string& path, Diagnostics& diags, const std::string& key_path) {
+    std::string ext = lower(fs::path(path).extension().string());
+    if (ext == ".pt" || ext == ".pth") {
+        auto bytes = read_file(path, diags);
+        if (!bytes) return std::nullopt;
+        return read_checkpoint_bytes(*bytes, path, key_path, diags);
+    }
+    if (!key_path.empty()) {
+        diags.error(path, fmt::format("a key path ('{}') selects a dictionary in a PyTorch checkpoint (.pt, .pth); this file is not one", key_path));
+        return std::nullopt;
+    }
+    if (ext == ".safetensors") {
+        auto bytes = read_file(path, diags);
+        if (!bytes) return std::nullopt;
+        return read_safetensors_bytes(*bytes, path, diags);
+    }
     std::error_code ec;
     if (fs::is_directory(path, ec)) return read_npy_folder(path, diags);
-    std::string ext = lower(fs::path(path).extension().string());
     if (ext == ".npz") return read_npz(path, diags);
     if (ext == ".npy") return read_npy_file(path, diags);
     if (ext == ".mnw") return read_listing(path, diags);
-    diags.error(path, fmt::format("unknown weights format '{}': expected .npz, .npy, .mnw or a folder of .npy files",
+    diags.error(path, fmt::format("unknown weights format '{}': expected .npz, .npy, .mnw, .pt, .pth, .safetensors or a folder of .npy files",
                                   ext.empty() ? "(no extension)" : ext));
     return std::nullopt;
 }
