@@ -15,6 +15,7 @@
 
 #include "../runtime/evaluate.hpp"
 #include "../runtime/integrate.hpp"
+#include "../runtime/stream.hpp"
 #include "../runtime/tableau.hpp"
 #include "format.hpp"
 
@@ -170,7 +171,10 @@ struct Checker {
         // Widths out of range have been reported; the field is still checked, its first width unknown.
         const long long sw = state_width(c);
         const int start = (sw > kMaxWidth || sw < -kMaxWidth) ? kUnknownWidth : static_cast<int>(sw);
-        interval(c);
+        if (c.over_gap)
+            gap_interval(c);
+        else
+            interval(c);
         const std::string state = fmt::format("the state of continuous '{}'{}", c.name,
                                               c.augment == 0 ? std::string() : fmt::format(" ({} + augment {})", c.width, c.augment));
         int end = body(c.field, start, state, true);
@@ -179,11 +183,11 @@ struct Checker {
             error(c.loc, fmt::format("continuous '{}' has no solver line", c.name));
         } else {
             const int before = diags.error_count();
-            solver(c.solver, fmt::format("solver line of continuous '{}'", c.name), true);
+            solver(c.solver, fmt::format("solver line of continuous '{}'", c.name), true, c.over_gap);
             if (diags.error_count() == before) field_evals(c);
         }
         if (c.trained) {
-            solver(*c.trained, fmt::format("trained-with line of continuous '{}'", c.name), false);
+            solver(*c.trained, fmt::format("trained-with line of continuous '{}'", c.name), false, c.over_gap);
             if (!c.solver.method.empty() && !same_discretisation(c.solver, *c.trained))
                 warning(c.solver.loc, fmt::format("block '{}' is deployed with {} but was trained with {}; a model can lose accuracy "
                                                   "under another discretisation (Ott et al., ICLR 2021)",
@@ -230,9 +234,32 @@ struct Checker {
         }
     }
 
+    // A streaming evolution runs over [0, gap]: it starts at 0 and keeps no augment between observations.
+    void gap_interval(const Continuous& c) {
+        if (c.t0 != 0.0)
+            error(c.interval_loc, fmt::format("continuous '{}' runs over [{}, gap]; an evolution over the gap starts at 0",
+                                              c.name, format_number(c.t0)));
+        if (!model.stream) return;
+        if (c.augment != 0)
+            error(c.loc, fmt::format("continuous '{}': augment is not allowed in the evolution of a streaming model (the state "
+                                     "carries no extra dimensions between observations); widen the state instead",
+                                     c.name));
+    }
+
     // The emitted code counts field evaluations in std::uint32_t, per block and per model.
     void field_evals(const Continuous& c) {
-        const long n = worst_field_evals(c.solver);
+        if (c.over_gap && model.stream) {
+            // At the largest gap; a budget beyond a long is reported before it is multiplied out.
+            const double steps = std::ceil(model.stream->largest_gap * c.solver.steps_per_unit);
+            const Tableau* t = find_tableau(c.solver.method);
+            if (t && !t->adaptive() && steps > static_cast<double>(INT_MAX)) {
+                error(c.solver.loc, fmt::format("solver line of continuous '{}': {} steps at the largest gap {}, more than the "
+                                                "emitted code can count ({})",
+                                                c.name, format_number(steps), format_number(model.stream->largest_gap), INT_MAX));
+                return;
+            }
+        }
+        const long n = c.over_gap && model.stream ? worst_evolve_field_evals(*model.stream) : worst_field_evals(c.solver);
         if (n > kMaxFieldEvals) {
             error(c.solver.loc, fmt::format("solver line of continuous '{}': up to {} field evaluations per inference, more than "
                                             "the emitted 32-bit counters hold ({})",
@@ -253,7 +280,8 @@ struct Checker {
     }
 
     // `deployed`: the solver the emitted code runs, so the precision limits apply to it.
-    void solver(const SolverSpec& s, const std::string& ctx, bool deployed) {
+    // `over_gap`: the solver of a streaming evolution, whose fixed-step budget is steps-per-unit.
+    void solver(const SolverSpec& s, const std::string& ctx, bool deployed, bool over_gap = false) {
         const Tableau* t = find_tableau(s.method);
         if (!t) {
             std::string known;
@@ -263,8 +291,23 @@ struct Checker {
         }
         static constexpr std::string_view adaptive_only[] = {"rtol", "atol", "max-steps", "first-step", "controller",
                                                              "safety", "min-factor", "max-factor", "pi-alpha", "pi-beta"};
+        if (!t->adaptive() && over_gap) {
+            if (written(s, "steps"))
+                error(s.loc, fmt::format("{}: over a run-time gap a fixed-step method takes 'steps-per-unit X' (steps per unit of "
+                                         "time), not 'steps'", ctx));
+            else if (!written(s, "steps-per-unit"))
+                error(s.loc, fmt::format("{}: fixed-step method '{}' over a run-time gap needs 'steps-per-unit X'", ctx, s.method));
+            else if (!std::isfinite(s.steps_per_unit) || !(s.steps_per_unit > 0))
+                error(s.loc, fmt::format("{}: steps-per-unit must be a finite number above 0, got {}", ctx,
+                                         format_number(s.steps_per_unit)));
+        } else if (written(s, "steps-per-unit")) {
+            error(s.loc, fmt::format("{}: 'steps-per-unit' applies only to a fixed-step method over a run-time gap "
+                                     "(t in [0, gap])", ctx));
+        }
         if (!t->adaptive()) {
-            if (!written(s, "steps")) error(s.loc, fmt::format("{}: fixed-step method '{}' needs 'steps N'", ctx, s.method));
+            if (over_gap) {
+                // checked above
+            } else if (!written(s, "steps")) error(s.loc, fmt::format("{}: fixed-step method '{}' needs 'steps N'", ctx, s.method));
             else if (s.steps < 1) error(s.loc, fmt::format("{}: steps must be at least 1, got {}", ctx, s.steps));
             for (std::string_view key : adaptive_only)
                 if (written(s, key))
@@ -528,6 +571,91 @@ struct Checker {
                                          "the emitted 64-bit constant holds", model.name, worst));
     }
 
+    // A streaming model: state, evolution, update; returns the width the readout receives.
+    int stream(const Stream& st) {
+        name(st.state_name, st.state_loc);
+        const std::string state = fmt::format("state '{}'", st.state_name);
+        if (st.state_size < 1)
+            error(st.state_loc, fmt::format("{} has size {}; sizes must be at least 1", state, st.state_size));
+        else if (st.state_size > kMaxWidth)
+            error(st.state_loc, fmt::format("{} has size {}; sizes must be at most {}", state, st.state_size, kMaxWidth));
+        const int width = st.state_size >= 1 && st.state_size <= kMaxWidth ? st.state_size : kUnknownWidth;
+        largest_gap(st);
+        const Continuous& c = st.evolve;
+        if (c.blend)
+            blend(c, width, state);
+        else
+            continuous(c, width, state);
+        update(st, width, state);
+        return width;
+    }
+
+    void largest_gap(const Stream& st) {
+        const std::string text = format_number(st.largest_gap);
+        if (!std::isfinite(st.largest_gap) || !(st.largest_gap > 0)) {
+            error(st.gap_loc, fmt::format("largest-gap must be a finite number above 0, got {}", text));
+            return;
+        }
+        if (opts.precision == Precision::float32 &&
+            (st.largest_gap > static_cast<double>(FLT_MAX) || static_cast<float>(st.largest_gap) == 0.0f))
+            error(st.gap_loc, fmt::format("largest-gap {} is outside what float32 holds (above 0, at most {})", text,
+                                          format_number(static_cast<double>(FLT_MAX))));
+    }
+
+    // The closed-form cell: a backbone (any layers) and three heads f, g, k, each mapping the
+    // backbone's output to the state.
+    void blend(const Continuous& c, int width, const std::string& from) {
+        name(c.name, c.loc);
+        if (width != kUnknownWidth && c.width != width)
+            error(c.loc, fmt::format("blend '{}' has width {}, but {} gives {}", c.name, c.width, from, width));
+        if (c.field.size() < 3) {
+            error(c.loc, fmt::format("blend '{}' needs at least three layers: its last three are the heads f, g and k", c.name));
+            return;
+        }
+        const std::vector<Block> backbone(c.field.begin(), c.field.end() - 3);
+        const int b = body(backbone, width, from, false);
+        const std::string b_from = backbone.empty() ? from : describe(backbone.back());
+        static const char* const role[] = {"f (the rate)", "g (the start)", "k (the end)"};
+        for (std::size_t i = 0; i < 3; ++i) {
+            const Block& head = c.field[c.field.size() - 3 + i];
+            if (head.kind != Block::Kind::dense) {
+                error(c.loc, fmt::format("blend '{}': head {} must be a dense layer, not {}", c.name, role[i], describe(head)));
+                continue;
+            }
+            const int out = dense(head.dense, b, b_from, false);
+            if (width != kUnknownWidth && out != width)
+                error(head.dense.loc, fmt::format("blend '{}': head {} '{}' gives {}, but the state has width {}", c.name, role[i],
+                                                  head.dense.name, out, width));
+        }
+    }
+
+    void update(const Stream& st, int width, const std::string& state) {
+        if (st.update == Stream::Update::gated) {
+            name(st.update_name, st.update_loc);
+            const std::string what = fmt::format("gated layer '{}'", st.update_name);
+            if (st.update_in < 1 || st.update_in > kMaxWidth)
+                error(st.update_loc, fmt::format("{} has input width {}; widths must be 1 to {}", what, st.update_in, kMaxWidth));
+            else if (st.update_in != model.input_size)
+                error(st.update_loc, fmt::format("{} takes {} inputs, but input '{}' gives {}", what, st.update_in,
+                                                 model.input_name, model.input_size));
+            if (st.update_out < 1 || st.update_out > kMaxWidth)
+                error(st.update_loc, fmt::format("{} has output width {}; widths must be 1 to {}", what, st.update_out, kMaxWidth));
+            else if (width != kUnknownWidth && st.update_out != width)
+                error(st.update_loc, fmt::format("{} gives {}, but {} has width {}", what, st.update_out, state, width));
+            return;
+        }
+        const Dense& d = st.update_layers.front().dense;
+        const std::string what = fmt::format("merge layer '{}'", d.name);
+        if (width != kUnknownWidth && st.update_in != width)
+            error(d.loc, fmt::format("{} reads {} state values first, but {} has width {}", what, st.update_in, state, width));
+        if (st.update_obs != model.input_size)
+            error(d.loc, fmt::format("{} reads {} observation values, but input '{}' gives {}", what, st.update_obs,
+                                     model.input_name, model.input_size));
+        dense(d, d.in, what, false);
+        if (width != kUnknownWidth && d.out != width)
+            error(d.loc, fmt::format("{} gives {}, but {} has width {}", what, d.out, state, width));
+    }
+
     void run() {
         const int errors_at_start = diags.error_count();
         if (!model.name.empty()) model_name();
@@ -535,16 +663,20 @@ struct Checker {
             error(model.input_loc, fmt::format("input '{}' has size {}; sizes must be at least 1", model.input_name, model.input_size));
         else if (model.input_size > kMaxWidth)
             error(model.input_loc, fmt::format("input '{}' has size {}; sizes must be at most {}", model.input_name, model.input_size, kMaxWidth));
-        if (model.blocks.empty()) error(model.loc, fmt::format("model '{}' has no layers or blocks", model.name));
+        if (model.blocks.empty() && !model.stream) error(model.loc, fmt::format("model '{}' has no layers or blocks", model.name));
         if (!model.blocks.empty() && model.blocks.back().kind == Block::Kind::dense) last_top_layer = &model.blocks.back();
-        int width = body(model.blocks, model.input_size, fmt::format("input '{}'", model.input_name), false);
+        // A streaming model's readout reads the state.
+        const int start = model.stream ? stream(*model.stream) : model.input_size;
+        const std::string start_from = model.stream ? fmt::format("state '{}'", model.stream->state_name)
+                                                    : fmt::format("input '{}'", model.input_name);
+        int width = body(model.blocks, start, start_from, false);
         softmax(model.blocks);
         if (model.output_size < 1)
             error(model.output_loc, fmt::format("output '{}' has size {}; sizes must be at least 1", model.output_name, model.output_size));
         else if (model.output_size > kMaxWidth)
             error(model.output_loc, fmt::format("output '{}' has size {}; sizes must be at most {}", model.output_name, model.output_size, kMaxWidth));
         else if (width != kUnknownWidth && model.output_size != width) {
-            std::string from = model.blocks.empty() ? fmt::format("input '{}'", model.input_name) : describe(model.blocks.back());
+            std::string from = model.blocks.empty() ? start_from : describe(model.blocks.back());
             error(model.output_loc, fmt::format("output '{}' has size {}, but {} gives {}", model.output_name, model.output_size, from, width));
         }
         if (diags.error_count() == errors_at_start) constants_fit();

@@ -61,6 +61,7 @@ std::string format_solver(const SolverSpec& spec) {
         if (has(key)) out += fmt::format(", {} {}", key, v);
     };
     integer("steps", spec.steps);
+    real("steps-per-unit", spec.steps_per_unit);
     real("rtol", spec.rtol);
     real("atol", spec.atol);
     integer("max-steps", spec.max_steps);
@@ -86,7 +87,7 @@ namespace {
 namespace pegtl = tao::pegtl;
 namespace g = grammar;
 
-enum class Kind { model, weights, input, output, dense, augment, solver, trained, header, close };
+enum class Kind { model, weights, input, output, dense, augment, solver, trained, header, close, state, gated, merge };
 
 struct Record {
     Kind kind;
@@ -118,6 +119,9 @@ template <> struct layout_action<g::augment_line> : record_action<Kind::augment>
 template <> struct layout_action<g::solver_line> : record_action<Kind::solver> {};
 template <> struct layout_action<g::trained_line> : record_action<Kind::trained> {};
 template <> struct layout_action<g::close_brace> : record_action<Kind::close> {};
+template <> struct layout_action<g::state_line> : record_action<Kind::state> {};
+template <> struct layout_action<g::gated_line> : record_action<Kind::gated> {};
+template <> struct layout_action<g::merge_line> : record_action<Kind::merge> {};
 
 struct header_start {
     template <typename Input>
@@ -125,6 +129,7 @@ struct header_start {
 };
 template <> struct layout_action<g::kw_residual> : header_start {};
 template <> struct layout_action<g::kw_continuous> : header_start {};
+template <> struct layout_action<g::kw_blend> : header_start {};
 template <> struct layout_action<g::open_brace> {
     template <typename Input>
     static void apply(const Input& in, Layout& l) {
@@ -142,8 +147,15 @@ template <> struct layout_action<g::comment> {
 
 std::string quoted(const std::string& s) { return quote_string(s); }
 
+// A layer's options after its widths: activation, tensor names.
+std::string dense_options(const Dense& d);
+
 std::string dense_text(const Dense& d) {
-    std::string out = fmt::format("dense {}: {}{} -> {}", d.name, d.in, d.time_input ? " + t" : "", d.out);
+    return fmt::format("dense {}: {}{} -> {}", d.name, d.in, d.time_input ? " + t" : "", d.out) + dense_options(d);
+}
+
+std::string dense_options(const Dense& d) {
+    std::string out;
     if (d.act != Activation::identity) {
         out += fmt::format(", {}", activation_name(d.act));
         if ((d.act == Activation::leaky_relu && d.act_param != 0.01) || (d.act == Activation::elu && d.act_param != 1.0))
@@ -246,7 +258,32 @@ private:
             case Kind::augment: return fmt::format("augment {}", c.continuous->augment);
             case Kind::solver: return "solver " + format_solver(c.continuous->solver);
             case Kind::trained: return "trained-with " + format_solver(*c.continuous->trained);
+            case Kind::state: {
+                const Stream& st = *model_.stream;
+                return fmt::format("state {}[{}], largest-gap {}", st.state_name, st.state_size, format_number(st.largest_gap));
+            }
+            case Kind::gated: {
+                // The tensor prefix: "<prefix>.weight_ih".
+                const Stream& st = *model_.stream;
+                const std::string& w = st.update_layers.front().dense.weight_tensor;
+                const std::string prefix = w.substr(0, w.size() - std::string_view(".weight_ih").size());
+                return fmt::format("gated {}: {} -> {}", st.update_name, st.update_in, st.update_out) +
+                       (prefix == st.update_name ? "" : ", from " + quoted(prefix));
+            }
+            case Kind::merge: {
+                const Stream& st = *model_.stream;
+                const Dense& d = st.update_layers.front().dense;
+                return fmt::format("merge {}: {} + {} -> {}", d.name, st.update_in, st.update_obs, d.out) + dense_options(d);
+            }
             case Kind::header: {
+                if (cursors_.size() == 1 && model_.stream && !evolve_done_) {
+                    // A streaming model's first block is its evolution, kept apart from the readout.
+                    evolve_done_ = true;
+                    const Continuous& k = model_.stream->evolve;
+                    cursors_.push_back(Cursor{&k.field, 0, &k});
+                    if (k.blend) return fmt::format("blend {}: {} {{", k.name, k.width);
+                    return fmt::format("continuous {}: {}, t in [{}, gap] {{", k.name, k.width, format_number(k.t0));
+                }
                 const Block& b = (*c.body)[c.next++];
                 if (b.kind == Block::Kind::residual) {
                     cursors_.push_back(Cursor{&b.residual.body, 0, nullptr});
@@ -269,6 +306,7 @@ private:
     std::string out_;
     int prev_line_ = 0;
     bool body_start_ = false;
+    bool evolve_done_ = false;
 };
 
 }  // namespace

@@ -24,6 +24,7 @@
 #include "compiler/plot.hpp"
 #include "compiler/check.hpp"
 #include "compiler/refit.hpp"
+#include "compiler/sequence.hpp"
 #include "compiler/source.hpp"
 #include "compiler/tensors.hpp"
 #include "compiler/weights.hpp"
@@ -74,6 +75,15 @@ bool flush(const Diagnostics& diags) {
 
 Precision precision_of(const std::string& s) { return s == "float64" ? Precision::float64 : Precision::float32; }
 
+// Commands that do not handle streaming models yet refuse them plainly.
+bool refuse_stream(const LoadedModel& l, const std::string& path, std::string_view command, Diagnostics& diags) {
+    if (!l.model.stream) return false;
+    diags.error(path, fmt::format("'{}' is a streaming model (it has a 'state' statement); meander {} does not handle streaming "
+                                  "models yet (check, eval and format do)",
+                                  l.model.name, command));
+    return true;
+}
+
 // The model and the rows of an input CSV of its input width.
 struct LoadedWithRows {
     LoadedModel loaded;
@@ -83,9 +93,9 @@ struct LoadedWithRows {
 
 // `float32_inputs`: the rows feed emitted float32 code, so they must fit a float.
 std::optional<LoadedWithRows> load_with_rows(const std::string& path, Precision p, const std::string& input,
-                                             Diagnostics& diags, bool float32_inputs = false) {
+                                             Diagnostics& diags, std::string_view command, bool float32_inputs = false) {
     auto loaded = load_model(path, p, diags);
-    if (!loaded) return std::nullopt;
+    if (!loaded || refuse_stream(*loaded, path, command, diags)) return std::nullopt;
     std::vector<int> lines;
     auto rows = read_csv_rows(input, loaded->model.input_size, diags, float32_inputs, &lines);
     if (!rows) return std::nullopt;
@@ -144,11 +154,24 @@ int cmd_check(const std::string& model_path, const std::string& precision) {
 int cmd_eval(const std::string& model_path, const std::string& input, const std::string& output, bool stats,
              const std::string& labels_path) {
     Diagnostics diags;
-    auto in = load_with_rows(model_path, Precision::float64, input, diags);
-    if (!in) return flush(diags), kModelError;
-    const Model& model = in->loaded.model;
+    auto loaded = load_model(model_path, Precision::float64, diags);
+    if (!loaded) return flush(diags), kModelError;
+    const Model& model = loaded->model;
+    // One result per row: a row of inputs, or an observation of a sequence file (streaming models).
+    std::vector<EvalResult> results;
+    std::vector<int> lines;
+    if (model.stream) {
+        auto rows = read_sequence_file(input, model.input_size, model.stream->largest_gap, diags);
+        if (!rows) return flush(diags), kModelError;
+        results = evaluate_sequences(model, *rows);
+        for (const auto& r : *rows) lines.push_back(r.line);
+    } else {
+        auto rows = read_csv_rows(input, model.input_size, diags, false, &lines);
+        if (!rows) return flush(diags), kModelError;
+        for (const auto& x : to_vectors(*rows)) results.push_back(evaluate(model, x));
+    }
     std::optional<Labels> labels;
-    if (!labels_path.empty() && !(labels = read_labels(labels_path, model, in->rows.size(), diags)))
+    if (!labels_path.empty() && !(labels = read_labels(labels_path, model, results.size(), diags)))
         return flush(diags), kModelError;
     std::vector<Eigen::VectorXd> outputs;
     std::string csv = csv_header(model);
@@ -156,15 +179,14 @@ int cmd_eval(const std::string& model_path, const std::string& input, const std:
     if (stats) stat_text = "row  field_evals  steps_taken  steps_rejected  h_min  h_max\n";
     int row = 0;
     std::optional<Source> csv_src;  // read again only to point at a failing row
-    for (const auto& x : to_vectors(in->rows)) {
+    for (const EvalResult& r : results) {
         ++row;
-        EvalResult r = evaluate(model, x);
         if (r.status != EvalStatus::ok) {
             if (!csv_src) csv_src = load_source(input, diags);
             const std::string what = fmt::format("the model returns {}{} for this row", eval_status_name(r.status),
                                                  r.block.empty() ? "" : fmt::format(" in block '{}'", r.block));
             if (csv_src)
-                diags.error(*csv_src, Loc{in->lines[static_cast<std::size_t>(row - 1)], 1}, what);
+                diags.error(*csv_src, Loc{lines[static_cast<std::size_t>(row - 1)], 1}, what);
             continue;
         }
         for (Eigen::Index i = 0; i < r.output.size(); ++i) csv += (i ? "," : "") + format_double(r.output[i]);
@@ -202,7 +224,7 @@ int cmd_compile(const std::string& model_path, const std::string& outdir, const 
     Diagnostics diags;
     Precision p = precision_of(precision);
     auto loaded = load_model(model_path, p, diags);
-    if (!loaded) return flush(diags), kModelError;
+    if (!loaded || refuse_stream(*loaded, model_path, "compile", diags)) return flush(diags), kModelError;
     EmitOptions opts = emit_options(*loaded, p, c_api);
     if (!self_test.empty()) {
         auto rows = read_csv_rows(self_test, loaded->model.input_size, diags, p == Precision::float32);
@@ -261,7 +283,7 @@ int cmd_verify(const std::string& model_path, const std::string& input, const st
                const std::string& cxx, const std::string& keep, bool show) {
     Diagnostics diags;
     Precision p = precision_of(precision);
-    auto in = load_with_rows(model_path, p, input, diags, p == Precision::float32);
+    auto in = load_with_rows(model_path, p, input, diags, "verify", p == Precision::float32);
     if (!in) return flush(diags), kModelError;
     VerifyOptions vo;
     vo.tolerance = tol;
@@ -280,7 +302,7 @@ int cmd_cost(const std::string& model_path, const std::string& input, const std:
     Diagnostics diags;
     Precision p = precision_of(precision);
     auto loaded = load_model(model_path, p, diags);
-    if (!loaded) return flush(diags), kModelError;
+    if (!loaded || refuse_stream(*loaded, model_path, "cost", diags)) return flush(diags), kModelError;
     CostOptions co;
     co.precision = p;
     co.core = core;
@@ -303,7 +325,7 @@ int cmd_tune(const std::string& model_path, const std::string& input, const std:
              std::optional<double> metric_slack, const std::string& plot_path) {
     Diagnostics diags;
     Precision p = precision_of(precision);
-    auto in = load_with_rows(model_path, p, input, diags);
+    auto in = load_with_rows(model_path, p, input, diags, "tune");
     if (!in) return flush(diags), kModelError;
     TuneOptions to;
     if (!labels_path.empty() && !(to.labels = read_labels(labels_path, in->loaded.model, in->rows.size(), diags)))
@@ -339,7 +361,7 @@ struct RefitArgs {
 // Refit: train, then write NEW.mnd, NEW.npz and NEW.mnw together, or nothing.
 int cmd_refit(const std::string& model_path, const std::string& input, const std::string& out_path, RefitArgs& a) {
     Diagnostics diags;
-    auto in = load_with_rows(model_path, Precision::float64, input, diags);
+    auto in = load_with_rows(model_path, Precision::float64, input, diags, "refit");
     if (!in) return flush(diags), kModelError;
     const Model& model = in->loaded.model;
     RefitOptions& o = a.o;
@@ -441,7 +463,8 @@ int cmd_diff(const std::string& a_path, const std::string& b_path, double tolera
     Diagnostics diags;
     auto a = load_model(a_path, Precision::float32, diags);
     auto b = load_model(b_path, Precision::float32, diags);
-    if (!a || !b) return flush(diags), kDiffTrouble;
+    if (!a || !b || refuse_stream(*a, a_path, "diff", diags) || refuse_stream(*b, b_path, "diff", diags))
+        return flush(diags), kDiffTrouble;
     DiffOptions o;
     o.weight_tolerance = tolerance;
     auto d = diff_models(a->model, b->model, o, diags);

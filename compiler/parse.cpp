@@ -71,6 +71,7 @@ struct State {
     std::string from;
     bool act_accepted = false;      // the activation just read was taken (not a second one)
     SolverSpec spec;
+    double gap = 0.0;               // the largest gap of the state statement
 
     State(const Source& s, Diagnostics& d) : src(s), diags(d) {}
 
@@ -81,6 +82,9 @@ struct State {
         Block& b = open.back().block;
         return b.kind == Block::Kind::residual ? b.residual.body : b.continuous.field;
     }
+
+    // A streaming model's top-level statements, in order: state, evolution, update, readout.
+    Loc stream_stmt;                // the evolution or update statement last placed
 };
 
 template <typename Input>
@@ -89,6 +93,7 @@ Loc loc_of(const Input& in, const State& s) {
 }
 
 std::string_view kind_name(const Block& b) {
+    if (b.kind == Block::Kind::continuous && b.continuous.blend) return "blend";
     return b.kind == Block::Kind::residual ? "residual" : "continuous";
 }
 
@@ -161,6 +166,10 @@ void placed(State& s, Loc stmt, std::string_view what) {
     }
     if (s.open.empty()) {
         top_level_statement(s, stmt);
+        if (s.model.stream && s.model.stream->update == Stream::Update::none && !s.have_blocks)
+            s.error(stmt, fmt::format("{} comes before the update of the streaming model; the readout follows the evolution and "
+                                      "the update ('gated' or 'merge')",
+                                      what));
         s.have_blocks = true;
         return;
     }
@@ -172,6 +181,11 @@ void placed(State& s, Loc stmt, std::string_view what) {
 
 // The continuous block a body statement (augment, solver, trained-with) belongs to, or null after an error.
 Frame* continuous_frame(State& s, Loc stmt, std::string_view keyword) {
+    if (!s.open.empty() && s.open.back().block.kind == Block::Kind::continuous && s.open.back().block.continuous.blend) {
+        s.error(stmt, fmt::format("'{}' is not allowed in blend '{}': the blend is a closed form and needs no solver", keyword,
+                                  s.open.back().block.continuous.name));
+        return nullptr;
+    }
     if (s.open.empty() || s.open.back().block.kind != Block::Kind::continuous) {
         if (s.open.empty())
             s.error(stmt, fmt::format("'{}' is allowed only inside a continuous block", keyword));
@@ -201,10 +215,40 @@ void push_block(const Input& in, State& s, Block::Kind kind) {
     s.open.push_back(std::move(f));
 }
 
+// The evolution of a streaming model: right after 'state', before the update and the readout.
+void place_evolution(State& s, Loc stmt, Block& b) {
+    top_level_statement(s, stmt);
+    Continuous& c = b.continuous;
+    const std::string what = fmt::format("{} '{}'", kind_name(b), c.name);
+    if (!s.model.stream) {
+        s.error(stmt, fmt::format("{} evolves over the gap between observations, which needs a 'state' statement before it "
+                                  "(a streaming model)",
+                                  what));
+        return;
+    }
+    Stream& st = *s.model.stream;
+    if (st.has_evolve) {
+        s.error(stmt, fmt::format("{} is a second evolution; streaming model '{}' already evolves by {} '{}' (line {})", what,
+                                  s.model.name, st.evolve.blend ? "blend" : "continuous",
+                                  st.evolve.name, st.evolve.loc.line));
+        return;
+    }
+    if (st.update != Stream::Update::none || s.have_blocks) {
+        s.error(stmt, fmt::format("{} must come right after the 'state' statement, before the update and the readout", what));
+        return;
+    }
+    st.has_evolve = true;
+    st.evolve = std::move(c);
+}
+
 template <typename Input>
 void pop_block(const Input& in, State& s) {
     Frame f = std::move(s.open.back());
     s.open.pop_back();
+    if (s.open.empty() && f.block.kind == Block::Kind::continuous && (f.block.continuous.over_gap || f.block.continuous.blend)) {
+        place_evolution(s, loc_of(in, s), f.block);
+        return;
+    }
     placed(s, loc_of(in, s), fmt::format("{} '{}'", kind_name(f.block), block_name(f.block)));
     s.body().push_back(std::move(f.block));
 }
@@ -457,25 +501,138 @@ template <> struct action<g::no_bias_option> {
     }
 };
 
+// The tensor names of the layer just read, from its options.
+void resolve_tensors(State& s) {
+    Dense& d = s.dense;
+    if (s.from_given && s.weight_given)
+        s.error(d.loc, fmt::format("layer '{}' names its weight tensor twice ('from' and 'weight')", d.name));
+    if (s.from_given && s.bias_given)
+        s.error(d.loc, fmt::format("layer '{}' names its bias tensor twice ('from' and 'bias')", d.name));
+    if (s.no_bias_given && s.bias_given)
+        s.error(d.loc, fmt::format("layer '{}' has both 'bias' and 'no-bias'", d.name));
+    const std::string& prefix = s.from_given ? s.from : d.name;
+    if (!s.weight_given) d.weight_tensor = prefix + ".weight";
+    if (!s.bias_given) d.bias_tensor = prefix + ".bias";
+    if (s.no_bias_given) {
+        d.has_bias = false;
+        d.bias_tensor.clear();
+    }
+}
+
 template <> struct action<g::dense_line> {
     template <typename Input>
     static void apply(const Input& in, State& s) {
+        resolve_tensors(s);
         Dense& d = s.dense;
-        if (s.from_given && s.weight_given)
-            s.error(d.loc, fmt::format("layer '{}' names its weight tensor twice ('from' and 'weight')", d.name));
-        if (s.from_given && s.bias_given)
-            s.error(d.loc, fmt::format("layer '{}' names its bias tensor twice ('from' and 'bias')", d.name));
-        if (s.no_bias_given && s.bias_given)
-            s.error(d.loc, fmt::format("layer '{}' has both 'bias' and 'no-bias'", d.name));
-        const std::string& prefix = s.from_given ? s.from : d.name;
-        if (!s.weight_given) d.weight_tensor = prefix + ".weight";
-        if (!s.bias_given) d.bias_tensor = prefix + ".bias";
-        if (s.no_bias_given) {
-            d.has_bias = false;
-            d.bias_tensor.clear();
-        }
         placed(s, loc_of(in, s), fmt::format("layer '{}'", d.name));
         s.body().push_back(Block{Block::Kind::dense, std::move(d), {}, {}});
+    }
+};
+
+// Streaming models
+template <> struct action<g::state_name> : name_action {};
+template <> struct action<g::state_size> : size_action {};
+template <> struct action<g::gap_value> {
+    template <typename Input>
+    static void apply(const Input& in, State& s) {
+        s.text_loc = loc_of(in, s);
+        s.gap = to_real(in, s);
+    }
+};
+template <> struct action<g::state_line> {
+    template <typename Input>
+    static void apply(const Input& in, State& s) {
+        Loc stmt = loc_of(in, s);
+        top_level_statement(s, stmt);
+        if (s.model.stream) {
+            s.error(stmt, fmt::format("a second 'state' statement (the first is on line {})", s.model.stream->loc.line));
+            return;
+        }
+        if (s.input_stmt.line == 0) s.error(stmt, "'state' must come after 'input'");
+        else if (s.have_blocks) s.error(stmt, "'state' must come before the first layer or block");
+        Stream st;
+        st.loc = stmt;
+        st.state_name = s.name;
+        st.state_loc = s.name_loc;
+        st.state_size = s.size;
+        st.largest_gap = s.gap;
+        st.gap_loc = s.text_loc;
+        s.model.stream = std::move(st);
+    }
+};
+
+// The update of a streaming model: after the evolution, before the readout.
+template <typename Input>
+Stream* place_update(const Input& in, State& s, std::string_view keyword) {
+    Loc stmt = loc_of(in, s);
+    top_level_statement(s, stmt);
+    if (!s.model.stream) {
+        s.error(stmt, fmt::format("'{}' updates the state of a streaming model; it needs a 'state' statement before it", keyword));
+        return nullptr;
+    }
+    Stream& st = *s.model.stream;
+    if (st.update != Stream::Update::none) {
+        s.error(stmt, fmt::format("a second update; streaming model '{}' is already updated by '{}' (line {})", s.model.name,
+                                  st.update_name, st.update_loc.line));
+        return nullptr;
+    }
+    if (s.have_blocks) {
+        s.error(stmt, fmt::format("'{}' must come before the readout's layers", keyword));
+        return nullptr;
+    }
+    if (!st.has_evolve) {
+        s.error(stmt, fmt::format("'{}' comes before the evolution; a streaming model evolves over the gap first (a continuous "
+                                  "block over [0, gap] or a blend), then updates",
+                                  keyword));
+        return nullptr;
+    }
+    st.update_name = s.dense.name;
+    st.update_loc = s.dense.loc;
+    return &st;
+}
+
+template <> struct action<g::obs_width> {
+    template <typename Input>
+    static void apply(const Input& in, State& s) { s.size = to_int(in, s); }
+};
+template <> struct action<g::gated_line> {
+    template <typename Input>
+    static void apply(const Input& in, State& s) {
+        Stream* st = place_update(in, s, "gated");
+        if (!st) return;
+        st->update = Stream::Update::gated;
+        st->update_in = s.dense.in;
+        st->update_out = s.dense.out;
+        // PyTorch GRUCell's tensors: weight_ih (3H, in), weight_hh (3H, H), bias_ih, bias_hh.
+        const std::string prefix = s.from_given ? s.from : s.dense.name;
+        auto half = [&](std::string_view part, int in_width) {
+            Dense d;
+            d.name = s.dense.name;
+            d.loc = s.dense.loc;
+            d.in = in_width;
+            d.out = s.dense.out > 0 && s.dense.out <= (1 << 20) ? 3 * s.dense.out : 0;
+            d.weight_tensor = fmt::format("{}.weight_{}", prefix, part);
+            d.bias_tensor = fmt::format("{}.bias_{}", prefix, part);
+            return Block{Block::Kind::dense, std::move(d), {}, {}};
+        };
+        st->update_layers.push_back(half("ih", s.dense.in));
+        st->update_layers.push_back(half("hh", s.dense.out));
+    }
+};
+template <> struct action<g::merge_line> {
+    template <typename Input>
+    static void apply(const Input& in, State& s) {
+        Dense& d = s.dense;
+        const int state_width = d.in;
+        d.in = state_width > 0 && s.size > 0 && state_width <= (1 << 20) && s.size <= (1 << 20) ? state_width + s.size : 0;
+        resolve_tensors(s);
+        Stream* st = place_update(in, s, "merge");
+        if (!st) return;
+        st->update = Stream::Update::merge;
+        st->update_in = state_width;
+        st->update_obs = s.size;
+        st->update_out = d.out;
+        st->update_layers.push_back(Block{Block::Kind::dense, std::move(d), {}, {}});
     }
 };
 
@@ -509,9 +666,25 @@ template <> struct action<g::t1_value> {
     template <typename Input>
     static void apply(const Input& in, State& s) { s.open.back().block.continuous.t1 = to_real(in, s); }
 };
+template <> struct action<g::gap_end> {
+    template <typename Input>
+    static void apply(const Input&, State& s) { s.open.back().block.continuous.over_gap = true; }
+};
 template <> struct action<g::interval> {
     template <typename Input>
     static void apply(const Input& in, State& s) { s.open.back().block.continuous.interval_loc = loc_of(in, s); }
+};
+template <> struct action<g::blend_name> {
+    template <typename Input>
+    static void apply(const Input& in, State& s) {
+        name_action::apply(in, s);
+        push_block(in, s, Block::Kind::continuous);
+        s.open.back().block.continuous.blend = true;
+    }
+};
+template <> struct action<g::blend_block> {
+    template <typename Input>
+    static void apply(const Input& in, State& s) { pop_block(in, s); }
 };
 template <> struct action<g::residual_block> {
     template <typename Input>
@@ -550,6 +723,10 @@ template <> struct action<g::solver_method> {
         s.spec.method = in.string();
         s.spec.loc = loc_of(in, s);
     }
+};
+template <> struct action<g::steps_per_unit_value> {
+    template <typename Input>
+    static void apply(const Input& in, State& s) { real_option(in, s, "steps-per-unit", &SolverSpec::steps_per_unit); }
 };
 template <> struct action<g::steps_value> {
     template <typename Input>
@@ -691,6 +868,14 @@ std::optional<Model> parse_description(const Source& src, Diagnostics& diags) {
     Loc end = src.loc_of(next_token(src, src.text.size()));
     if (s.input_stmt.line == 0) diags.error(src, end, "missing 'input NAME[N]' statement (it comes after 'model' and 'weights')");
     if (s.output_stmt.line == 0) diags.error(src, end, "missing 'output NAME[N]' statement at the end of the description");
+    if (s.model.stream && !s.model.stream->has_evolve)
+        diags.error(src, s.model.stream->loc, fmt::format("streaming model '{}' has no evolution: after 'state', a continuous block "
+                                                          "over [0, gap] or a blend",
+                                                          s.model.name));
+    else if (s.model.stream && s.model.stream->update == Stream::Update::none)
+        diags.error(src, s.model.stream->loc, fmt::format("streaming model '{}' has no update: after the evolution, a 'gated' or "
+                                                          "'merge' layer",
+                                                          s.model.name));
     if (diags.error_count() != errors_before) return std::nullopt;
     return std::move(s.model);
 }

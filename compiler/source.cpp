@@ -433,7 +433,8 @@ bool is_blank(std::string_view s) {
     return true;
 }
 
-// Parses one number spanning exactly [b, e) (spaces around allowed).
+}  // namespace
+
 bool parse_number(std::string_view field, double& out) {
     std::size_t b = 0, e = field.size();
     while (b < e && (field[b] == ' ' || field[b] == '\t')) ++b;
@@ -447,8 +448,6 @@ bool parse_number(std::string_view field, double& out) {
     out = std::strtod(tmp.c_str(), &end);
     return end == tmp.c_str() + tmp.size() && errno != ERANGE;
 }
-
-}  // namespace
 
 std::optional<std::vector<std::vector<double>>> read_csv_rows(const std::string& path, int width, Diagnostics& diags,
                                                               bool float32_range, std::vector<int>* lines) {

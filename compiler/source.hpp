@@ -137,6 +137,9 @@ std::uint64_t fnv1a64(std::string_view bytes, std::uint64_t seed = 0xcbf29ce4842
 std::optional<std::vector<std::vector<double>>> read_csv_rows(const std::string& path, int width, Diagnostics& diags,
                                                               bool float32_range = false, std::vector<int>* lines = nullptr);
 
+// One CSV field as a number (blanks around allowed; strtod spelling, so "nan" and "inf" read too).
+bool parse_number(std::string_view field, double& out);
+
 // Shortest text that reads back to the same double / float (fmt, locale-free).
 std::string format_double(double v);
 std::string format_float(float v);

@@ -13,7 +13,7 @@ inline constexpr const char* error_message = nullptr;
 
 // Statements
 template<> inline constexpr const char* error_message< model_first > = "expected 'model NAME' as the first statement";
-template<> inline constexpr const char* error_message< top_statement > = "expected a statement: weights, input, dense, residual, continuous or output";
+template<> inline constexpr const char* error_message< top_statement > = "expected a statement: weights, input, state, dense, residual, continuous, blend, gated, merge or output";
 template<> inline constexpr const char* error_message< body_statement > = "expected a statement inside the block: dense, residual, augment, solver, trained-with or '}'";
 template<> inline constexpr const char* error_message< statement_end > = "expected the end of the statement";
 template<> inline constexpr const char* error_message< dense_end > = "expected ',' before another layer option, or the end of the layer";
@@ -26,6 +26,11 @@ template<> inline constexpr const char* error_message< output_name > = "expected
 template<> inline constexpr const char* error_message< layer_name > = "expected the layer's name";
 template<> inline constexpr const char* error_message< residual_name > = "expected the residual block's name";
 template<> inline constexpr const char* error_message< continuous_name > = "expected the continuous block's name";
+template<> inline constexpr const char* error_message< state_name > = "expected the state's name";
+template<> inline constexpr const char* error_message< blend_name > = "expected the blend block's name";
+template<> inline constexpr const char* error_message< kw_largest_gap > = "expected 'largest-gap' and the largest gap between two observations";
+template<> inline constexpr const char* error_message< merge_plus > = "expected '+' and the observation width (a merge reads the state, then the observation)";
+template<> inline constexpr const char* error_message< gated_option > = "expected a gated-layer option: 'from' and a quoted tensor name prefix";
 
 // Punctuation
 template<> inline constexpr const char* error_message< colon > = "expected ':'";
@@ -59,13 +64,18 @@ template<> inline constexpr const char* error_message< block_width > = "expected
 template<> inline constexpr const char* error_message< augment_size > = "expected the number of augmented dimensions (an integer)";
 template<> inline constexpr const char* error_message< t0_value > = "expected the start time (a number)";
 template<> inline constexpr const char* error_message< t1_value > = "expected the end time (a number)";
+template<> inline constexpr const char* error_message< interval_end > = "expected the end time (a number, or 'gap' in a streaming model)";
+template<> inline constexpr const char* error_message< state_size > = "expected the state size (an integer)";
+template<> inline constexpr const char* error_message< gap_value > = "expected the largest gap (a number) after 'largest-gap'";
+template<> inline constexpr const char* error_message< obs_width > = "expected the observation width (an integer) after '+'";
+template<> inline constexpr const char* error_message< steps_per_unit_value > = "expected a number after 'steps-per-unit'";
 
 // Layer options
 template<> inline constexpr const char* error_message< dense_option > = "expected a layer option: an activation (identity, relu, leaky-relu, tanh, sigmoid, softplus, silu, gelu, elu, softmax), 'weight', 'bias', 'from' or 'no-bias'";
 
 // Solver lines
 template<> inline constexpr const char* error_message< solver_method > = "expected a solver method (such as rk4 or dormand-prince)";
-template<> inline constexpr const char* error_message< solver_option > = "expected a solver option: steps, rtol, atol, max-steps, first-step, controller, safety, min-factor, max-factor, pi-alpha or pi-beta";
+template<> inline constexpr const char* error_message< solver_option > = "expected a solver option: steps, steps-per-unit, rtol, atol, max-steps, first-step, controller, safety, min-factor, max-factor, pi-alpha or pi-beta";
 template<> inline constexpr const char* error_message< steps_value > = "expected the number of steps (an integer) after 'steps'";
 template<> inline constexpr const char* error_message< max_steps_value > = "expected the step limit (an integer) after 'max-steps'";
 template<> inline constexpr const char* error_message< rtol_value > = "expected a number after 'rtol'";

@@ -81,11 +81,19 @@ struct kw_pi_alpha : seq< TAO_PEGTL_STRING( "pi-alpha" ), word_end > {};
 struct kw_pi_beta : seq< TAO_PEGTL_STRING( "pi-beta" ), word_end > {};
 struct kw_integral : seq< TAO_PEGTL_STRING( "integral" ), word_end > {};
 struct kw_pi : seq< TAO_PEGTL_STRING( "pi" ), word_end > {};
+// Streaming models
+struct kw_state : seq< TAO_PEGTL_STRING( "state" ), word_end > {};
+struct kw_largest_gap : seq< TAO_PEGTL_STRING( "largest-gap" ), word_end > {};
+struct kw_gap : seq< TAO_PEGTL_STRING( "gap" ), word_end > {};
+struct kw_steps_per_unit : seq< TAO_PEGTL_STRING( "steps-per-unit" ), word_end > {};
+struct kw_gated : seq< TAO_PEGTL_STRING( "gated" ), word_end > {};
+struct kw_merge : seq< TAO_PEGTL_STRING( "merge" ), word_end > {};
+struct kw_blend : seq< TAO_PEGTL_STRING( "blend" ), word_end > {};
 
 // Words that begin a statement; skipping after an error stops before them.
-struct statement_keyword : sor< kw_model, kw_weights, kw_input, kw_output, kw_dense, kw_residual, kw_continuous, kw_augment, kw_solver, kw_trained_with > {};
+struct statement_keyword : sor< kw_model, kw_weights, kw_input, kw_output, kw_dense, kw_residual, kw_continuous, kw_augment, kw_solver, kw_trained_with, kw_state, kw_gated, kw_merge, kw_blend > {};
 // Statements that cannot appear inside a block: meeting one there means a '}' is missing.
-struct top_only_keyword : sor< kw_model, kw_weights, kw_input, kw_output, kw_continuous > {};
+struct top_only_keyword : sor< kw_model, kw_weights, kw_input, kw_output, kw_continuous, kw_state, kw_gated, kw_merge, kw_blend > {};
 // A statement ends at the end of its line, or where the next statement (or a '}') begins;
 // an unknown word on a later line is then reported as an unknown statement.
 struct statement_boundary : sor< eof, close_brace, statement_keyword > {};
@@ -156,7 +164,9 @@ struct min_factor_option : seq< kw_min_factor, sep, must< min_factor_value > > {
 struct max_factor_option : seq< kw_max_factor, sep, must< max_factor_value > > {};
 struct pi_alpha_option : seq< kw_pi_alpha, sep, must< pi_alpha_value > > {};
 struct pi_beta_option : seq< kw_pi_beta, sep, must< pi_beta_value > > {};
-struct solver_option : sor< steps_option, rtol_option, atol_option, max_steps_option, first_step_option, controller_option, safety_option, min_factor_option, max_factor_option, pi_alpha_option, pi_beta_option > {};
+struct steps_per_unit_value : real {};
+struct steps_per_unit_option : seq< kw_steps_per_unit, sep, must< steps_per_unit_value > > {};
+struct solver_option : sor< steps_option, steps_per_unit_option, rtol_option, atol_option, max_steps_option, first_step_option, controller_option, safety_option, min_factor_option, max_factor_option, pi_alpha_option, pi_beta_option > {};
 struct solver_options : seq< sep, must< solver_method >, star< sep, comma, sep, must< solver_option > >, must< solver_end > > {};
 struct solver_line : seq< kw_solver, solver_options > {};
 struct trained_line : seq< kw_trained_with, solver_options > {};
@@ -182,11 +192,26 @@ struct residual_block : seq< kw_residual, sep, must< residual_name >, sep, must<
 struct continuous_name : identifier {};
 struct t0_value : real {};
 struct t1_value : real {};
-struct interval : seq< open_bracket, sep, must< t0_value >, sep, must< comma >, sep, must< t1_value >, sep, must< close_bracket > > {};
+struct gap_end : kw_gap {};
+struct interval_end : sor< t1_value, gap_end > {};
+struct interval : seq< open_bracket, sep, must< t0_value >, sep, must< comma >, sep, must< interval_end >, sep, must< close_bracket > > {};
 struct continuous_block : seq< kw_continuous, sep, must< continuous_name >, sep, must< colon >, sep, must< block_width >, sep, must< comma >, sep, must< kw_t >, sep, must< kw_in >, sep, must< interval >, sep, must< open_brace >, sep, star< body_item >, must< close_brace > > {};
 
+// ---- streaming models: state, evolution over a run-time gap, update, readout ---------
+struct state_name : identifier {};
+struct state_size : integer {};
+struct gap_value : real {};
+struct state_line : seq< kw_state, sep, must< state_name >, sep, must< open_bracket >, sep, must< state_size >, sep, must< close_bracket >, sep, must< comma >, sep, must< kw_largest_gap >, sep, must< gap_value >, must< statement_end > > {};
+struct gated_option : from_option {};
+struct gated_line : seq< kw_gated, sep, must< layer_name >, sep, must< colon >, sep, must< in_width >, sep, must< arrow >, sep, must< out_width >, star< sep, comma, sep, must< gated_option > >, must< dense_end > > {};
+struct merge_plus : one< '+' > {};
+struct obs_width : integer {};
+struct merge_line : seq< kw_merge, sep, must< layer_name >, sep, must< colon >, sep, must< in_width >, sep, must< merge_plus >, sep, must< obs_width >, sep, must< arrow >, sep, must< out_width >, star< sep, comma, sep, must< dense_option > >, must< dense_end > > {};
+struct blend_name : identifier {};
+struct blend_block : seq< kw_blend, sep, must< blend_name >, sep, must< colon >, sep, must< block_width >, sep, must< open_brace >, sep, star< body_item >, must< close_brace > > {};
+
 // ---- the description ------------------------------------------------------------
-struct top_statement : sor< model_line, weights_line, input_line, output_line, dense_line, residual_block, continuous_block, augment_line, solver_line, trained_line > {};
+struct top_statement : sor< model_line, weights_line, input_line, output_line, dense_line, residual_block, continuous_block, augment_line, solver_line, trained_line, state_line, gated_line, merge_line, blend_block > {};
 struct top_attempt : must< top_statement > {};
 struct top_item : seq< not_at< eof >, sor< top_attempt, top_skip >, sep > {};
 struct description : seq< sep, must< model_first >, star< top_item >, eof > {};

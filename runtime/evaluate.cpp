@@ -32,14 +32,13 @@ void apply_dense(const Dense& d, double t, const Eigen::VectorXd& x, Eigen::Vect
 
 namespace {
 
-// Dense layers and residual blocks in order (a residual body or a field).
-void apply_sequence(const std::vector<Block>& blocks, double t, const Eigen::VectorXd& x, Eigen::VectorXd& y);
-
 void apply_residual(const Residual& r, double t, const Eigen::VectorXd& x, Eigen::VectorXd& y) {
     Eigen::VectorXd g;
     apply_sequence(r.body, t, x, g);
     y = x + g;
 }
+
+}  // namespace
 
 void apply_sequence(const std::vector<Block>& blocks, double t, const Eigen::VectorXd& x, Eigen::VectorXd& y) {
     Eigen::VectorXd cur = x;
@@ -56,8 +55,6 @@ void apply_sequence(const std::vector<Block>& blocks, double t, const Eigen::Vec
     y = cur;
 }
 
-}  // namespace
-
 EvalStatus eval_status_of(IntegrateStatus s) {
     switch (s) {
     case IntegrateStatus::ok: return EvalStatus::ok;
@@ -68,8 +65,6 @@ EvalStatus eval_status_of(IntegrateStatus s) {
     return EvalStatus::state_not_finite;
 }
 
-namespace {
-
 void add_stats(IntegrateStats& total, const IntegrateStats& s) {
     if (s.steps_taken > 0) {
         if (total.steps_taken == 0 || s.h_min < total.h_min) total.h_min = s.h_min;
@@ -79,6 +74,8 @@ void add_stats(IntegrateStats& total, const IntegrateStats& s) {
     total.steps_taken += s.steps_taken;
     total.steps_rejected += s.steps_rejected;
 }
+
+namespace {
 
 long sequence_macs(const std::vector<Block>& blocks) {
     long macs = 0;
@@ -98,6 +95,7 @@ std::string_view eval_status_name(EvalStatus s) {
     case EvalStatus::state_not_finite: return "state_not_finite";
     case EvalStatus::step_limit: return "step_limit";
     case EvalStatus::step_too_small: return "step_too_small";
+    case EvalStatus::gap_out_of_range: return "gap_out_of_range";
     }
     return "state_not_finite";
 }
@@ -107,14 +105,19 @@ void eval_field(const Continuous& block, double t, const Eigen::VectorXd& y, Eig
 }
 
 EvalResult evaluate(const Model& model, const Eigen::VectorXd& input) {
-    EvalResult r;
     if (!input.allFinite()) {
+        EvalResult r;
         r.status = EvalStatus::input_not_finite;
         return r;
     }
+    return evaluate_blocks(model.blocks, input);
+}
+
+EvalResult evaluate_blocks(const std::vector<Block>& blocks, const Eigen::VectorXd& input) {
+    EvalResult r;
     Eigen::VectorXd x = input;
     Eigen::VectorXd y;
-    for (const Block& b : model.blocks) {
+    for (const Block& b : blocks) {
         std::string_view name;
         if (b.kind == Block::Kind::dense) {
             name = b.dense.name;

@@ -48,6 +48,7 @@ struct SolverSpec {
     std::string method;             // key of a tableau in runtime/tableau.hpp
     Loc loc;                        // position of the method name
     int steps = 0;                  // fixed-step methods: number of equal steps
+    double steps_per_unit = 0.0;    // fixed-step methods over a run-time gap: ceil(gap * steps_per_unit) equal steps
     double rtol = 0.0;              // adaptive methods
     double atol = 0.0;
     int max_steps = 0;              // adaptive: attempted steps (accepted + rejected) allowed
@@ -82,6 +83,11 @@ struct Continuous {
     std::vector<Block> field;       // f(h, t): maps width+augment -> width+augment
     SolverSpec solver;
     std::optional<SolverSpec> trained;  // solver the model was trained with, if recorded
+    // The evolution of a streaming model: the interval is [0, gap], the gap known only at run time.
+    bool over_gap = false;
+    // The evolution is the closed-form continuous-time cell (Hasani et al. 2022), not an ODE: `field`
+    // holds a backbone and then three heads f, g, k; h(gap) = s * g + (1 - s) * k, s = sigmoid(-f * gap).
+    bool blend = false;
 
     int state() const { return width + augment; }  // also the block's output width
 };
@@ -92,6 +98,30 @@ struct Block {
     Dense dense;
     Residual residual;
     Continuous continuous;
+};
+
+// A streaming model (one with a `state` statement): for each observation x, after a gap dt,
+//   h = evolve(h, dt); h = update(h, x); y = readout(h)
+// with h zero after a reset. The readout is Model::blocks, fed with the state.
+struct Stream {
+    Loc loc;                        // the `state` statement
+    std::string state_name;
+    Loc state_loc;
+    int state_size = 0;
+    double largest_gap = 0.0;
+    Loc gap_loc;
+    bool has_evolve = false;
+    Continuous evolve;              // over_gap; an ODE (with its solver) or a blend
+    enum class Update { none, gated, merge };
+    Update update = Update::none;
+    std::string update_name;
+    Loc update_loc;
+    int update_in = 0;              // gated: the observation width; merge: the state width
+    int update_obs = 0;             // merge: the observation width
+    int update_out = 0;
+    // gated (a GRU cell, PyTorch GRUCell): [ih, hh], weights (3H, in) and (3H, H) in gate order r, z, n;
+    // merge: [dense], act(W [h; x] + b).
+    std::vector<Block> update_layers;
 };
 
 struct Model {
@@ -107,6 +137,7 @@ struct Model {
     int output_size = 0;
     Loc output_loc;
     std::vector<Block> blocks;
+    std::optional<Stream> stream;   // set for a streaming model; `blocks` is then its readout
 };
 
 // The name of a layer or block, and the width it hands to what follows.
@@ -139,6 +170,15 @@ void for_each_dense(const std::vector<Block>& blocks, F&& f) {
         case Block::Kind::continuous: for_each_dense(b.continuous.field, f); break;
         }
     }
+}
+
+// for_each_dense over the whole model: the blocks, then a streaming model's evolution and update.
+template <class F>
+void for_each_model_dense(const Model& m, F&& f) {
+    for_each_dense(m.blocks, f);
+    if (!m.stream) return;
+    for_each_dense(m.stream->evolve.field, f);
+    for_each_dense(m.stream->update_layers, f);
 }
 
 }  // namespace meander

@@ -193,7 +193,15 @@ bool bind_weights(Model& model, const Source& src, const TensorSet& set, Diagnos
     int before = diags.error_count();
     Binder binder(src, set, diags);
     binder.collect(model.blocks);
+    if (model.stream) {
+        binder.collect(model.stream->evolve.field);
+        binder.collect(model.stream->update_layers);
+    }
     binder.blocks(model.blocks);
+    if (model.stream) {
+        binder.blocks(model.stream->evolve.field);
+        binder.blocks(model.stream->update_layers);
+    }
     binder.unused(model);
     if (used) *used = binder.used();
     return diags.error_count() == before;
@@ -221,7 +229,7 @@ bool check_weight_range(const Model& model, const Source& src, Precision precisi
                           fmt::format("layer '{}': {} values of tensor '{}' are too small for float32 and become 0",
                                       d.name, flushed, tensor));
     };
-    for_each_dense(model.blocks, [&](const Dense& d) {
+    for_each_model_dense(model, [&](const Dense& d) {
         // Eigen stores the weight column-major; the order only matters for the index in the message.
         Eigen::Matrix<double, Eigen::Dynamic, Eigen::Dynamic, Eigen::RowMajor> w = d.weight;
         scan(d, d.weight_tensor, w.data(), w.size());

@@ -221,7 +221,7 @@ const std::vector<Row> kSyntaxRows = {
      "  solver rk4, steps 4\n"
      "}\n"
      "output y[4]\n",
-     "bad.mnd:3:27: error: expected the end time (a number)\n"
+     "bad.mnd:3:27: error: expected the end time (a number, or 'gap' in a streaming model)\n"
      "continuous c: 4, t in [0, one] {\n"
      "                          ^\n"},
     {"unclosed interval",
@@ -243,7 +243,7 @@ const std::vector<Row> kSyntaxRows = {
      "  solver rk4, stepz 4\n"
      "}\n"
      "output y[4]\n",
-     "bad.mnd:5:15: error: expected a solver option: steps, rtol, atol, max-steps, first-step, controller, safety, min-factor, max-factor, pi-alpha or pi-beta\n"
+     "bad.mnd:5:15: error: expected a solver option: steps, steps-per-unit, rtol, atol, max-steps, first-step, controller, safety, min-factor, max-factor, pi-alpha or pi-beta\n"
      "  solver rk4, stepz 4\n"
      "              ^\n"},
     {"missing solver method",
@@ -322,7 +322,7 @@ const std::vector<Row> kSyntaxRows = {
      "input x[4]\n"
      "layer a: 4 -> 2\n"
      "output y[2]\n",
-     "bad.mnd:3:1: error: expected a statement: weights, input, dense, residual, continuous or output\n"
+     "bad.mnd:3:1: error: expected a statement: weights, input, state, dense, residual, continuous, blend, gated, merge or output\n"
      "layer a: 4 -> 2\n"
      "^\n"},
     {"unknown statement in a block",
