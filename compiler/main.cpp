@@ -25,6 +25,8 @@
 #include "compiler/check.hpp"
 #include "compiler/refit.hpp"
 #include "compiler/sequence.hpp"
+#include "compiler/stream_cost.hpp"
+#include "compiler/stream_tune.hpp"
 #include "compiler/source.hpp"
 #include "compiler/tensors.hpp"
 #include "compiler/weights.hpp"
@@ -79,7 +81,7 @@ Precision precision_of(const std::string& s) { return s == "float64" ? Precision
 bool refuse_stream(const LoadedModel& l, const std::string& path, std::string_view command, Diagnostics& diags) {
     if (!l.model.stream) return false;
     diags.error(path, fmt::format("'{}' is a streaming model (it has a 'state' statement); meander {} does not handle streaming "
-                                  "models yet (check, eval and format do)",
+                                  "models yet (check, eval, cost, tune and format do)",
                                   l.model.name, command));
     return true;
 }
@@ -302,11 +304,25 @@ int cmd_cost(const std::string& model_path, const std::string& input, const std:
     Diagnostics diags;
     Precision p = precision_of(precision);
     auto loaded = load_model(model_path, p, diags);
-    if (!loaded || refuse_stream(*loaded, model_path, "cost", diags)) return flush(diags), kModelError;
+    if (!loaded) return flush(diags), kModelError;
     CostOptions co;
     co.precision = p;
     co.core = core;
     co.cycles_per_mac = cycles_per_mac;
+    if (loaded->model.stream) {
+        // Per observation: the worst case at the largest gap, and the spread over a sequence file.
+        std::vector<SequenceRow> rows;
+        if (!input.empty()) {
+            auto read = read_sequence_file(input, loaded->model.input_size, loaded->model.stream->largest_gap, diags);
+            if (!read) return flush(diags), kModelError;
+            rows = std::move(*read);
+        }
+        auto rep = measure_stream_cost(loaded->model, rows, co, diags);
+        flush(diags);
+        if (!rep) return kModelError;
+        std::fputs((json ? render_stream_cost_json(*rep) : render_stream_cost_text(*rep)).c_str(), stdout);
+        return 0;
+    }
     if (!input.empty()) {
         auto rows = read_csv_rows(input, loaded->model.input_size, diags);
         if (!rows) return flush(diags), kModelError;
@@ -325,8 +341,6 @@ int cmd_tune(const std::string& model_path, const std::string& input, const std:
              std::optional<double> metric_slack, const std::string& plot_path) {
     Diagnostics diags;
     Precision p = precision_of(precision);
-    auto in = load_with_rows(model_path, p, input, diags, "tune");
-    if (!in) return flush(diags), kModelError;
     TuneOptions to;
     if (!labels_path.empty() && !(to.labels = read_labels(labels_path, in->loaded.model, in->rows.size(), diags)))
         return flush(diags), kModelError;
@@ -336,6 +350,23 @@ int cmd_tune(const std::string& model_path, const std::string& input, const std:
     to.methods = methods;
     to.max_steps_sweep = sweep;
     to.precision = p;
+    {
+        // A streaming model: its evolution's budget per observation, over a sequence file.
+        // (Any other model is loaded again below, with its rows; these diagnostics are then dropped.)
+        Diagnostics sd;
+        auto loaded = load_model(model_path, p, sd);
+        if (loaded && loaded->model.stream) {
+            auto rows = read_sequence_file(input, loaded->model.input_size, loaded->model.stream->largest_gap, sd);
+            if (!rows) return flush(sd), kModelError;
+            auto rep = tune_stream(loaded->model, *rows, to, sd);
+            flush(sd);
+            if (!rep) return kModelError;
+            std::fputs((json ? render_stream_tune_json(*rep) : render_stream_tune_text(*rep)).c_str(), stdout);
+            return 0;
+        }
+    }
+    auto in = load_with_rows(model_path, p, input, diags, "tune");
+    if (!in) return flush(diags), kModelError;
     to.inputs = in->rows;
     auto rep = tune_model(in->loaded.model, to, diags);
     if (rep && !plot_path.empty() && !write_file_atomic(plot_path, render_tune_svg(*rep), diags)) rep.reset();

@@ -28,7 +28,14 @@ long worst_evolve_field_evals(const Stream& stream) {
 
 long double worst_observation_macs(const Model& model) {
     long double macs = 0;
-    for_each_dense(model.blocks, [&](const Dense& d) { macs += dense_macs(d); });
+    // The readout: its layers once, a continuous block's field as often as its solver allows.
+    for (const Block& b : model.blocks) {
+        if (b.kind == Block::Kind::continuous)
+            macs += static_cast<long double>(field_macs(b.continuous)) *
+                    static_cast<long double>(worst_field_evals(b.continuous.solver));
+        else
+            for_each_dense(std::vector<Block>{b}, [&](const Dense& d) { macs += dense_macs(d); });
+    }
     if (!model.stream) return macs;
     const Stream& st = *model.stream;
     for_each_dense(st.update_layers, [&](const Dense& d) { macs += dense_macs(d); });

@@ -11,12 +11,20 @@ solve_ivp (RK45 = dormand-prince, RK23 = bogacki-shampine), whose step
 control is the one DEVELOPERS.md "Integrator semantics" specifies; fixed-step
 methods use t_i = t0 + i*h with the Butcher tableaux written out below.
 
+A streaming model (one with a `state` statement) reads inputs.csv as a
+sequence file (sequence id, time stamp, observation); per row the state
+evolves over the gap since the previous row of its sequence (fixed-step
+methods: ceil(gap * steps-per-unit) steps; adaptive: solve_ivp), then a GRU
+cell written out after PyTorch's GRUCell documentation updates it (or a
+dense merge), then the readout; the state is zero where a sequence begins.
+
 With --meander BIN it also runs `BIN eval <name>.mnd --input inputs.csv` and
 compares the numbers it prints (one row of outputs per input row) with
 expected.csv.
 
 Exit status 0 when every comparison is within tolerance, 1 otherwise.
 """
+import math
 import os
 import re
 import subprocess
@@ -79,6 +87,13 @@ class Parser:
         m["weights"] = self.take()
         self.take("input")
         m["input"] = (self.take(), self.size())
+        m["state"] = None
+        if self.peek() == "state":
+            self.take()
+            name, size = self.take(), self.size()
+            self.take(",")
+            self.take("largest-gap")
+            m["state"] = dict(name=name, size=size, largest_gap=self.number())
         m["blocks"] = []
         while self.peek() != "output":
             m["blocks"].append(self.block())
@@ -109,6 +124,19 @@ class Parser:
             return dict(kind="residual", name=name, width=width, body=body)
         if kw == "continuous":
             return self.continuous()
+        if kw == "gated":
+            self.take()
+            g = dict(kind="gated", name=self.take())
+            self.take(":")
+            g["in"] = int(self.take())
+            self.take("->")
+            g["out"] = int(self.take())
+            g["prefix"] = g["name"]
+            if self.peek() == ",":
+                self.take(",")
+                self.take("from")
+                g["prefix"] = self.take()
+            return g
         raise SyntaxError(f"unexpected {kw!r}")
 
     def dense(self):
@@ -157,7 +185,7 @@ class Parser:
         self.take("[")
         c["t0"] = self.number()
         self.take(",")
-        c["t1"] = self.number()
+        c["t1"] = self.take() if self.peek() == "gap" else self.number()
         self.take("]")
         self.take("{")
         if self.peek() == "augment":
@@ -258,16 +286,47 @@ class Model:
                 x = self.continuous(b, x)
         return x
 
-    def continuous(self, c, x):
+    def gated(self, g, x, h):
+        # PyTorch GRUCell: rows of the weights in gate order r, z, n.
+        n_h = g["out"]
+        w_ih = self.tensor(g["prefix"] + ".weight_ih", (3 * n_h, g["in"]))
+        w_hh = self.tensor(g["prefix"] + ".weight_hh", (3 * n_h, n_h))
+        gi = w_ih @ x + self.tensor(g["prefix"] + ".bias_ih", (3 * n_h,))
+        gh = w_hh @ h + self.tensor(g["prefix"] + ".bias_hh", (3 * n_h,))
+        r = act("sigmoid", gi[:n_h] + gh[:n_h], 0)
+        z = act("sigmoid", gi[n_h:2 * n_h] + gh[n_h:2 * n_h], 0)
+        n = np.tanh(gi[2 * n_h:] + r * gh[2 * n_h:])
+        return (1 - z) * n + z * h
+
+    def sequences(self, rows):
+        """A streaming model over sequence rows (id, time, values...): one output per row."""
+        evolve, update, readout = self.m["blocks"][0], self.m["blocks"][1], self.m["blocks"][2:]
+        out, h, prev = [], None, None
+        for seq_id, t, x in rows:
+            if prev is None or seq_id != prev[0]:
+                h, gap = np.zeros(self.m["state"]["size"]), 0.0
+            else:
+                gap = t - prev[1]
+            prev = (seq_id, t)
+            if gap > 0:
+                h = self.continuous(evolve, h, gap)
+            if update["kind"] == "gated":
+                h = self.gated(update, np.asarray(x, dtype=np.float64), h)
+            else:
+                raise ValueError(f"update {update['kind']} is not handled here")
+            out.append(self.seq(readout, h))
+        return np.array(out)
+
+    def continuous(self, c, x, gap=None):
         y0 = np.concatenate([x, np.zeros(c["augment"])])
         s = c["solver"]
         if c["trained"] is not None and c["trained"] != s:
             raise ValueError(f"block {c['name']}: solver {s} differs from trained-with {c['trained']}")
         f = lambda t, y: self.seq(c["field"], y, t)  # noqa: E731
-        t0, t1 = c["t0"], c["t1"]
+        t0, t1 = c["t0"], (gap if c["t1"] == "gap" else c["t1"])
         if s["method"] in FIXED:
             cc, a, b = FIXED[s["method"]]
-            n = int(s["steps"])
+            n = int(s["steps"]) if "steps" in s else max(1, math.ceil(gap * s["steps-per-unit"]))
             h = (t1 - t0) / n
             y = y0
             for i in range(n):
@@ -310,6 +369,17 @@ def read_csv(path):
     return lines[0].split(","), np.array([[float(v) for v in ln.split(",")] for ln in lines[1:]])
 
 
+def read_sequence_csv(path):
+    """A sequence file with a header: (id, time, [values]) per row."""
+    with open(path) as fh:
+        lines = [ln.strip() for ln in fh if ln.strip() and not ln.startswith("#")]
+    rows = []
+    for ln in lines[1:]:
+        parts = ln.split(",")
+        rows.append((parts[0].strip(), float(parts[1]), [float(v) for v in parts[2:]]))
+    return lines[0].split(","), rows
+
+
 def numeric_rows(text):
     rows = []
     for ln in text.splitlines():
@@ -337,14 +407,21 @@ def check(name, meander=None):
     folder = os.path.join(HERE, name)
     mnd = os.path.join(folder, name + ".mnd")
     model = Model(mnd)
-    in_names, x = read_csv(os.path.join(folder, "inputs.csv"))
-    out_names, want = read_csv(os.path.join(folder, "expected.csv"))
     m = model.m
+    out_names, want = read_csv(os.path.join(folder, "expected.csv"))
+    if m["state"]:
+        in_names, rows = read_sequence_csv(os.path.join(folder, "inputs.csv"))
+        in_names, x = in_names[2:], rows
+        got = model.sequences(rows)
+    else:
+        in_names, x = read_csv(os.path.join(folder, "inputs.csv"))
+        got = None
     print(f"{name}: {len(x)} rows, {m['input'][1]} inputs, {m['output'][1]} outputs")
     ok = len(in_names) == m["input"][1] and len(out_names) == m["output"][1]
     if not ok:
         print("  header widths do not match the description: FAIL")
-    got = np.array([model(r) for r in x])
+    if got is None:
+        got = np.array([model(r) for r in x])
     unused = sorted(set(model.tensors) - model.used)
     if unused:
         print(f"  tensors not named by the description: {unused}: FAIL")

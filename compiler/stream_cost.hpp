@@ -1,0 +1,47 @@
+// The cost of a streaming model per observation: the worst case at the
+// largest gap (field evaluations, multiply-accumulates, estimated cycles),
+// and, over a sequence file, the measured spread. Flash, RAM and stack need
+// the emitted code, which streaming models do not have yet.
+#pragma once
+
+#include <optional>
+#include <string>
+#include <vector>
+
+#include "../runtime/model.hpp"
+#include "cost.hpp"
+#include "sequence.hpp"
+#include "source.hpp"
+
+namespace meander {
+
+// Per-observation counts over the rows of a sequence file.
+struct ObservationSpread {
+    int rows = 0;
+    int failed_rows = 0;            // observations whose result was not ok
+    double min = 0, median = 0, p95 = 0, max = 0;
+};
+
+struct StreamCost {
+    std::string model;
+    CoreClass core = CoreClass::cortex_m4f;
+    double cycles_per_mac = 0.0;
+    std::string mac_source;
+    double largest_gap = 0.0;
+    std::string evolution;          // "continuous 'drift', rk4, steps-per-unit 2" or "blend 'cell' (closed form)"
+    long parameters = 0;
+    long macs_per_field_eval = 0;   // the evolution's field
+    long worst_field_evals = 0;     // per observation, at the largest gap (evolution and readout)
+    long double worst_macs = 0;     // per observation, at the largest gap
+    double worst_cycles = 0;        // worst_macs * cycles_per_mac (multiply-accumulates only)
+    std::optional<ObservationSpread> field_evals;  // measured, with a sequence file
+    std::optional<ObservationSpread> macs;
+};
+
+// `rows`: a sequence file's rows, or empty.
+std::optional<StreamCost> measure_stream_cost(const Model& model, const std::vector<SequenceRow>& rows,
+                                              const CostOptions& opts, Diagnostics& diags);
+std::string render_stream_cost_text(const StreamCost& c);
+std::string render_stream_cost_json(const StreamCost& c);
+
+}  // namespace meander
