@@ -15,6 +15,7 @@
 #include "compiler/diff.hpp"
 #include "compiler/dump.hpp"
 #include "compiler/emit.hpp"
+#include "compiler/emit_stream.hpp"
 #include "compiler/format.hpp"
 #include "compiler/labels.hpp"
 #include "compiler/load.hpp"
@@ -81,7 +82,7 @@ Precision precision_of(const std::string& s) { return s == "float64" ? Precision
 bool refuse_stream(const LoadedModel& l, const std::string& path, std::string_view command, Diagnostics& diags) {
     if (!l.model.stream) return false;
     diags.error(path, fmt::format("'{}' is a streaming model (it has a 'state' statement); meander {} does not handle streaming "
-                                  "models yet (check, eval, cost, tune and format do)",
+                                  "models yet (check, eval, compile, verify, cost, tune and format do)",
                                   l.model.name, command));
     return true;
 }
@@ -226,7 +227,14 @@ int cmd_compile(const std::string& model_path, const std::string& outdir, const 
     Diagnostics diags;
     Precision p = precision_of(precision);
     auto loaded = load_model(model_path, p, diags);
-    if (!loaded || refuse_stream(*loaded, model_path, "compile", diags)) return flush(diags), kModelError;
+    if (!loaded) return flush(diags), kModelError;
+    if (loaded->model.stream) {
+        const std::string why = stream_emit_unsupported(loaded->model);
+        if (!why.empty()) diags.error(model_path, fmt::format("streaming model '{}' cannot be emitted: {}", loaded->model.name, why));
+        else if (c_api || !self_test.empty() || !dump.empty())
+            diags.error(model_path, "a streaming model is compiled without --c-api, --self-test and --dump (not emitted yet)");
+    }
+    if (!diags.ok()) return flush(diags), kModelError;
     EmitOptions opts = emit_options(*loaded, p, c_api);
     if (!self_test.empty()) {
         auto rows = read_csv_rows(self_test, loaded->model.input_size, diags, p == Precision::float32);
@@ -247,7 +255,7 @@ int cmd_compile(const std::string& model_path, const std::string& outdir, const 
     }
     if (dump == "parse") std::fputs(dump_model(loaded->model).c_str(), stdout);
     if (dump == "lower") std::fputs(dump_lowered(lower_model(loaded->model, p)).c_str(), stdout);
-    auto files = emit_model(loaded->model, opts);
+    auto files = loaded->model.stream ? emit_stream(loaded->model, opts) : emit_model(loaded->model, opts);
     if (dump == "emit")
         for (const auto& f : files) std::fputs(fmt::format("// ---- {}\n{}", f.name, f.text).c_str(), stdout);
     std::error_code ec;
@@ -285,12 +293,34 @@ int cmd_verify(const std::string& model_path, const std::string& input, const st
                const std::string& cxx, const std::string& keep, bool show) {
     Diagnostics diags;
     Precision p = precision_of(precision);
-    auto in = load_with_rows(model_path, p, input, diags, "verify", p == Precision::float32);
-    if (!in) return flush(diags), kModelError;
     VerifyOptions vo;
     vo.tolerance = tol;
     vo.cxx = cxx;
     vo.keep_dir = keep;
+    {
+        // A streaming model: its emitted observe() over a sequence file.
+        // (Any other model is loaded again below, with its rows; these diagnostics are then dropped.)
+        Diagnostics sd;
+        auto loaded = load_model(model_path, p, sd);
+        if (loaded && loaded->model.stream) {
+            const std::string why = stream_emit_unsupported(loaded->model);
+            if (!why.empty()) {
+                sd.error(model_path, fmt::format("streaming model '{}' cannot be emitted: {}", loaded->model.name, why));
+                return flush(sd), kModelError;
+            }
+            auto rows = read_sequence_file(input, loaded->model.input_size, loaded->model.stream->largest_gap, sd,
+                                           p == Precision::float32);
+            if (!rows) return flush(sd), kModelError;
+            auto rep = verify_stream(loaded->model, emit_options(*loaded, p, false), *rows, vo, sd);
+            flush(sd);
+            if (!rep) return kModelError;
+            if (show) std::fputs(render_verify_rows(*rep).c_str(), stdout);
+            std::fputs(render_verify(*rep, p).c_str(), stdout);
+            return rep->passed() ? 0 : kModelError;
+        }
+    }
+    auto in = load_with_rows(model_path, p, input, diags, "verify", p == Precision::float32);
+    if (!in) return flush(diags), kModelError;
     auto rep = verify_model(in->loaded.model, emit_options(in->loaded, p, false), in->rows, vo, diags);
     flush(diags);
     if (!rep) return kModelError;

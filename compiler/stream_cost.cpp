@@ -108,7 +108,7 @@ std::string render_stream_cost_text(const StreamCost& c) {
         o += fmt::format("    field evaluations: {}\n", spread_text(*c.field_evals));
         if (c.macs) o += fmt::format("    multiply-accumulates: {}\n", spread_text(*c.macs));
     }
-    o += "  flash, RAM and stack: not measured (streaming models have no emitted code yet)\n";
+    o += "  flash, RAM and stack: not measured for streaming models yet\n";
     return o;
 }
 

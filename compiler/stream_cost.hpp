@@ -1,7 +1,7 @@
 // The cost of a streaming model per observation: the worst case at the
 // largest gap (field evaluations, multiply-accumulates, estimated cycles),
-// and, over a sequence file, the measured spread. Flash, RAM and stack need
-// the emitted code, which streaming models do not have yet.
+// and, over a sequence file, the measured spread. Flash, RAM and stack are
+// not measured for streaming models yet.
 #pragma once
 
 #include <optional>

@@ -9,6 +9,7 @@
 #include <sstream>
 
 #include "../runtime/evaluate.hpp"
+#include "emit_stream.hpp"
 
 namespace meander {
 
@@ -58,6 +59,40 @@ std::string driver_source(const Model& m, const std::vector<std::vector<double>>
     return s;
 }
 
+// The sequence driver: reset at the first row of each sequence, then observe every row.
+std::string stream_driver_source(const Model& m, const std::vector<SequenceRow>& rows, Precision p) {
+    std::string s = fmt::format("#include \"{}.hpp\"\n#include <cstdio>\n\n", m.name);
+    s += fmt::format("static const {0}::real kInputs[{1}][{2}] = {{\n", m.name, rows.size(), m.input_size);
+    for (const auto& row : rows) {
+        s += "    {";
+        for (std::size_t i = 0; i < row.values.size(); ++i) s += (i ? ", " : "") + literal(row.values[i], p);
+        s += "},\n";
+    }
+    s += "};\n";
+    s += fmt::format("static const {0}::real kGaps[{1}] = {{", m.name, rows.size());
+    for (std::size_t i = 0; i < rows.size(); ++i) s += (i ? ", " : "") + literal(rows[i].gap, p);
+    s += "};\n";
+    s += fmt::format("static const bool kFirst[{}] = {{", rows.size());
+    for (std::size_t i = 0; i < rows.size(); ++i) s += std::string(i ? ", " : "") + (rows[i].first ? "true" : "false");
+    s += "};\n\n";
+    s += fmt::format(
+        "int main() {{\n"
+        "    static {0}::context ctx;\n"
+        "    {0}::real out[{0}::output_size];\n"
+        "    for (unsigned r = 0; r < {1}u; ++r) {{\n"
+        "        if (kFirst[r]) {0}::reset(ctx);\n"
+        "        {0}::result res = {0}::observe(ctx, kInputs[r], kGaps[r], out);\n"
+        "        std::printf(\"%u %u %u %u\", static_cast<unsigned>(res), static_cast<unsigned>(ctx.count.field_evals),\n"
+        "                    static_cast<unsigned>(ctx.count.steps_taken), static_cast<unsigned>(ctx.count.steps_rejected));\n"
+        "        for (unsigned i = 0; i < {0}::output_size; ++i) std::printf(\" %.{2}g\", static_cast<double>(out[i]));\n"
+        "        std::printf(\"\\n\");\n"
+        "    }}\n"
+        "    return 0;\n"
+        "}}\n",
+        m.name, rows.size(), p == Precision::float32 ? 9 : 17);
+    return s;
+}
+
 unsigned status_code(EvalStatus s) {
     // The emitted result enumerators carry the same order (DEVELOPERS.md, emitted API).
     return static_cast<unsigned>(s);
@@ -65,18 +100,44 @@ unsigned status_code(EvalStatus s) {
 
 }  // namespace
 
+namespace {
+
+// Builds the emitted files and the driver under the strict flags, runs the driver, compares its
+// rows with the reference results (one per row).
+std::optional<VerifyReport> build_and_compare(const Model& model, const std::vector<EmittedFile>& files,
+                                              const std::string& driver, const std::vector<EvalResult>& refs, Precision p,
+                                              const VerifyOptions& opts, Diagnostics& diags);
+
+}  // namespace
+
 std::optional<VerifyReport> verify_model(const Model& model, const EmitOptions& emit_opts,
                                          const std::vector<std::vector<double>>& inputs,
                                          const VerifyOptions& opts, Diagnostics& diags) {
-    const Precision p = emit_opts.precision;
+    std::vector<EvalResult> refs;
+    for (const auto& row : inputs)
+        refs.push_back(evaluate(model, Eigen::Map<const Eigen::VectorXd>(row.data(), static_cast<Eigen::Index>(row.size()))));
+    return build_and_compare(model, emit_model(model, emit_opts), driver_source(model, inputs, emit_opts.precision), refs,
+                             emit_opts.precision, opts, diags);
+}
+
+std::optional<VerifyReport> verify_stream(const Model& model, const EmitOptions& emit_opts, const std::vector<SequenceRow>& rows,
+                                          const VerifyOptions& opts, Diagnostics& diags) {
+    return build_and_compare(model, emit_stream(model, emit_opts), stream_driver_source(model, rows, emit_opts.precision),
+                             evaluate_sequences(model, rows), emit_opts.precision, opts, diags);
+}
+
+namespace {
+
+std::optional<VerifyReport> build_and_compare(const Model& model, const std::vector<EmittedFile>& files,
+                                              const std::string& driver, const std::vector<EvalResult>& refs, Precision p,
+                                              const VerifyOptions& opts, Diagnostics& diags) {
     auto folder = WorkFolder::open(opts.keep_dir, "meander-verify", diags);
     if (!folder) return std::nullopt;
     const fs::path dir = folder->path();
 
-    for (const auto& f : emit_model(model, emit_opts))
+    for (const auto& f : files)
         if (!write_file_atomic((dir / f.name).string(), f.text, diags)) return std::nullopt;
-    if (!write_file_atomic((dir / "verify_driver.cpp").string(), driver_source(model, inputs, p), diags))
-        return std::nullopt;
+    if (!write_file_atomic((dir / "verify_driver.cpp").string(), driver, diags)) return std::nullopt;
 
     std::string cxx = opts.cxx;
     if (cxx.empty()) {
@@ -104,15 +165,15 @@ std::optional<VerifyReport> verify_model(const Model& model, const EmitOptions& 
     }
 
     VerifyReport rep;
-    rep.rows = static_cast<int>(inputs.size());
+    rep.rows = static_cast<int>(refs.size());
     rep.outputs = model.output_size;
     rep.tolerance = opts.tolerance >= 0 ? opts.tolerance : default_tolerance(p);
     rep.counters_must_match = p == Precision::float64;
     std::istringstream lines(*out);
-    for (std::size_t r = 0; r < inputs.size(); ++r) {
+    for (std::size_t r = 0; r < refs.size(); ++r) {
         std::string line;
         if (!std::getline(lines, line)) {
-            diags.error("verify", fmt::format("the driver printed {} rows, expected {}", r, inputs.size()));
+            diags.error("verify", fmt::format("the driver printed {} rows, expected {}", r, refs.size()));
             return std::nullopt;
         }
         std::istringstream fields(line);
@@ -121,8 +182,7 @@ std::optional<VerifyReport> verify_model(const Model& model, const EmitOptions& 
         rep.field_evals += evals;
         rep.steps_taken += taken;
         rep.steps_rejected += rejected;
-        Eigen::VectorXd in = Eigen::Map<const Eigen::VectorXd>(inputs[r].data(), static_cast<Eigen::Index>(inputs[r].size()));
-        EvalResult ref = evaluate(model, in);
+        const EvalResult& ref = refs[r];
         rep.eval_field_evals += ref.stats.field_evals;
         if (static_cast<long>(evals) != ref.stats.field_evals || static_cast<long>(taken) != ref.stats.steps_taken ||
             static_cast<long>(rejected) != ref.stats.steps_rejected)
@@ -130,7 +190,7 @@ std::optional<VerifyReport> verify_model(const Model& model, const EmitOptions& 
         rep.emitted.emplace_back();
         rep.reference.emplace_back();
         rep.reference_status.emplace_back(eval_status_name(ref.status));
-        rep.emitted_status.emplace_back(status <= 4 ? eval_status_name(static_cast<EvalStatus>(status)) : "unknown");
+        rep.emitted_status.emplace_back(status <= 5 ? eval_status_name(static_cast<EvalStatus>(status)) : "unknown");
         if (status != status_code(ref.status)) {
             ++rep.status_mismatches;
             continue;
@@ -160,6 +220,8 @@ std::optional<VerifyReport> verify_model(const Model& model, const EmitOptions& 
     }
     return rep;
 }
+
+}  // namespace
 
 std::string render_verify(const VerifyReport& r, Precision p) {
     std::string s;

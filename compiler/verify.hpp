@@ -8,6 +8,7 @@
 
 #include "../runtime/model.hpp"
 #include "emit.hpp"
+#include "sequence.hpp"
 #include "source.hpp"
 
 namespace meander {
@@ -51,6 +52,10 @@ struct VerifyReport {
 std::optional<VerifyReport> verify_model(const Model& model, const EmitOptions& emit_opts,
                                          const std::vector<std::vector<double>>& inputs,
                                          const VerifyOptions& opts, Diagnostics& diags);
+
+// A streaming model over a sequence file: reset at each new sequence, observe every row.
+std::optional<VerifyReport> verify_stream(const Model& model, const EmitOptions& emit_opts, const std::vector<SequenceRow>& rows,
+                                          const VerifyOptions& opts, Diagnostics& diags);
 
 std::string render_verify(const VerifyReport& r, Precision p);
 // Every row: the emitted code's outputs beside eval's.
