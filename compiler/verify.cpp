@@ -31,8 +31,11 @@ std::string literal(double v, Precision p) {
 }
 
 // A driver that runs every input row and prints, per row, the result code,
-// the counters and the outputs with enough digits to round-trip.
-std::string driver_source(const Model& m, const std::vector<std::vector<double>>& inputs, Precision p) {
+// the counters and the outputs with enough digits to round-trip. With `rows`
+// (a streaming model's sequence file) it resets at the first row of each
+// sequence and observes every row with its gap.
+std::string driver_source(const Model& m, const std::vector<std::vector<double>>& inputs, Precision p,
+                          const std::vector<SequenceRow>* rows = nullptr) {
     std::string s;
     s += fmt::format("#include \"{}.hpp\"\n#include <cstdio>\n\n", m.name);
     s += fmt::format("static const {0}::real kInputs[{1}][{2}] = {{\n", m.name, inputs.size(), m.input_size);
@@ -42,46 +45,22 @@ std::string driver_source(const Model& m, const std::vector<std::vector<double>>
         s += "},\n";
     }
     s += "};\n\n";
-    s += fmt::format(
-        "int main() {{\n"
-        "    static {0}::context ctx;\n"
-        "    {0}::real out[{0}::output_size];\n"
-        "    for (unsigned r = 0; r < {1}u; ++r) {{\n"
-        "        {0}::result res = {0}::infer(ctx, kInputs[r], out);\n"
-        "        std::printf(\"%u %u %u %u\", static_cast<unsigned>(res), static_cast<unsigned>(ctx.count.field_evals),\n"
-        "                    static_cast<unsigned>(ctx.count.steps_taken), static_cast<unsigned>(ctx.count.steps_rejected));\n"
-        "        for (unsigned i = 0; i < {0}::output_size; ++i) std::printf(\" %.{2}g\", static_cast<double>(out[i]));\n"
-        "        std::printf(\"\\n\");\n"
-        "    }}\n"
-        "    return 0;\n"
-        "}}\n",
-        m.name, inputs.size(), p == Precision::float32 ? 9 : 17);
-    return s;
-}
-
-// The sequence driver: reset at the first row of each sequence, then observe every row.
-std::string stream_driver_source(const Model& m, const std::vector<SequenceRow>& rows, Precision p) {
-    std::string s = fmt::format("#include \"{}.hpp\"\n#include <cstdio>\n\n", m.name);
-    s += fmt::format("static const {0}::real kInputs[{1}][{2}] = {{\n", m.name, rows.size(), m.input_size);
-    for (const auto& row : rows) {
-        s += "    {";
-        for (std::size_t i = 0; i < row.values.size(); ++i) s += (i ? ", " : "") + literal(row.values[i], p);
-        s += "},\n";
+    std::string call = fmt::format("{0}::result res = {0}::infer(ctx, kInputs[r], out);", m.name);
+    if (rows) {
+        s += fmt::format("static const {0}::real kGaps[{1}] = {{", m.name, rows->size());
+        for (std::size_t i = 0; i < rows->size(); ++i) s += (i ? ", " : "") + literal((*rows)[i].gap, p);
+        s += fmt::format("}};\nstatic const bool kFirst[{}] = {{", rows->size());
+        for (std::size_t i = 0; i < rows->size(); ++i) s += std::string(i ? ", " : "") + ((*rows)[i].first ? "true" : "false");
+        s += "};\n\n";
+        call = fmt::format("if (kFirst[r]) {0}::reset(ctx);\n        {0}::result res = {0}::observe(ctx, kInputs[r], kGaps[r], out);",
+                           m.name);
     }
-    s += "};\n";
-    s += fmt::format("static const {0}::real kGaps[{1}] = {{", m.name, rows.size());
-    for (std::size_t i = 0; i < rows.size(); ++i) s += (i ? ", " : "") + literal(rows[i].gap, p);
-    s += "};\n";
-    s += fmt::format("static const bool kFirst[{}] = {{", rows.size());
-    for (std::size_t i = 0; i < rows.size(); ++i) s += std::string(i ? ", " : "") + (rows[i].first ? "true" : "false");
-    s += "};\n\n";
     s += fmt::format(
         "int main() {{\n"
         "    static {0}::context ctx;\n"
         "    {0}::real out[{0}::output_size];\n"
         "    for (unsigned r = 0; r < {1}u; ++r) {{\n"
-        "        if (kFirst[r]) {0}::reset(ctx);\n"
-        "        {0}::result res = {0}::observe(ctx, kInputs[r], kGaps[r], out);\n"
+        "        {3}\n"
         "        std::printf(\"%u %u %u %u\", static_cast<unsigned>(res), static_cast<unsigned>(ctx.count.field_evals),\n"
         "                    static_cast<unsigned>(ctx.count.steps_taken), static_cast<unsigned>(ctx.count.steps_rejected));\n"
         "        for (unsigned i = 0; i < {0}::output_size; ++i) std::printf(\" %.{2}g\", static_cast<double>(out[i]));\n"
@@ -89,7 +68,7 @@ std::string stream_driver_source(const Model& m, const std::vector<SequenceRow>&
         "    }}\n"
         "    return 0;\n"
         "}}\n",
-        m.name, rows.size(), p == Precision::float32 ? 9 : 17);
+        m.name, inputs.size(), p == Precision::float32 ? 9 : 17, call);
     return s;
 }
 
@@ -122,7 +101,9 @@ std::optional<VerifyReport> verify_model(const Model& model, const EmitOptions& 
 
 std::optional<VerifyReport> verify_stream(const Model& model, const EmitOptions& emit_opts, const std::vector<SequenceRow>& rows,
                                           const VerifyOptions& opts, Diagnostics& diags) {
-    return build_and_compare(model, emit_stream(model, emit_opts), stream_driver_source(model, rows, emit_opts.precision),
+    std::vector<std::vector<double>> inputs;
+    for (const auto& r : rows) inputs.push_back(r.values);
+    return build_and_compare(model, emit_stream(model, emit_opts), driver_source(model, inputs, emit_opts.precision, &rows),
                              evaluate_sequences(model, rows), emit_opts.precision, opts, diags);
 }
 
