@@ -328,9 +328,12 @@ const char* result_name(result r) noexcept;
                          tb.source, "the table of runtime/tableau.cpp");
         o += fmt::format("result evolve({0}* work, {0}* h, {0} gap, counters& count) noexcept {{\n", r);
         o += fmt::format("    if (!(gap > {})) return result::ok;\n", L(0));
-        o += fmt::format("    const double steps = std::ceil(static_cast<double>(gap) * {});\n",
-                         emit_detail::real_literal(st_.evolve.solver.steps_per_unit, Precision::float64));
-        o += "    const std::uint32_t n = steps < 1.0 ? 1u : static_cast<std::uint32_t>(steps);\n";
+        // In `real` (no software double on a single-precision FPU); clamped to the step count at
+        // the largest gap, so the stated worst case bounds every call.
+        const long most = gap_steps(st_.evolve.solver, st_.largest_gap);
+        o += fmt::format("    const {} steps = std::ceil(gap * {});\n", r, L(st_.evolve.solver.steps_per_unit));
+        o += fmt::format("    const std::uint32_t n = !(steps >= {0}) ? 1u : !(steps <= {1}) ? {2}u : static_cast<std::uint32_t>(steps);\n",
+                         L(1), L(static_cast<double>(most)), most);
         o += fmt::format("    const {0} step = gap / static_cast<{0}>(n);\n", r);
         o += fmt::format("    {0}* k = work + {1};\n    {0}* arg = work + {2};\n", r, off_k_, off_arg_);
         o += "    for (std::uint32_t s = 0; s < n; ++s) {\n";

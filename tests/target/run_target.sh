@@ -34,6 +34,11 @@
 #
 # Environment: MEANDER (the meander binary, default: meander on PATH),
 # MEANDER_TIMEOUT (seconds per emulator run, default 60).
+# A streaming model (a `state` statement) reads inputs.csv as a sequence file;
+# its driver (board_stream_main.cpp) resets at each sequence and observes every
+# row with its gap; it has no self-test yet, and `cost` does not measure its
+# code yet (that mode is skipped for it).
+#
 # Exit status: 0 pass, 1 fail, 77 a tool is missing (ctest SKIP_RETURN_CODE).
 set -u -o pipefail
 
@@ -128,12 +133,20 @@ inputs=$sample_dir/inputs.csv
 expected=$sample_dir/expected.csv
 [ -f "$inputs" ] || fail "$inputs is missing"
 
-run "$meander" compile "$mnd" -o "$work/gen" --self-test "$inputs" --precision "$precision" ||
-    fail "meander compile failed"
-for f in "$name.hpp" "$name.cpp" "${name}_selftest.hpp" "${name}_selftest.cpp"; do
-    [ -f "$work/gen/$f" ] || fail "meander compile did not write $f"
-done
-sources=("$work/gen/$name.cpp" "$work/gen/${name}_selftest.cpp")
+streaming=0
+sed -e 's/#.*//' "$mnd" | grep -Eq '^[[:space:]]*state[[:space:]]' && streaming=1
+if [ "$streaming" = 1 ]; then
+    [ "$mode" != cost ] || { echo "SKIP: meander cost does not measure a streaming model's code yet"; exit 77; }
+    run "$meander" compile "$mnd" -o "$work/gen" --precision "$precision" || fail "meander compile failed"
+    sources=("$work/gen/$name.cpp")
+else
+    run "$meander" compile "$mnd" -o "$work/gen" --self-test "$inputs" --precision "$precision" ||
+        fail "meander compile failed"
+    for f in "$name.hpp" "$name.cpp" "${name}_selftest.hpp" "${name}_selftest.cpp"; do
+        [ -f "$work/gen/$f" ] || fail "meander compile did not write $f"
+    done
+    sources=("$work/gen/$name.cpp" "$work/gen/${name}_selftest.cpp")
+fi
 
 # A CSV's numeric rows: '#' comments and blank lines skipped, a first line
 # with a non-numeric field taken as the header.
@@ -148,12 +161,28 @@ csv_rows() {
 }
 
 # The board driver's inputs: each CSV row as a brace list of double literals.
+# A sequence file's rows become {first, gap, observation...}: the gap is the
+# time stamp minus the previous row's of the same sequence (0 at its first row),
+# printed with 17 digits as the host computes it.
 write_inputs() {
+    if [ "$streaming" = 1 ]; then
+        awk -F, '
+            /^[ \t]*(#|$)/ { next }
+            { sub(/\r$/, ""); for (i = 1; i <= NF; ++i) gsub(/^[ \t]+|[ \t]+$/, "", $i) }
+            !seen { seen = 1; if ($2 !~ /^[-+]?([0-9]+\.?[0-9]*|\.[0-9]+)([eE][-+]?[0-9]+)?$/) next }
+            { first = ($1 != id); gap = first ? 0 : $2 - t; id = $1; t = $2
+              printf "    {%d, %.17g", first, gap; for (i = 3; i <= NF; ++i) printf ", %s", $i; print "}," }' "$inputs" \
+            > "$work/board_inputs.inc" || fail "cannot read $inputs"
+        [ -s "$work/board_inputs.inc" ] || fail "$inputs has no rows"
+        return
+    fi
     csv_rows "$inputs" | awk -F, '{ printf "    {"; for (i = 1; i <= NF; ++i) { v = $i; gsub(/[ \t]/, "", v); printf "%s%s", (i > 1 ? ", " : ""), v } print "}," }' \
         > "$work/board_inputs.inc" || fail "cannot read $inputs"
     [ -s "$work/board_inputs.inc" ] || fail "$inputs has no rows"
 }
 
+driver=board_main.cpp
+[ "$streaming" = 1 ] && driver=board_stream_main.cpp
 tol_literal=$tol
 [ "$precision" = float32 ] && tol_literal=${tol}f
 driver_defs=(-I"$work" -I"$work/gen" -DMEANDER_MODEL="$name" -DMEANDER_MODEL_HEADER="\"$name.hpp\""
@@ -171,7 +200,7 @@ compare() {
     # so differing rows are only counted.
     "$meander" eval "$mnd" --input "$inputs" --stats > /dev/null 2> "$work/eval.stats" ||
         fail "meander eval --stats failed"
-    awk -v tol="$tol" -v rows_file="$work/expected.rows" -v stats_file="$work/eval.stats" -v strict="$([ "$precision" = float64 ] && echo 1 || echo 0)" '
+    awk -v streaming="$streaming" -v tol="$tol" -v rows_file="$work/expected.rows" -v stats_file="$work/eval.stats" -v strict="$([ "$precision" = float64 ] && echo 1 || echo 0)" '
         function abs(x) { return x < 0 ? -x : x }
         BEGIN {
             n = 0
@@ -208,7 +237,7 @@ compare() {
         }
         END {
             if (seen != n) { printf "%d rows printed, expected.csv has %d\n", seen, n; ++bad }
-            if (!selftest) { print "no self-test report printed"; ++bad }
+            if (!selftest && !streaming) { print "no self-test report printed"; ++bad }
             if (k != n) { printf "meander eval --stats gave %d rows, expected.csv has %d\n", k, n; ++bad }
             printf "%d rows compared, tolerance %g (|d| <= tol * max(1, |expected|)), largest |d| %.3g, largest scaled %.3g%s\n",
                    seen, tol, max_abs, max_scaled, (max_scaled > 0 ? " at " where : "")
@@ -235,7 +264,7 @@ board() {
     local machine=$1; shift
     write_inputs
     run arm-none-eabi-g++ "${common_cross[@]}" -ffp-contract=off "$@" "${driver_defs[@]}" \
-        "$here/startup.cpp" "$here/board_main.cpp" "${sources[@]}" \
+        "$here/startup.cpp" "$here/$driver" "${sources[@]}" \
         -T "$here/mps2.ld" -nostartfiles --specs=rdimon.specs -Wl,--gc-sections -o "$work/app.elf" ||
         fail "cross build failed"
     emulate qemu-system-arm -M "$machine" -nographic -semihosting-config enable=on,target=native -kernel "$work/app.elf"
@@ -246,7 +275,7 @@ host-gcc|host-clang)
     write_inputs
     if [ "$mode" = host-gcc ]; then cxx=g++; else cxx=clang++; fi
     run "$cxx" -std=c++17 -O2 -ffp-contract=off -fno-exceptions -fno-rtti "${driver_defs[@]}" \
-        "$here/board_main.cpp" "${sources[@]}" -o "$work/app" || fail "host build failed"
+        "$here/$driver" "${sources[@]}" -o "$work/app" || fail "host build failed"
     emulate "$work/app"
     ;;
 cortex-m4f) board mps2-an386 "${m4f_flags[@]}" ;;
@@ -255,7 +284,7 @@ cortex-m7)  board mps2-an500 "${m7_flags[@]}" ;;
 arm-linux|arm-linux-f64)
     write_inputs
     run arm-linux-gnueabihf-g++ -std=c++17 -O2 -ffp-contract=off -static -fno-exceptions -fno-rtti "${driver_defs[@]}" \
-        "$here/board_main.cpp" "${sources[@]}" -o "$work/app" || fail "cross build failed"
+        "$here/$driver" "${sources[@]}" -o "$work/app" || fail "cross build failed"
     emulate qemu-arm "$work/app"
     ;;
 warnings-gcc|warnings-clang|warnings-arm)
@@ -274,6 +303,8 @@ image)
     # A minimal program: start-up without semihosting and one inference on
     # zeros, so every symbol in the image comes from the emitted model code,
     # the C++ runtime it needs, and the float maths library.
+    call="infer(ctx, in, out)"
+    [ "$streaming" = 1 ] && call="observe(ctx, in, $name::largest_gap, out)"
     cat > "$work/image_main.cpp" <<EOF
 #include "$name.hpp"
 namespace {
@@ -282,7 +313,7 @@ $name::context ctx;
 int main() {
     const $name::real in[$name::input_size] = {};
     $name::real out[$name::output_size];
-    return static_cast<int>($name::infer(ctx, in, out));
+    return static_cast<int>($name::$call);
 }
 EOF
     run arm-none-eabi-g++ "${common_cross[@]}" "${m4f_flags[@]}" -I"$work/gen" -DMEANDER_NO_SEMIHOSTING \

@@ -1,0 +1,47 @@
+// The driver for a streaming model's emitted code on a board (or under ARM
+// Linux user mode). Built by run_target.sh with
+//   MEANDER_MODEL         the model's namespace (its name in the description)
+//   MEANDER_MODEL_HEADER  "NAME.hpp"
+// and board_inputs.inc, the sample's sequence file as brace lists
+// {first row of its sequence (1/0), gap, observation...}. It resets the state
+// at each sequence's first row and prints one line per observation,
+//   row R RESULT FIELD_EVALS STEPS_TAKEN STEPS_REJECTED Y0 Y1 ...
+#include <cstdio>
+
+#include MEANDER_MODEL_HEADER
+
+namespace model = MEANDER_MODEL;
+
+namespace {
+
+// Gaps and observations exactly as the host tools compute and read them,
+// rounded to `real` once.
+const double kRows[][2 + model::input_size] = {
+#include "board_inputs.inc"
+};
+constexpr unsigned kCount = sizeof kRows / sizeof kRows[0];
+
+constexpr int kDigits = sizeof(model::real) == 4 ? 9 : 17;
+
+model::context ctx;
+
+}  // namespace
+
+int main() {
+    model::real in[model::input_size];
+    model::real out[model::output_size];
+    for (unsigned r = 0; r < kCount; ++r) {
+        if (kRows[r][0] > 0.5) model::reset(ctx);
+        for (unsigned i = 0; i < model::input_size; ++i) in[i] = static_cast<model::real>(kRows[r][2 + i]);
+        const model::result res = model::observe(ctx, in, static_cast<model::real>(kRows[r][1]), out);
+        std::printf("row %u %s %lu %lu %lu", r, model::result_name(res),
+                    static_cast<unsigned long>(ctx.count.field_evals),
+                    static_cast<unsigned long>(ctx.count.steps_taken),
+                    static_cast<unsigned long>(ctx.count.steps_rejected));
+        if (res == model::result::ok)
+            for (unsigned i = 0; i < model::output_size; ++i) std::printf(" %.*g", kDigits, static_cast<double>(out[i]));
+        std::printf("\n");
+    }
+    std::fflush(stdout);
+    return 0;
+}
