@@ -25,4 +25,10 @@ struct EmittedFile {
 
 std::vector<EmittedFile> emit_model(const Model& model, const EmitOptions& opts);
 
+// A streaming model (compiler/emit/stream.cpp): NAME.hpp and NAME.cpp with a context that
+// holds the state, reset(ctx) and observe(ctx, input, gap, output). Emittable when
+// stream_emit_unsupported gives an empty text (else it says why not).
+std::string stream_emit_unsupported(const Model& model);
+std::vector<EmittedFile> emit_stream(const Model& model, const EmitOptions& opts);
+
 }  // namespace meander

@@ -15,7 +15,6 @@
 #include "compiler/diff.hpp"
 #include "compiler/dump.hpp"
 #include "compiler/emit.hpp"
-#include "compiler/emit_stream.hpp"
 #include "compiler/format.hpp"
 #include "compiler/labels.hpp"
 #include "compiler/load.hpp"

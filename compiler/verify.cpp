@@ -9,7 +9,6 @@
 #include <sstream>
 
 #include "../runtime/evaluate.hpp"
-#include "emit_stream.hpp"
 
 namespace meander {
 

@@ -1,15 +1,19 @@
-#include "emit_stream.hpp"
-
+// Emit for streaming models: NAME.hpp and NAME.cpp with a context that holds
+// the state, reset(ctx) and observe(ctx, input, gap, output). The evolution
+// is a fixed-step continuous block (its step count from the gap at run time)
+// or a blend; the update a gated (GRU) or merge layer; the field, backbone and
+// readout dense layers. DEVELOPERS.md "Streaming emitted API" lists the contract.
 #include <fmt/format.h>
 
 #include <algorithm>
 #include <cmath>
 
-#include "../runtime/stream.hpp"
-#include "../runtime/tableau.hpp"
-#include "format.hpp"
-#include "selftest.hpp"  // emit_detail: literals, macro prefix, array rows (shared with the plain emitter)
-#include "source.hpp"
+#include "../../runtime/stream.hpp"
+#include "../../runtime/tableau.hpp"
+#include "../emit.hpp"
+#include "../format.hpp"
+#include "../selftest.hpp"  // emit_detail: literals, macro prefix, array rows (shared with the plain emitter)
+#include "../source.hpp"
 
 namespace meander {
 
