@@ -371,9 +371,6 @@ int cmd_tune(const std::string& model_path, const std::string& input, const std:
     Diagnostics diags;
     Precision p = precision_of(precision);
     TuneOptions to;
-    if (!labels_path.empty() && !(to.labels = read_labels(labels_path, in->loaded.model, in->rows.size(), diags)))
-        return flush(diags), kModelError;
-    to.classification = is_classifier(in->loaded.model);
     to.metric_slack = metric_slack;
     to.target = target;
     to.methods = methods;
@@ -396,6 +393,9 @@ int cmd_tune(const std::string& model_path, const std::string& input, const std:
     }
     auto in = load_with_rows(model_path, p, input, diags, "tune");
     if (!in) return flush(diags), kModelError;
+    if (!labels_path.empty() && !(to.labels = read_labels(labels_path, in->loaded.model, in->rows.size(), diags)))
+        return flush(diags), kModelError;
+    to.classification = is_classifier(in->loaded.model);
     to.inputs = in->rows;
     auto rep = tune_model(in->loaded.model, to, diags);
     if (rep && !plot_path.empty() && !write_file_atomic(plot_path, render_tune_svg(*rep), diags)) rep.reset();
