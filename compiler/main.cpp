@@ -260,9 +260,9 @@ int cmd_compile(const std::string& model_path, const std::string& outdir, const 
     std::error_code ec;
     // The folders this compile creates, deepest last: a failed write removes them again.
     std::vector<fs::path> created;
-    for (fs::path p = fs::path(outdir).lexically_normal(); !p.empty() && !fs::exists(p, ec); p = p.parent_path()) {
-        created.insert(created.begin(), p);
-        if (p == p.parent_path()) break;
+    for (fs::path dir = fs::path(outdir).lexically_normal(); !dir.empty() && !fs::exists(dir, ec); dir = dir.parent_path()) {
+        created.insert(created.begin(), dir);
+        if (dir == dir.parent_path()) break;
     }
     fs::create_directories(outdir, ec);
     if (ec) {

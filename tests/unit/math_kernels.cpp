@@ -234,6 +234,10 @@ TEST(MathKernels, SpecialValues) {
     EXPECT_EQ(k::act_softplus(-inf), 0.0f);
     EXPECT_TRUE(std::isnan(k::act_softplus(std::nanf(""))));
     EXPECT_EQ(k::act_silu(inf), inf);
+    // x * e^x -> -0 as x -> -inf (exact limit); the exhaustive run once found NaN here.
+    EXPECT_EQ(k::act_silu(-inf), 0.0f);
+    EXPECT_TRUE(std::signbit(k::act_silu(-inf)));
+    EXPECT_TRUE(std::signbit(k::act_silu(-200.0f)));
     EXPECT_EQ(k::act_gelu(inf), inf);
     EXPECT_EQ(k::act_gelu(-inf), 0.0f);
     EXPECT_TRUE(std::isnan(k::act_gelu(std::nanf(""))));
