@@ -264,7 +264,7 @@ const ReadCase read_cases[] = {
      },
      "DIR/w/b.npy: error: unsupported dtype '<i8': meander reads float32 ('<f4', '>f4') and float64 ('<f8', '>f8')\n"},
     {"unknown_extension", [](const fs::path& d) { return file(d, "w.h5", "HDF"); },
-     "DIR/w.h5: error: unknown weights format '.h5': expected .npz, .npy, .mnw or a folder of .npy files\n"},
+     "DIR/w.h5: error: unknown weights format '.h5': expected .npz, .npy, .mnw, .pt, .pth, .safetensors or a folder of .npy files\n"},
     {"missing_file", [](const fs::path& d) { return d / "absent.npz"; },
      "DIR/absent.npz: error: cannot read file: No such file or directory\n"},
 

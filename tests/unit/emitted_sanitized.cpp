@@ -8,21 +8,34 @@
 #include <gtest/gtest.h>
 
 #include <filesystem>
+#include <fstream>
 #include <string>
 #include <vector>
 
 #include "test_support.hpp"
 
+
 namespace fs = std::filesystem;
 
 namespace {
+
+// Streaming models (a `state` statement) have observe(), not infer(): this
+// driver does not cover them yet.
+bool is_streaming(const fs::path& mnd) {
+    std::ifstream in(mnd);
+    for (std::string line; std::getline(in, line);) {
+        const auto start = line.find_first_not_of(" \t");
+        if (start != std::string::npos && line.compare(start, 6, "state ") == 0) return true;
+    }
+    return false;
+}
 
 std::vector<fs::path> samples() {
     std::vector<fs::path> out;
     for (const auto& dir : fs::directory_iterator(fs::path(MEANDER_SOURCE_DIR) / "samples"))
         if (dir.is_directory())
             for (const auto& f : fs::directory_iterator(dir.path()))
-                if (f.path().extension() == ".mnd") out.push_back(f.path());
+                if (f.path().extension() == ".mnd" && !is_streaming(f.path())) out.push_back(f.path());
     std::sort(out.begin(), out.end());
     return out;
 }
