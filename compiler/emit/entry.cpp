@@ -79,19 +79,18 @@ std::string render_infer(const Emission& e) {
 }
 
 
-std::string render_result_name() {
-    return R"(const char* result_name(result r) noexcept {
+std::string render_result_name(bool streaming) {
+    std::string o = R"(const char* result_name(result r) noexcept {
     switch (r) {
     case result::ok: return "ok";
     case result::input_not_finite: return "input_not_finite";
     case result::state_not_finite: return "state_not_finite";
     case result::step_limit: return "step_limit";
     case result::step_too_small: return "step_too_small";
-    }
-    return "unknown";
-}
-
 )";
+    if (streaming) o += "    case result::gap_out_of_range: return \"gap_out_of_range\";\n";
+    o += "    }\n    return \"unknown\";\n}\n\n";
+    return o;
 }
 
 std::string render_build_check(const Emission& e) {

@@ -63,7 +63,8 @@ bool chain_uses_work(const Chain& c);
 void render_chain(const Emission& e, std::string& o, const Chain& c, const std::string& in, const std::string& out,
                   const std::string& pad, bool top);
 std::string render_infer(const Emission& e);
-std::string render_result_name();
+// `streaming`: with the gap_out_of_range case of streaming models.
+std::string render_result_name(bool streaming = false);
 std::string render_build_check(const Emission& e);
 std::string render_c_entry(const Emission& e);
 

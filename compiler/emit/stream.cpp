@@ -14,6 +14,7 @@
 #include "../format.hpp"
 #include "../selftest.hpp"  // emit_detail: literals, macro prefix, array rows (shared with the plain emitter)
 #include "../source.hpp"
+#include "render.hpp"
 
 namespace meander {
 
@@ -413,19 +414,7 @@ const char* result_name(result r) noexcept;
         if (m_.blocks.empty()) o += "    for (std::size_t i = 0; i < output_size; ++i) output[i] = h[i];\n";
         o += "    for (std::size_t i = 0; i < state_size; ++i) ctx.state[i] = h[i];\n";
         o += "    return result::ok;\n}\n\n";
-        o += R"(const char* result_name(result r) noexcept {
-    switch (r) {
-    case result::ok: return "ok";
-    case result::input_not_finite: return "input_not_finite";
-    case result::state_not_finite: return "state_not_finite";
-    case result::step_limit: return "step_limit";
-    case result::step_too_small: return "step_too_small";
-    case result::gap_out_of_range: return "gap_out_of_range";
-    }
-    return "unknown";
-}
-
-)";
+        o += emit_detail::render_result_name(true);
         return o;
     }
 
