@@ -367,10 +367,12 @@ int cmd_cost(const std::string& model_path, const std::string& input, const std:
 
 int cmd_tune(const std::string& model_path, const std::string& input, const std::string& precision, double target,
              const std::vector<std::string>& methods, int sweep, bool json, const std::string& labels_path,
-             std::optional<double> metric_slack, const std::string& plot_path) {
+             std::optional<double> metric_slack, const std::string& plot_path, bool whole_sweep, int threads) {
     Diagnostics diags;
     Precision p = precision_of(precision);
     TuneOptions to;
+    to.whole_sweep = whole_sweep;
+    to.threads = threads;
     to.metric_slack = metric_slack;
     to.target = target;
     to.methods = methods;
@@ -397,7 +399,16 @@ int cmd_tune(const std::string& model_path, const std::string& input, const std:
         return flush(diags), kModelError;
     to.classification = is_classifier(in->loaded.model);
     to.inputs = in->rows;
+    // On a terminal, a line that says where a long run is (stderr; the report stays on stdout).
+    const bool tty = isatty(fileno(stderr)) != 0;
+    if (tty)
+        to.progress = [](const TuneProgress& g) {
+            std::fprintf(stderr, "\rtune: block %s (%d of %d): candidate %d of at most %d, %.0f s   ", g.block.c_str(),
+                         g.block_index, g.blocks, g.done, g.planned, g.seconds);
+            std::fflush(stderr);
+        };
     auto rep = tune_model(in->loaded.model, to, diags);
+    if (tty) std::fputs("\n", stderr);
     if (rep && !plot_path.empty() && !write_file_atomic(plot_path, render_tune_svg(*rep), diags)) rep.reset();
     flush(diags);
     if (!rep) return kModelError;
@@ -621,6 +632,12 @@ int main(int argc, char** argv) {
         ->check(CLI::IsMember(method_keys));
     tune->add_option("--max-steps-sweep", sweep, "largest fixed step count tried (default 256)")
         ->check(kFinitePositive);
+    bool whole_sweep = false;
+    tune->add_flag("--whole-sweep", whole_sweep,
+                   "try every step count up to --max-steps-sweep, not just two past the first that meets the target");
+    int tune_threads = 0;
+    tune->add_option("--threads", tune_threads, "threads (default: every core; the report does not depend on it)")
+        ->check(CLI::NonNegativeNumber);
     tune->add_option("--precision", precision, "float32 (default) or float64")->check(CLI::IsMember(precisions));
     tune->add_flag("--json", json, "JSON for tools instead of text");
     std::string plot_path;
@@ -700,7 +717,8 @@ int main(int argc, char** argv) {
         if (*cost) return cmd_cost(model, input, precision, core, cycles_per_mac, json);
         if (*tune)
             return cmd_tune(model, input, precision, target, methods, sweep, json, labels_path,
-                            slack_opt->count() ? std::optional<double>(metric_slack) : std::nullopt, plot_path);
+                            slack_opt->count() ? std::optional<double>(metric_slack) : std::nullopt, plot_path,
+                            whole_sweep, tune_threads);
         if (*refit) return cmd_refit(model, input, refit_out, ra);
         if (*diff) return cmd_diff(model, other, weight_tol, json);
         if (*format) return cmd_format(model, in_place, check_only);

@@ -12,6 +12,7 @@
 #include "../runtime/parameters.hpp"
 #include "../runtime/tableau.hpp"
 #include "format.hpp"
+#include "parallel.hpp"
 
 namespace meander {
 
@@ -42,23 +43,6 @@ long model_worst_evals(const Model& m) {
     for (const Block& b : m.blocks)
         if (b.kind == Block::Kind::continuous) n += worst_field_evals(b.continuous.solver);
     return n;
-}
-
-// Runs fn(i) for i in [0, n) on `threads` threads, i spread round-robin;
-// each fn writes only its own slot, so the order of work cannot change a result.
-template <class F>
-void parallel_for(std::size_t n, int threads, F&& fn) {
-    const std::size_t t = std::max<std::size_t>(1, std::min<std::size_t>(static_cast<std::size_t>(threads), n));
-    if (t <= 1) {
-        for (std::size_t i = 0; i < n; ++i) fn(i);
-        return;
-    }
-    std::vector<std::thread> pool;
-    for (std::size_t k = 0; k < t; ++k)
-        pool.emplace_back([&, k] {
-            for (std::size_t i = k; i < n; i += t) fn(i);
-        });
-    for (auto& th : pool) th.join();
 }
 
 struct RowLoss {
@@ -200,7 +184,7 @@ RefitFigures model_figures(const Model& model, const std::vector<Eigen::VectorXd
     f.worst_field_evals = model_worst_evals(model);
     std::vector<Eigen::VectorXd> outs(rows.size());
     std::vector<EvalResult> res(rows.size());
-    parallel_for(rows.size(), static_cast<int>(std::max(1u, std::thread::hardware_concurrency())),
+    parallel_for(rows.size(), all_cores(),
                  [&](std::size_t i) { res[i] = evaluate(model, rows[i]); });
     for (std::size_t r = 0; r < rows.size(); ++r) {
         if (res[r].status != EvalStatus::ok) {
@@ -236,7 +220,7 @@ std::optional<RefitReport> refit_model(const Model& model, const RefitOptions& o
     const Model reference = with_every_solver(model, tight_reference());
     std::vector<Eigen::VectorXd> refs(rows.size());
     std::vector<EvalStatus> ref_status(rows.size());
-    parallel_for(rows.size(), static_cast<int>(std::max(1u, std::thread::hardware_concurrency())), [&](std::size_t i) {
+    parallel_for(rows.size(), all_cores(), [&](std::size_t i) {
         const EvalResult r = evaluate(reference, rows[i]);
         ref_status[i] = r.status;
         refs[i] = r.output;
@@ -257,7 +241,7 @@ std::optional<RefitReport> refit_model(const Model& model, const RefitOptions& o
             check_rows.push_back(Eigen::Map<const Eigen::VectorXd>(r.data(), static_cast<Eigen::Index>(r.size())));
         check_refs.assign(check_rows.size(), Eigen::VectorXd());
         std::vector<EvalStatus> st(check_rows.size());
-        parallel_for(check_rows.size(), static_cast<int>(std::max(1u, std::thread::hardware_concurrency())),
+        parallel_for(check_rows.size(), all_cores(),
                      [&](std::size_t i) {
                          const EvalResult r = evaluate(reference, check_rows[i]);
                          st[i] = r.status;
@@ -280,7 +264,7 @@ std::optional<RefitReport> refit_model(const Model& model, const RefitOptions& o
     p.targets = &targets;
     p.classification = opts.classification;
     p.way = opts.way;
-    p.threads = opts.threads > 0 ? opts.threads : static_cast<int>(std::max(1u, std::thread::hardware_concurrency()));
+    p.threads = opts.threads > 0 ? opts.threads : all_cores();
 
     // Split: a seeded Fisher-Yates shuffle (the same on every platform), the last part held out.
     std::mt19937_64 rng(opts.seed);

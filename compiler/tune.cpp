@@ -3,6 +3,7 @@
 #include <fmt/format.h>
 
 #include <algorithm>
+#include <chrono>
 #include <cfloat>
 #include <cmath>
 #include <iterator>
@@ -12,6 +13,7 @@
 #include "../runtime/integrate.hpp"
 #include "../runtime/tableau.hpp"
 #include "format.hpp"
+#include "parallel.hpp"
 
 namespace meander {
 
@@ -121,14 +123,21 @@ Run run_block(const Split& sp, const Eigen::VectorXd& x, const SolverSpec& spec)
     return r;
 }
 
+int threads_of(const TuneOptions& opts) { return opts.threads > 0 ? opts.threads : all_cores(); }
+
 // Runs `spec` on every row and fills the candidate's deviation and counts.
+// The rows run on threads; the reduction walks them in row order, so the
+// candidate is the same whatever the thread count (the first failing row wins).
 void measure(const Split& sp, const std::vector<Eigen::VectorXd>& block_inputs,
              const std::vector<Eigen::VectorXd>& refs, const TuneOptions& opts, TuneCandidate& cand) {
     cand.ok = true;
     cand.deviation = 0.0;
+    std::vector<Run> runs(block_inputs.size());
+    parallel_for(block_inputs.size(), threads_of(opts),
+                 [&](std::size_t row) { runs[row] = run_block(sp, block_inputs[row], cand.spec); });
     std::vector<Eigen::VectorXd> outputs;
-    for (std::size_t row = 0; row < block_inputs.size(); ++row) {
-        const Run r = run_block(sp, block_inputs[row], cand.spec);
+    for (std::size_t row = 0; row < runs.size(); ++row) {
+        const Run& r = runs[row];
         cand.measured_field_evals = std::max(cand.measured_field_evals, r.stats.field_evals);
         cand.max_attempts = std::max(cand.max_attempts, r.stats.steps_taken + r.stats.steps_rejected);
         if (r.status != EvalStatus::ok) {
@@ -262,18 +271,46 @@ bool check_options(const Model& model, const TuneOptions& opts, Diagnostics& dia
 
 // Tunes block `index`; false (with a diagnostic) when the rows cannot reach
 // the block or the reference fails.
+// Where tune_block reports progress: which block of how many, and the clock.
+struct ProgressClock {
+    int block_index = 0;
+    int blocks = 0;
+    std::chrono::steady_clock::time_point start;
+};
+
+// How many candidates a block's sweep tries at most.
+int planned_candidates(const std::vector<std::string>& methods, const TuneOptions& opts, double floor) {
+    int n = 0;
+    for (std::size_t mi = 0; mi < methods.size(); ++mi) {
+        const Tableau* tb = find_tableau(methods[mi]);
+        if (tb == nullptr || std::find(methods.begin(), methods.begin() + static_cast<std::ptrdiff_t>(mi), methods[mi]) !=
+                                 methods.begin() + static_cast<std::ptrdiff_t>(mi))
+            continue;
+        if (!tb->adaptive())
+            n += static_cast<int>(step_grid(opts.max_steps_sweep).size());
+        else
+            for (double r : kRtolDecades) n += r >= floor ? 1 : 0;
+    }
+    return n;
+}
+
+// Tunes block `index`; false (with a diagnostic) when the rows cannot reach
+// the block or the reference fails.
 bool tune_block(const Model& model, std::size_t index, const TuneOptions& opts, const std::vector<Eigen::VectorXd>& rows,
-                double floor, TuneBlock& out, Diagnostics& diags) {
+                double floor, const ProgressClock& clock, TuneBlock& out, Diagnostics& diags) {
     const Split sp = split_at(model, index);
     const Continuous& c = *sp.block;
     out.name = c.name;
     out.state = c.state();
     out.field_macs = field_macs(c);
     out.trained = c.trained;
+    const int threads = threads_of(opts);
 
+    std::vector<EvalResult> befores(rows.size());
+    parallel_for(rows.size(), threads, [&](std::size_t r) { befores[r] = evaluate(sp.before, rows[r]); });
     std::vector<Eigen::VectorXd> xs;
     for (std::size_t r = 0; r < rows.size(); ++r) {
-        EvalResult before = evaluate(sp.before, rows[r]);
+        const EvalResult& before = befores[r];
         if (before.status != EvalStatus::ok) {
             diags.error(kWhere, fmt::format("input row {}: block {} (before {}) ends with {} under its deployed solver",
                                             r + 1, before.block, c.name, eval_status_name(before.status)));
@@ -281,15 +318,18 @@ bool tune_block(const Model& model, std::size_t index, const TuneOptions& opts, 
         }
         xs.push_back(before.output);
     }
+    befores.clear();
 
     out.reference.method = "dormand-prince";
     out.reference.rtol = kReferenceTol;
     out.reference.atol = kReferenceTol;
     out.reference.max_steps = kReferenceMaxSteps;
     out.reference.written = {"rtol", "atol", "max-steps"};
+    std::vector<Run> ref_runs(xs.size());
+    parallel_for(xs.size(), threads, [&](std::size_t r) { ref_runs[r] = run_block(sp, xs[r], out.reference); });
     std::vector<Eigen::VectorXd> refs;
     for (std::size_t r = 0; r < xs.size(); ++r) {
-        const Run run = run_block(sp, xs[r], out.reference);
+        const Run& run = ref_runs[r];
         if (run.status != EvalStatus::ok) {
             diags.error(kWhere, fmt::format("input row {}: the reference for block {} (solver {}) ends with {} in block {}",
                                             r + 1, c.name, format_solver(out.reference),
@@ -299,6 +339,7 @@ bool tune_block(const Model& model, std::size_t index, const TuneOptions& opts, 
         out.reference_field_evals = std::max(out.reference_field_evals, run.stats.field_evals);
         refs.push_back(run.output);
     }
+    ref_runs.clear();
 
     out.deployed.spec = c.solver;
     const Tableau* own = find_tableau(c.solver.method);
@@ -308,6 +349,17 @@ bool tune_block(const Model& model, std::size_t index, const TuneOptions& opts, 
 
     std::vector<std::string> methods = opts.methods;
     if (methods.empty()) methods.push_back(c.solver.method);
+    TuneProgress progress;
+    progress.block = c.name;
+    progress.block_index = clock.block_index;
+    progress.blocks = clock.blocks;
+    progress.planned = planned_candidates(methods, opts, floor);
+    const auto report_progress = [&] {
+        if (!opts.progress) return;
+        progress.done += 1;
+        progress.seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - clock.start).count();
+        opts.progress(progress);
+    };
     for (std::size_t mi = 0; mi < methods.size(); ++mi) {
         const std::string& m = methods[mi];
         const Tableau* tb = find_tableau(m);
@@ -315,13 +367,27 @@ bool tune_block(const Model& model, std::size_t index, const TuneOptions& opts, 
         if (std::find(methods.begin(), methods.begin() + static_cast<std::ptrdiff_t>(mi), m) != methods.begin() + static_cast<std::ptrdiff_t>(mi))
             continue;  // named twice: sweep it once
         if (!tb->adaptive()) {
-            for (int n : step_grid(opts.max_steps_sweep))
+            // The cost grows with N, so the first N that meets is this method's
+            // cheapest; two more points show the trend, the rest cannot be chosen.
+            std::optional<int> first_meeting;
+            int past = 0;
+            const std::vector<int> grid = step_grid(opts.max_steps_sweep);
+            for (int n : grid) {
                 out.candidates.push_back(fixed_candidate(sp, xs, refs, m, n, out.field_macs, opts, out.deployed));
+                report_progress();
+                if (first_meeting) ++past;
+                if (!first_meeting && out.candidates.back().meets) first_meeting = n;
+                if (!opts.whole_sweep && first_meeting && past == 2 && n != grid.back()) {
+                    out.stopped.push_back(SweepStop{m, *first_meeting, n});
+                    break;
+                }
+            }
         } else {
             for (std::size_t d = 0; d < std::size(kRtolDecades); ++d) {
                 if (kRtolDecades[d] < floor) break;
                 out.candidates.push_back(
                     adaptive_candidate(sp, xs, refs, m, kRtolDecades[d], kAtolDecades[d], out.field_macs, opts, out.deployed));
+                report_progress();
             }
         }
     }
@@ -462,10 +528,14 @@ std::optional<TuneReport> tune_model(const Model& model, const TuneOptions& opts
     std::vector<Eigen::VectorXd> rows;
     for (const auto& r : opts.inputs) rows.push_back(Eigen::Map<const Eigen::VectorXd>(r.data(), static_cast<Eigen::Index>(r.size())));
 
+    ProgressClock clock;
+    clock.start = std::chrono::steady_clock::now();
+    for (const Block& b : model.blocks) clock.blocks += b.kind == Block::Kind::continuous ? 1 : 0;
     for (std::size_t i = 0; i < model.blocks.size(); ++i) {
         if (model.blocks[i].kind != Block::Kind::continuous) continue;
         TuneBlock b;
-        if (!tune_block(model, i, opts, rows, report.rtol_floor, b, diags)) return std::nullopt;
+        clock.block_index += 1;
+        if (!tune_block(model, i, opts, rows, report.rtol_floor, clock, b, diags)) return std::nullopt;
         report.blocks.push_back(std::move(b));
     }
     return report;
@@ -537,6 +607,10 @@ std::string render_tune_text(const TuneReport& r) {
         } else {
             out += fmt::format("  no candidate meets the target {}: every one fails on some row\n", format_double(r.target));
         }
+        for (const SweepStop& st : b.stopped)
+            out += fmt::format("  note: the {} sweep stopped at {} steps: {} steps already meet the target and more steps "
+                               "cost more (--whole-sweep tries every count up to the sweep's end)\n",
+                               st.method, st.last_tried, st.first_meeting);
         for (const std::string& w : b.warnings) out += "  warning: " + w + "\n";
     }
     return out;
@@ -566,6 +640,10 @@ std::string render_tune_json(const TuneReport& r) {
         jb["chosen"] = b.chosen ? nlohmann::json(*b.chosen) : nlohmann::json(nullptr);
         jb["solver_line"] = b.chosen ? nlohmann::json(b.solver_line) : nlohmann::json(nullptr);
         jb["warnings"] = b.warnings;
+        jb["sweeps_stopped"] = nlohmann::json::array();
+        for (const SweepStop& st : b.stopped)
+            jb["sweeps_stopped"].push_back({{"method", st.method}, {"first_meeting_steps", st.first_meeting},
+                                            {"last_steps_tried", st.last_tried}});
         j["blocks"].push_back(jb);
     }
     return j.dump(2) + "\n";

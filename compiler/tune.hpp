@@ -6,6 +6,7 @@
 // cheapest candidate that meets the target.
 #pragma once
 
+#include <functional>
 #include <optional>
 #include <string>
 #include <vector>
@@ -15,6 +16,16 @@
 #include "source.hpp"
 
 namespace meander {
+
+// Where tune is, for a progress line on long runs.
+struct TuneProgress {
+    std::string block;
+    int block_index = 0;            // 1-based, of `blocks`
+    int blocks = 0;                 // continuous blocks in the model
+    int done = 0;                   // candidates of this block measured so far
+    int planned = 0;                // at most this many (a stopped sweep needs fewer)
+    double seconds = 0.0;           // since tune_model started
+};
 
 struct TuneOptions {
     // Largest allowed deviation of a model output from the reference, as
@@ -34,6 +45,21 @@ struct TuneOptions {
     // by more than this fraction" (score <= deployed score * (1 + slack))
     // instead of by deviation.
     std::optional<double> metric_slack;
+    // A fixed-step method's sweep stops two grid points after the first step
+    // count that meets the target: larger counts cost more and cannot be
+    // chosen. true: try every count up to max_steps_sweep (for the plot).
+    bool whole_sweep = false;
+    // Threads for the rows (0: every core). The report does not depend on it.
+    int threads = 0;
+    // Called after each candidate (and the reference) of each block, from the calling thread.
+    std::function<void(const TuneProgress&)> progress;
+};
+
+// Where a fixed-step sweep stopped early (TuneOptions::whole_sweep false).
+struct SweepStop {
+    std::string method;
+    int first_meeting = 0;          // the smallest step count that meets the target
+    int last_tried = 0;             // the largest step count tried
 };
 
 // One solver budget tried on every input row.
@@ -68,6 +94,7 @@ struct TuneBlock {
     std::optional<std::size_t> closest;     // index of the smallest deviation (when none meets)
     std::string solver_line;        // "solver rk4, steps 6" for the description (when chosen)
     std::vector<std::string> warnings;
+    std::vector<SweepStop> stopped;         // fixed-step sweeps cut short, in method order
 };
 
 struct TuneReport {

@@ -12,6 +12,7 @@
 
 #include <unsupported/Eigen/MatrixFunctions>
 
+#include <algorithm>
 #include <cfloat>
 #include <cmath>
 #include <cstdio>
@@ -79,6 +80,8 @@ TuneOptions options(double target, std::vector<std::vector<double>> inputs, Prec
     o.target = target;
     o.precision = p;
     o.inputs = std::move(inputs);
+    o.whole_sweep = true;  // most tests check every grid point against a closed form
+    o.threads = 1;
     return o;
 }
 
@@ -611,4 +614,86 @@ TEST(TuneSample, RecommendedLinePastesIntoTheDescription) {
 }
 
 }  // namespace
+
+// ---- a stopped sweep and threads ------------------------------------------
+
+TEST(TuneFixed, StoppedSweepChoosesWhatTheClosedFormChooses) {
+    // y' = a y with rk4: the deviation of N steps is |R(aT/N)^N - e^(aT)| |h0| (HNW I, IV.2),
+    // so the cheapest N that meets each target is known without tune.
+    const double a = -2.0;
+    const std::vector<std::vector<double>> rows = {{1.0}, {-2.5}};
+    for (double target : {1e-2, 1e-4, 1e-6, 1e-8}) {
+        SCOPED_TRACE(target);
+        int want = 0;
+        for (int n : kGrid)
+            if (scalar_deviation("rk4", a, 1.0, n, rows) <= target) {
+                want = n;
+                break;
+            }
+        ASSERT_GT(want, 0);
+        TuneOptions o = options(target, rows);
+        o.whole_sweep = false;
+        Diagnostics diags;
+        const auto rep = tune_model(scalar_model(a, 0.0, 1.0, fixed("rk4", 8)), o, diags);
+        ASSERT_TRUE(rep) << diags.render();
+        const TuneBlock& b = rep->blocks[0];
+        ASSERT_TRUE(b.chosen);
+        EXPECT_EQ(b.candidates[*b.chosen].spec.steps, want);
+        // Two grid points past the first that meets, then the sweep stops and says so.
+        const auto at = std::find(kGrid.begin(), kGrid.end(), want) - kGrid.begin();
+        const std::size_t tried = std::min<std::size_t>(static_cast<std::size_t>(at) + 3, kGrid.size());
+        ASSERT_EQ(b.candidates.size(), tried);
+        for (std::size_t i = 0; i < tried; ++i) EXPECT_EQ(b.candidates[i].spec.steps, kGrid[i]);
+        if (tried < kGrid.size()) {
+            ASSERT_EQ(b.stopped.size(), 1u);
+            EXPECT_EQ(b.stopped[0].first_meeting, want);
+            EXPECT_EQ(b.stopped[0].last_tried, kGrid[tried - 1]);
+            EXPECT_NE(render_tune_text(*rep).find("the rk4 sweep stopped at"), std::string::npos);
+        }
+    }
+}
+
+TEST(TuneFixed, MethodThatNeverMeetsIsSweptToTheEnd) {
+    // Euler at 1e-8 on y' = -2y needs far more than 256 steps (error ~ 1/N): nothing to stop on.
+    TuneOptions o = options(1e-8, {{1.0}});
+    o.whole_sweep = false;
+    o.methods = {"euler", "rk4"};
+    Diagnostics diags;
+    const auto rep = tune_model(scalar_model(-2.0, 0.0, 1.0, fixed("rk4", 8)), o, diags);
+    ASSERT_TRUE(rep) << diags.render();
+    const TuneBlock& b = rep->blocks[0];
+    const auto euler = std::count_if(b.candidates.begin(), b.candidates.end(),
+                                     [](const TuneCandidate& k) { return k.spec.method == "euler"; });
+    EXPECT_EQ(static_cast<std::size_t>(euler), kGrid.size());
+    ASSERT_EQ(b.stopped.size(), 1u);
+    EXPECT_EQ(b.stopped[0].method, "rk4");
+}
+
+TEST(TuneSample, ThreadCountDoesNotChangeTheReport) {
+    // Rows run on threads and are reduced in row order: the same report, byte for byte.
+    for (const char* name : {"fan_balance", "boiler_ahead"}) {
+        SCOPED_TRACE(name);
+        Diagnostics diags;
+        auto sample = load_sample(name, diags);
+        ASSERT_TRUE(sample) << diags.render();
+        std::string first;
+        for (int threads : {1, 2, 5}) {
+            TuneOptions o = options(1e-4, sample->rows, Precision::float32);
+            o.whole_sweep = false;
+            o.threads = threads;
+            int calls = 0;
+            o.progress = [&calls](const TuneProgress& g) {
+                ++calls;
+                EXPECT_LE(g.done, g.planned);
+            };
+            const auto rep = tune_model(sample->model, o, diags);
+            ASSERT_TRUE(rep) << diags.render();
+            EXPECT_EQ(static_cast<std::size_t>(calls), rep->blocks[0].candidates.size());
+            const std::string j = render_tune_json(*rep);
+            if (first.empty()) first = j;
+            EXPECT_EQ(j, first) << "threads " << threads;
+        }
+    }
+}
+
 }  // namespace meander
