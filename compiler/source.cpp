@@ -185,9 +185,26 @@ std::optional<std::string> read_file(const std::string& path, Diagnostics& diags
     return ss.str();
 }
 
+std::string normalise_line_endings(std::string_view text) {
+    std::string out;
+    out.reserve(text.size());
+    for (std::size_t i = 0; i < text.size(); ++i) {
+        if (text[i] != '\r') {
+            out += text[i];
+            continue;
+        }
+        out += '\n';
+        if (i + 1 < text.size() && text[i + 1] == '\n') ++i;
+    }
+    return out;
+}
+
 std::optional<Source> load_source(const std::string& path, Diagnostics& diags) {
     auto text = read_file(path, diags);
     if (!text) return std::nullopt;
+    // A CR only ever ends a line here: CRLF and lone CR read as LF. Columns stay
+    // right (the CR stood at the end of its line) and so do line numbers.
+    if (text->find('\r') != std::string::npos) *text = normalise_line_endings(*text);
     // Some editors start UTF-8 files with a byte-order mark; blanking it keeps
     // every byte offset, so columns stay right.
     if (text->compare(0, 3, "\xEF\xBB\xBF") == 0) text->replace(0, 3, "   ");

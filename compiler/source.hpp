@@ -82,6 +82,12 @@ private:
 
 // Reads a whole file; reports "path: error: cannot read file: <reason>" on failure.
 std::optional<std::string> read_file(const std::string& path, Diagnostics& diags);
+// `text` with every line ending written as LF: CRLF (Windows) and a lone CR (old
+// Mac OS) become LF, so one description checked out on two systems is the same text.
+std::string normalise_line_endings(std::string_view text);
+// A description read for parsing: line endings normalised (so the content hash,
+// the emitted files and diagnostics do not depend on them) and a UTF-8
+// byte-order mark blanked.
 std::optional<Source> load_source(const std::string& path, Diagnostics& diags);
 
 // Writes `content` to a new temporary file beside `path` (a unique name made

@@ -128,7 +128,12 @@ std::optional<TensorSet> read_weights(const std::string& path, Diagnostics& diag
 
 std::optional<std::string> weights_bytes(const std::string& path, Diagnostics& diags) {
     std::error_code ec;
-    if (!fs::is_directory(path, ec)) return read_file(path, diags);
+    if (!fs::is_directory(path, ec)) {
+        auto bytes = read_file(path, diags);
+        // A weight listing is text: a checkout with CRLF line endings holds the same weights.
+        if (bytes && lower(fs::path(path).extension().string()) == ".mnw") *bytes = normalise_line_endings(*bytes);
+        return bytes;
+    }
     auto names = npy_files_in(path, diags);
     if (!names) return std::nullopt;
     // Name and length before each file's bytes, so no two folders hash alike.
