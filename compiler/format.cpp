@@ -87,7 +87,7 @@ namespace {
 namespace pegtl = tao::pegtl;
 namespace g = grammar;
 
-enum class Kind { model, weights, input, output, dense, augment, solver, trained, header, close, state, gated, merge };
+enum class Kind { model, weights, ignore, input, output, dense, augment, numbered, layout, solver, trained, header, close, state, gated, merge };
 
 struct Record {
     Kind kind;
@@ -116,6 +116,9 @@ template <> struct layout_action<g::input_line> : record_action<Kind::input> {};
 template <> struct layout_action<g::output_line> : record_action<Kind::output> {};
 template <> struct layout_action<g::dense_line> : record_action<Kind::dense> {};
 template <> struct layout_action<g::augment_line> : record_action<Kind::augment> {};
+template <> struct layout_action<g::ignore_line> : record_action<Kind::ignore> {};
+template <> struct layout_action<g::numbered_line> : record_action<Kind::numbered> {};
+template <> struct layout_action<g::layout_line> : record_action<Kind::layout> {};
 template <> struct layout_action<g::solver_line> : record_action<Kind::solver> {};
 template <> struct layout_action<g::trained_line> : record_action<Kind::trained> {};
 template <> struct layout_action<g::close_brace> : record_action<Kind::close> {};
@@ -147,14 +150,16 @@ template <> struct layout_action<g::comment> {
 
 std::string quoted(const std::string& s) { return quote_string(s); }
 
-// A layer's options after its widths: activation, tensor names.
-std::string dense_options(const Dense& d);
+// A layer's options after its widths: activation, tensor names, layout (less what its
+// blocks' layout statements already say).
+std::string dense_options(const Dense& d, bool block_transposed = false, bool block_time_first = false);
 
-std::string dense_text(const Dense& d) {
-    return fmt::format("dense {}: {}{} -> {}", d.name, d.in, d.time_input ? " + t" : "", d.out) + dense_options(d);
+std::string dense_text(const Dense& d, bool block_transposed, bool block_time_first) {
+    return fmt::format("dense {}: {}{} -> {}", d.name, d.in, d.time_input ? " + t" : "", d.out) +
+           dense_options(d, block_transposed, block_time_first);
 }
 
-std::string dense_options(const Dense& d) {
+std::string dense_options(const Dense& d, bool block_transposed, bool block_time_first) {
     std::string out;
     if (d.act != Activation::identity) {
         out += fmt::format(", {}", activation_name(d.act));
@@ -166,13 +171,16 @@ std::string dense_options(const Dense& d) {
     const bool has_prefix = d.weight_tensor.size() > suffix.size() &&
                             d.weight_tensor.compare(d.weight_tensor.size() - suffix.size(), suffix.size(), suffix) == 0;
     const std::string prefix = has_prefix ? d.weight_tensor.substr(0, d.weight_tensor.size() - suffix.size()) : std::string();
+    const std::string& own = d.tensor_prefix.empty() ? d.name : d.tensor_prefix;
     if (has_prefix && (!d.has_bias || d.bias_tensor == prefix + ".bias")) {
-        if (prefix != d.name) out += ", from " + quoted(prefix);
+        if (prefix != own) out += ", from " + quoted(prefix);
     } else {
-        if (d.weight_tensor != d.name + ".weight") out += ", weight " + quoted(d.weight_tensor);
-        if (d.has_bias && d.bias_tensor != d.name + ".bias") out += ", bias " + quoted(d.bias_tensor);
+        if (d.weight_tensor != own + ".weight") out += ", weight " + quoted(d.weight_tensor);
+        if (d.has_bias && d.bias_tensor != own + ".bias") out += ", bias " + quoted(d.bias_tensor);
     }
     if (!d.has_bias) out += ", no-bias";
+    if (d.transposed && !block_transposed) out += ", transposed";
+    if (d.time_first && !block_time_first) out += ", time-first";
     return out;
 }
 
@@ -222,6 +230,7 @@ private:
         const std::vector<Block>* body;
         std::size_t next;
         const Continuous* continuous;   // the block whose body this is, if continuous
+        const BodyTensors* tensors = nullptr;  // the block's numbered and layout statements (none at the top)
     };
 
     int line_of(std::size_t offset) const { return src_.loc_of(offset).line; }
@@ -252,9 +261,30 @@ private:
         switch (r.kind) {
             case Kind::model: return "model " + model_.name;
             case Kind::weights: return "weights " + quoted(model_.weights_path) + (model_.weights_key.empty() ? "" : " under " + quoted(model_.weights_key));
+            case Kind::ignore: {
+                std::string out = "ignore";
+                for (std::size_t i = 0; i < model_.ignore.size(); ++i) out += (i ? ", " : " ") + quoted(model_.ignore[i]);
+                return out;
+            }
+            case Kind::numbered: return "numbered " + quoted(c.tensors->numbered);
+            case Kind::layout: {
+                std::string out;
+                if (c.tensors->transposed) out += ", transposed";
+                if (c.tensors->time_first) out += ", time-first";
+                return "layout " + out.substr(2);
+            }
             case Kind::input: return fmt::format("input {}[{}]", model_.input_name, model_.input_size);
             case Kind::output: return fmt::format("output {}[{}]", model_.output_name, model_.output_size);
-            case Kind::dense: return dense_text((*c.body)[c.next++].dense);
+            case Kind::dense: {
+                bool transposed = false, time_first = false;
+                for (const Cursor& k : cursors_)
+                    if (k.tensors) {
+                        transposed = transposed || k.tensors->transposed;
+                        time_first = time_first || k.tensors->time_first;
+                    }
+                const Dense& d = (*c.body)[c.next++].dense;
+                return dense_text(d, transposed, time_first && d.time_input);
+            }
             case Kind::augment: return fmt::format("augment {}", c.continuous->augment);
             case Kind::solver: return "solver " + format_solver(c.continuous->solver);
             case Kind::trained: return "trained-with " + format_solver(*c.continuous->trained);
@@ -280,17 +310,17 @@ private:
                     // A streaming model's first block is its evolution, kept apart from the readout.
                     evolve_done_ = true;
                     const Continuous& k = model_.stream->evolve;
-                    cursors_.push_back(Cursor{&k.field, 0, &k});
+                    cursors_.push_back(Cursor{&k.field, 0, &k, &k.tensors});
                     if (k.blend) return fmt::format("blend {}: {} {{", k.name, k.width);
                     return fmt::format("continuous {}: {}, t in [{}, gap] {{", k.name, k.width, format_number(k.t0));
                 }
                 const Block& b = (*c.body)[c.next++];
                 if (b.kind == Block::Kind::residual) {
-                    cursors_.push_back(Cursor{&b.residual.body, 0, nullptr});
+                    cursors_.push_back(Cursor{&b.residual.body, 0, nullptr, &b.residual.tensors});
                     return fmt::format("residual {}: {} {{", b.residual.name, b.residual.width);
                 }
                 const Continuous& k = b.continuous;
-                cursors_.push_back(Cursor{&k.field, 0, &k});
+                cursors_.push_back(Cursor{&k.field, 0, &k, &k.tensors});
                 return fmt::format("continuous {}: {}, t in [{}, {}] {{", k.name, k.width, format_number(k.t0), format_number(k.t1));
             }
             case Kind::close: cursors_.pop_back(); return "}";

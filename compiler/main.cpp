@@ -134,13 +134,13 @@ int cmd_tensors(const std::string& file, const std::string& under) {
     }
     auto set = read_weights(weights, diags, key);
     if (!set) return flush(diags), kModelError;
-    std::vector<bool> used;
+    std::vector<std::string> binding;
     if (loaded) {
         Diagnostics bind_diags;  // check names the problems; this lists what binds
-        bind_weights(loaded->model, loaded->source, *set, bind_diags, &used);
+        bind_weights(loaded->model, loaded->source, *set, bind_diags, &binding);
     }
     flush(diags);
-    std::fputs(render_tensor_table(*set, loaded ? &used : nullptr).c_str(), stdout);
+    std::fputs(render_tensor_table(*set, loaded ? &binding : nullptr).c_str(), stdout);
     return 0;
 }
 

@@ -36,7 +36,11 @@ struct Frame {
     bool any_statement = false;
     Loc solver_loc;                 // line 0: no solver line yet
     Loc trained_loc;
+    bool any_layer = false;         // a layer or block placed in the body
+    int next_module = 0;            // the index the next layer takes in a numbered body
 };
+
+BodyTensors& body_tensors(Block& b) { return b.kind == Block::Kind::residual ? b.residual.tensors : b.continuous.tensors; }
 
 struct State {
     const Source& src;
@@ -68,6 +72,10 @@ struct State {
     std::size_t string_open = 0;    // offset of the last opening quote
     Dense dense;
     bool act_given = false, weight_given = false, bias_given = false, from_given = false, no_bias_given = false;
+    bool transposed_given = false, time_first_given = false;
+    bool layout_transposed = false, layout_time_first = false;  // of the layout statement being read
+    std::vector<std::string> ignore;  // patterns of the ignore statement being read
+    std::vector<Loc> ignore_locs;
     std::string from;
     bool act_accepted = false;      // the activation just read was taken (not a second one)
     SolverSpec spec;
@@ -177,6 +185,7 @@ void placed(State& s, Loc stmt, std::string_view what) {
     if (f.block.kind == Block::Kind::continuous && (f.solver_loc.line > 0 || f.trained_loc.line > 0))
         s.error(stmt, fmt::format("{} comes after the solver line of continuous '{}'; the field's layers come first", what, f.block.continuous.name));
     f.any_statement = true;
+    f.any_layer = true;
 }
 
 // The continuous block a body statement (augment, solver, trained-with) belongs to, or null after an error.
@@ -250,6 +259,7 @@ void pop_block(const Input& in, State& s) {
         return;
     }
     placed(s, loc_of(in, s), fmt::format("{} '{}'", kind_name(f.block), block_name(f.block)));
+    if (!s.open.empty()) ++s.open.back().next_module;  // a nested block is one module of a numbered body
     s.body().push_back(std::move(f.block));
 }
 
@@ -355,6 +365,40 @@ template <> struct action<g::weights_key_text> {
     }
 };
 
+template <> struct action<g::kw_ignore> {
+    template <typename Input>
+    static void apply(const Input&, State& s) {
+        s.ignore.clear();
+        s.ignore_locs.clear();
+    }
+};
+template <> struct action<g::ignore_pattern_text> {
+    template <typename Input>
+    static void apply(const Input& in, State& s) {
+        text_action::apply(in, s);
+        s.ignore.push_back(s.text);
+        s.ignore_locs.push_back(s.text_loc);
+    }
+};
+template <> struct action<g::ignore_line> {
+    template <typename Input>
+    static void apply(const Input& in, State& s) {
+        Loc stmt = loc_of(in, s);
+        top_level_statement(s, stmt);
+        if (!s.model.ignore.empty()) {
+            s.error(stmt, fmt::format("a second 'ignore' statement (the first is on line {}); list every pattern in one",
+                                      s.model.ignore_locs.front().line));
+            return;
+        }
+        if (!s.have_weights)
+            s.error(stmt, "'ignore' names tensors of the weights file: it comes after the 'weights' statement");
+        else if (s.input_stmt.line > 0 || s.have_blocks)
+            s.error(stmt, "'ignore' must come before 'input' and the layers");
+        s.model.ignore = s.ignore;
+        s.model.ignore_locs = s.ignore_locs;
+    }
+};
+
 template <> struct action<g::model_line> {
     template <typename Input>
     static void apply(const Input& in, State& s) {
@@ -428,6 +472,7 @@ template <> struct action<g::layer_name> {
         s.dense.name = in.string();
         s.dense.loc = loc_of(in, s);
         s.act_given = s.weight_given = s.bias_given = s.from_given = s.no_bias_given = false;
+        s.transposed_given = s.time_first_given = false;
         s.from.clear();
     }
 };
@@ -500,6 +545,22 @@ template <> struct action<g::no_bias_option> {
         s.no_bias_given = true;
     }
 };
+template <> struct action<g::transposed_option> {
+    template <typename Input>
+    static void apply(const Input& in, State& s) {
+        if (s.transposed_given) s.error(loc_of(in, s), fmt::format("'transposed' is given twice for layer '{}'", s.dense.name));
+        s.transposed_given = true;
+    }
+};
+template <> struct action<g::time_first_option> {
+    template <typename Input>
+    static void apply(const Input& in, State& s) {
+        if (s.time_first_given) s.error(loc_of(in, s), fmt::format("'time-first' is given twice for layer '{}'", s.dense.name));
+        else if (!s.dense.time_input)
+            s.error(loc_of(in, s), fmt::format("layer '{}' has no time column: 'time-first' applies to a layer with '+ t'", s.dense.name));
+        s.time_first_given = true;
+    }
+};
 
 // The tensor names of the layer just read, from its options.
 void resolve_tensors(State& s) {
@@ -510,7 +571,8 @@ void resolve_tensors(State& s) {
         s.error(d.loc, fmt::format("layer '{}' names its bias tensor twice ('from' and 'bias')", d.name));
     if (s.no_bias_given && s.bias_given)
         s.error(d.loc, fmt::format("layer '{}' has both 'bias' and 'no-bias'", d.name));
-    const std::string& prefix = s.from_given ? s.from : d.name;
+    if (d.tensor_prefix.empty()) d.tensor_prefix = d.name;
+    const std::string& prefix = s.from_given ? s.from : d.tensor_prefix;
     if (!s.weight_given) d.weight_tensor = prefix + ".weight";
     if (!s.bias_given) d.bias_tensor = prefix + ".bias";
     if (s.no_bias_given) {
@@ -519,9 +581,29 @@ void resolve_tensors(State& s) {
     }
 }
 
+// The layer's place in its body: its default tensor prefix in a numbered body, and the
+// layouts of the blocks around it.
+void body_naming(State& s) {
+    Dense& d = s.dense;
+    d.transposed = s.transposed_given;
+    d.time_first = s.time_first_given;
+    for (Frame& f : s.open) {
+        const BodyTensors& t = body_tensors(f.block);
+        d.transposed = d.transposed || t.transposed;
+        d.time_first = d.time_first || (t.time_first && d.time_input);
+    }
+    if (s.open.empty()) return;
+    Frame& f = s.open.back();
+    const BodyTensors& t = body_tensors(f.block);
+    if (!t.numbered.empty()) d.tensor_prefix = fmt::format("{}.{}", t.numbered, f.next_module);
+    // The affine map is one module; an activation is a parameter-free module of its own.
+    f.next_module += d.act == Activation::identity ? 1 : 2;
+}
+
 template <> struct action<g::dense_line> {
     template <typename Input>
     static void apply(const Input& in, State& s) {
+        body_naming(s);
         resolve_tensors(s);
         Dense& d = s.dense;
         placed(s, loc_of(in, s), fmt::format("layer '{}'", d.name));
@@ -625,6 +707,7 @@ template <> struct action<g::merge_line> {
         Dense& d = s.dense;
         const int state_width = d.in;
         d.in = state_width > 0 && s.size > 0 && state_width <= (1 << 20) && s.size <= (1 << 20) ? state_width + s.size : 0;
+        d.transposed = s.transposed_given;
         resolve_tensors(s);
         Stream* st = place_update(in, s, "merge");
         if (!st) return;
@@ -708,6 +791,74 @@ template <> struct action<g::augment_line> {
         }
         f->any_statement = true;
         f->block.continuous.augment = s.size;
+    }
+};
+
+// How a block's layers name and lay out their tensors: statements before the block's layers.
+Frame* naming_frame(State& s, Loc stmt, std::string_view keyword) {
+    if (s.open.empty()) {
+        s.error(stmt, fmt::format("'{}' is allowed only inside a residual or continuous block (it applies to the block's layers)",
+                                  keyword));
+        return nullptr;
+    }
+    Frame& f = s.open.back();
+    if (f.any_layer) {
+        s.error(stmt, fmt::format("'{}' must come before the layers of {} '{}'", keyword, kind_name(f.block), block_name(f.block)));
+        return nullptr;
+    }
+    f.any_statement = true;
+    return &f;
+}
+template <> struct action<g::numbered_prefix_text> : text_action {};
+template <> struct action<g::numbered_line> {
+    template <typename Input>
+    static void apply(const Input& in, State& s) {
+        Loc stmt = loc_of(in, s);
+        Frame* f = naming_frame(s, stmt, "numbered");
+        if (!f) return;
+        BodyTensors& t = body_tensors(f->block);
+        if (!t.numbered.empty()) {
+            s.error(stmt, fmt::format("{} '{}' already has a 'numbered' statement (line {})", kind_name(f->block),
+                                      block_name(f->block), t.numbered_loc.line));
+            return;
+        }
+        t.numbered = s.text;
+        t.numbered_loc = stmt;
+    }
+};
+template <> struct action<g::kw_layout> {
+    template <typename Input>
+    static void apply(const Input&, State& s) { s.layout_transposed = s.layout_time_first = false; }
+};
+template <> struct action<g::layout_transposed> {
+    template <typename Input>
+    static void apply(const Input& in, State& s) {
+        if (s.layout_transposed) s.error(loc_of(in, s), "'transposed' is given twice in the layout statement");
+        s.layout_transposed = true;
+    }
+};
+template <> struct action<g::layout_time_first> {
+    template <typename Input>
+    static void apply(const Input& in, State& s) {
+        if (s.layout_time_first) s.error(loc_of(in, s), "'time-first' is given twice in the layout statement");
+        s.layout_time_first = true;
+    }
+};
+template <> struct action<g::layout_line> {
+    template <typename Input>
+    static void apply(const Input& in, State& s) {
+        Loc stmt = loc_of(in, s);
+        Frame* f = naming_frame(s, stmt, "layout");
+        if (!f) return;
+        BodyTensors& t = body_tensors(f->block);
+        if (t.layout_loc.line > 0) {
+            s.error(stmt, fmt::format("{} '{}' already has a 'layout' statement (line {})", kind_name(f->block),
+                                      block_name(f->block), t.layout_loc.line));
+            return;
+        }
+        t.transposed = s.layout_transposed;
+        t.time_first = s.layout_time_first;
+        t.layout_loc = stmt;
     }
 };
 

@@ -413,9 +413,12 @@ TensorSet refit_tensors(const Model& refitted) {
     for_each_dense(refitted.blocks, [&](const Dense& d) {
         Tensor w;
         w.name = d.weight_tensor;
-        w.shape = {static_cast<std::size_t>(d.out), static_cast<std::size_t>(d.in_total())};
+        // Stored the way the description says the layer reads it (its layout options).
+        w.shape = stored_weight_shape(d);
+        w.values.assign(static_cast<std::size_t>(d.weight.size()), 0.0);
         for (Eigen::Index r = 0; r < d.weight.rows(); ++r)
-            for (Eigen::Index c = 0; c < d.weight.cols(); ++c) w.values.push_back(d.weight(r, c));
+            for (Eigen::Index c = 0; c < d.weight.cols(); ++c)
+                w.values[stored_weight_index(d, static_cast<std::size_t>(r), static_cast<std::size_t>(c))] = d.weight(r, c);
         w.dtype = "float32";
         set.tensors.push_back(std::move(w));
         if (d.has_bias) {

@@ -19,11 +19,11 @@ std::string value_text(double v, const std::string& dtype) {
 
 }  // namespace
 
-std::string render_tensor_table(const TensorSet& set, const std::vector<bool>* bound) {
+std::string render_tensor_table(const TensorSet& set, const std::vector<std::string>* binding) {
     std::vector<std::vector<std::string>> rows;
     rows.push_back({"name", "dtype", "shape", "min", "max"});
-    if (bound) rows[0].push_back("bound");
-    std::size_t bound_count = 0;
+    if (binding) rows[0].push_back("bound to");
+    std::size_t bound_count = 0, ignored_count = 0;
     for (std::size_t i = 0; i < set.tensors.size(); ++i) {
         const Tensor& t = set.tensors[i];
         std::string lo = "-", hi = "-";
@@ -42,9 +42,11 @@ std::string render_tensor_table(const TensorSet& set, const std::vector<bool>* b
             if (any_nan) hi += " (and nan)";
         }
         rows.push_back({t.name, t.dtype, fmt::format("[{}]", fmt::join(t.shape, ", ")), lo, hi});
-        if (bound) {
-            rows.back().push_back((*bound)[i] ? "yes" : "no");
-            bound_count += (*bound)[i] ? 1 : 0;
+        if (binding) {
+            const std::string& b = (*binding)[i];
+            rows.back().push_back(b.empty() ? "-" : b);
+            if (b == "ignored") ++ignored_count;
+            else if (!b.empty()) ++bound_count;
         }
     }
     std::vector<std::size_t> width(rows[0].size(), 0);
@@ -58,7 +60,8 @@ std::string render_tensor_table(const TensorSet& set, const std::vector<bool>* b
         out += line + "\n";
     }
     out += fmt::format("{} tensor{} in {}", set.tensors.size(), set.tensors.size() == 1 ? "" : "s", set.path);
-    if (bound) out += fmt::format("; {} bound by the description", bound_count);
+    if (binding) out += fmt::format("; {} bound by the description", bound_count);
+    if (binding && ignored_count) out += fmt::format(", {} ignored", ignored_count);
     return out + "\n";
 }
 

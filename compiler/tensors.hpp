@@ -10,8 +10,8 @@
 namespace meander {
 
 // One line per tensor: name, dtype, shape, smallest and largest value (NaN
-// and infinities named), and with `bound` (one flag per tensor) whether a
-// layer of the description binds it.
-std::string render_tensor_table(const TensorSet& set, const std::vector<bool>* bound);
+// and infinities named), and with `binding` (one entry per tensor, from
+// bind_weights) the layer of the description that binds it, "ignored", or "-".
+std::string render_tensor_table(const TensorSet& set, const std::vector<std::string>* binding);
 
 }  // namespace meander

@@ -34,10 +34,23 @@ struct TensorSet {
 std::optional<TensorSet> read_weights(const std::string& path, Diagnostics& diags, const std::string& key_path = "");
 
 // Fills every Dense's weight and bias; reports missing, extra, misshapen and
-// non-finite tensors at the layer's position in the description.
-// With `used`, it receives one flag per tensor of the set: bound by a layer.
+// non-finite tensors at the layer's position in the description. A tensor that
+// no layer binds is an error unless it matches one of the model's `ignore`
+// patterns. A layer's layout options say how its weight is stored: (in, out)
+// with `transposed`, the time column first with `time-first`.
+// With `binding`, it receives one entry per tensor of the set: what binds it
+// ("f1 weight", "ignored", or empty for nothing).
 bool bind_weights(Model& model, const Source& src, const TensorSet& set, Diagnostics& diags,
-                  std::vector<bool>* used = nullptr);
+                  std::vector<std::string>* binding = nullptr);
+
+// The shape a dense layer's weight tensor has in the file, and the flat index in
+// it of the model's W(row, col) ((out, in + t) with time last): the layout options
+// of the layer applied. Binding reads through it; writers of weight files write through it.
+std::vector<std::size_t> stored_weight_shape(const Dense& d);
+std::size_t stored_weight_index(const Dense& d, std::size_t row, std::size_t col);
+
+// A tensor name pattern of an `ignore` statement: '*' any run of characters (dots too), '?' one.
+bool name_matches(std::string_view pattern, std::string_view name);
 
 // Weights the chosen precision cannot hold: a value beyond the float32 range
 // is an error (it would become infinite), values that flush to zero a warning.

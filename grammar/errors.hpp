@@ -13,10 +13,12 @@ inline constexpr const char* error_message = nullptr;
 
 // Statements
 template<> inline constexpr const char* error_message< model_first > = "expected 'model NAME' as the first statement";
-template<> inline constexpr const char* error_message< top_statement > = "expected a statement: weights, input, state, dense, residual, continuous, blend, gated, merge or output";
-template<> inline constexpr const char* error_message< body_statement > = "expected a statement inside the block: dense, residual, augment, solver, trained-with or '}'";
+template<> inline constexpr const char* error_message< top_statement > = "expected a statement: weights, ignore, input, state, dense, residual, continuous, blend, gated, merge or output";
+template<> inline constexpr const char* error_message< body_statement > = "expected a statement inside the block: dense, residual, augment, numbered, layout, solver, trained-with or '}'";
 template<> inline constexpr const char* error_message< statement_end > = "expected the end of the statement";
 template<> inline constexpr const char* error_message< dense_end > = "expected ',' before another layer option, or the end of the layer";
+template<> inline constexpr const char* error_message< ignore_end > = "expected ',' before another pattern, or the end of the ignore statement";
+template<> inline constexpr const char* error_message< layout_end > = "expected ',' before another layout, or the end of the layout statement";
 template<> inline constexpr const char* error_message< solver_end > = "expected ',' before another solver option, or the end of the solver line";
 
 // Names
@@ -53,6 +55,8 @@ template<> inline constexpr const char* error_message< weights_path > = "expecte
 template<> inline constexpr const char* error_message< weights_key > = "expected a quoted key path after 'under' (\"model/state_dict\")";
 template<> inline constexpr const char* error_message< weight_tensor > = "expected a quoted tensor name after 'weight'";
 template<> inline constexpr const char* error_message< bias_tensor > = "expected a quoted tensor name after 'bias'";
+template<> inline constexpr const char* error_message< ignore_pattern > = "expected a quoted tensor name pattern after 'ignore' ('*' stands for any run of characters, '?' for one)";
+template<> inline constexpr const char* error_message< numbered_prefix > = "expected a quoted module prefix after 'numbered' (\"net\" binds net.0, net.2, ...)";
 template<> inline constexpr const char* error_message< from_prefix > = "expected a quoted tensor name prefix after 'from'";
 
 // Numbers
@@ -71,7 +75,8 @@ template<> inline constexpr const char* error_message< obs_width > = "expected t
 template<> inline constexpr const char* error_message< steps_per_unit_value > = "expected a number after 'steps-per-unit'";
 
 // Layer options
-template<> inline constexpr const char* error_message< dense_option > = "expected a layer option: an activation (identity, relu, leaky-relu, tanh, sigmoid, softplus, silu, gelu, elu, softmax), 'weight', 'bias', 'from' or 'no-bias'";
+template<> inline constexpr const char* error_message< dense_option > = "expected a layer option: an activation (identity, relu, leaky-relu, tanh, sigmoid, softplus, silu, gelu, elu, softmax), 'weight', 'bias', 'from', 'no-bias', 'transposed' or 'time-first'";
+template<> inline constexpr const char* error_message< layout_option > = "expected a layout: 'transposed' (weights stored (in, out)) or 'time-first' (the time column first)";
 
 // Solver lines
 template<> inline constexpr const char* error_message< solver_method > = "expected a solver method (such as rk4 or dormand-prince)";

@@ -58,6 +58,11 @@ struct kw_weight : seq< TAO_PEGTL_STRING( "weight" ), word_end > {};
 struct kw_bias : seq< TAO_PEGTL_STRING( "bias" ), word_end > {};
 struct kw_from : seq< TAO_PEGTL_STRING( "from" ), word_end > {};
 struct kw_no_bias : seq< TAO_PEGTL_STRING( "no-bias" ), word_end > {};
+struct kw_numbered : seq< TAO_PEGTL_STRING( "numbered" ), word_end > {};
+struct kw_layout : seq< TAO_PEGTL_STRING( "layout" ), word_end > {};
+struct kw_ignore : seq< TAO_PEGTL_STRING( "ignore" ), word_end > {};
+struct kw_transposed : seq< TAO_PEGTL_STRING( "transposed" ), word_end > {};
+struct kw_time_first : seq< TAO_PEGTL_STRING( "time-first" ), word_end > {};
 struct kw_identity : seq< TAO_PEGTL_STRING( "identity" ), word_end > {};
 struct kw_relu : seq< TAO_PEGTL_STRING( "relu" ), word_end > {};
 struct kw_leaky_relu : seq< TAO_PEGTL_STRING( "leaky-relu" ), word_end > {};
@@ -91,9 +96,9 @@ struct kw_merge : seq< TAO_PEGTL_STRING( "merge" ), word_end > {};
 struct kw_blend : seq< TAO_PEGTL_STRING( "blend" ), word_end > {};
 
 // Words that begin a statement; skipping after an error stops before them.
-struct statement_keyword : sor< kw_model, kw_weights, kw_input, kw_output, kw_dense, kw_residual, kw_continuous, kw_augment, kw_solver, kw_trained_with, kw_state, kw_gated, kw_merge, kw_blend > {};
+struct statement_keyword : sor< kw_model, kw_weights, kw_ignore, kw_input, kw_output, kw_dense, kw_residual, kw_continuous, kw_augment, kw_numbered, kw_layout, kw_solver, kw_trained_with, kw_state, kw_gated, kw_merge, kw_blend > {};
 // Statements that cannot appear inside a block: meeting one there means a '}' is missing.
-struct top_only_keyword : sor< kw_model, kw_weights, kw_input, kw_output, kw_continuous, kw_state, kw_gated, kw_merge, kw_blend > {};
+struct top_only_keyword : sor< kw_model, kw_weights, kw_ignore, kw_input, kw_output, kw_continuous, kw_state, kw_gated, kw_merge, kw_blend > {};
 // A statement ends at the end of its line, or where the next statement (or a '}') begins;
 // an unknown word on a later line is then reported as an unknown statement.
 struct statement_boundary : sor< eof, close_brace, statement_keyword > {};
@@ -101,6 +106,8 @@ struct line_rest : seq< star< one< ' ', '\t', '\r' > >, opt< comment >, sor< one
 struct statement_end : at< sor< line_rest, seq< sep, statement_boundary > > > {};
 struct dense_end : at< sor< line_rest, seq< sep, statement_boundary > > > {};
 struct solver_end : at< sor< line_rest, seq< sep, statement_boundary > > > {};
+struct ignore_end : at< sor< line_rest, seq< sep, statement_boundary > > > {};
+struct layout_end : at< sor< line_rest, seq< sep, statement_boundary > > > {};
 
 // ---- model, weights, input, output -------------------------------------------
 struct model_first : at< kw_model > {};
@@ -112,6 +119,9 @@ struct weights_key_text : string_chars {};
 struct weights_key : seq< string_open, weights_key_text, must< string_close > > {};
 struct weights_under : seq< kw_under, sep, must< weights_key > > {};
 struct weights_line : seq< kw_weights, sep, must< weights_path >, opt< sep, weights_under >, must< statement_end > > {};
+struct ignore_pattern_text : string_chars {};
+struct ignore_pattern : seq< string_open, ignore_pattern_text, must< string_close > > {};
+struct ignore_line : seq< kw_ignore, sep, must< ignore_pattern >, star< sep, comma, sep, must< ignore_pattern > >, must< ignore_end > > {};
 struct input_name : identifier {};
 struct input_size : integer {};
 struct input_line : seq< kw_input, sep, must< input_name >, sep, must< open_bracket >, sep, must< input_size >, sep, must< close_bracket >, must< statement_end > > {};
@@ -137,7 +147,9 @@ struct from_prefix_text : string_chars {};
 struct from_prefix : seq< string_open, from_prefix_text, must< string_close > > {};
 struct from_option : seq< kw_from, sep, must< from_prefix > > {};
 struct no_bias_option : kw_no_bias {};
-struct dense_option : sor< activation_option, weight_option, bias_option, from_option, no_bias_option > {};
+struct transposed_option : kw_transposed {};
+struct time_first_option : kw_time_first {};
+struct dense_option : sor< activation_option, weight_option, bias_option, from_option, no_bias_option, transposed_option, time_first_option > {};
 struct dense_line : seq< kw_dense, sep, must< layer_name >, sep, must< colon >, sep, must< in_width >, sep, opt< time_input, sep >, must< arrow >, sep, must< out_width >, star< sep, comma, sep, must< dense_option > >, must< dense_end > > {};
 
 // ---- solver lines ---------------------------------------------------------------
@@ -172,6 +184,14 @@ struct solver_line : seq< kw_solver, solver_options > {};
 struct trained_line : seq< kw_trained_with, solver_options > {};
 struct augment_size : integer {};
 struct augment_line : seq< kw_augment, sep, must< augment_size >, must< statement_end > > {};
+// How a block's layers name and lay out their tensors.
+struct numbered_prefix_text : string_chars {};
+struct numbered_prefix : seq< string_open, numbered_prefix_text, must< string_close > > {};
+struct numbered_line : seq< kw_numbered, sep, must< numbered_prefix >, must< statement_end > > {};
+struct layout_transposed : kw_transposed {};
+struct layout_time_first : kw_time_first {};
+struct layout_option : sor< layout_transposed, layout_time_first > {};
+struct layout_line : seq< kw_layout, sep, must< layout_option >, star< sep, comma, sep, must< layout_option > >, must< layout_end > > {};
 
 // ---- error recovery: skip to the next statement keyword, over braced groups ----
 struct skip_string : seq< one< '"' >, star< sor< seq< one< '\\' >, not_one< '\n' > >, not_one< '"', '\n' > > >, opt< one< '"' > > > {};
@@ -183,7 +203,7 @@ struct body_skip : seq< skip_unit, star< not_at< sor< statement_keyword, close_b
 
 // ---- blocks ------------------------------------------------------------------------
 struct residual_block;
-struct body_statement : sor< dense_line, residual_block, augment_line, solver_line, trained_line > {};
+struct body_statement : sor< dense_line, residual_block, augment_line, numbered_line, layout_line, solver_line, trained_line > {};
 struct body_attempt : must< body_statement > {};
 struct body_item : seq< not_at< sor< close_brace, top_only_keyword, eof > >, sor< body_attempt, body_skip >, sep > {};
 struct block_width : integer {};
@@ -211,7 +231,7 @@ struct blend_name : identifier {};
 struct blend_block : seq< kw_blend, sep, must< blend_name >, sep, must< colon >, sep, must< block_width >, sep, must< open_brace >, sep, star< body_item >, must< close_brace > > {};
 
 // ---- the description ------------------------------------------------------------
-struct top_statement : sor< model_line, weights_line, input_line, output_line, dense_line, residual_block, continuous_block, augment_line, solver_line, trained_line, state_line, gated_line, merge_line, blend_block > {};
+struct top_statement : sor< model_line, weights_line, ignore_line, input_line, output_line, dense_line, residual_block, continuous_block, augment_line, numbered_line, layout_line, solver_line, trained_line, state_line, gated_line, merge_line, blend_block > {};
 struct top_attempt : must< top_statement > {};
 struct top_item : seq< not_at< eof >, sor< top_attempt, top_skip >, sep > {};
 struct description : seq< sep, must< model_first >, star< top_item >, eof > {};

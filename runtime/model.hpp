@@ -33,9 +33,13 @@ struct Dense {
     int out = 0;
     Activation act = Activation::identity;
     double act_param = 0.0;         // leaky-relu slope, elu alpha (defaults applied by the parser)
-    std::string weight_tensor;      // resolved tensor names (default "<name>.weight"/"<name>.bias")
+    std::string weight_tensor;      // resolved tensor names (default "<prefix>.weight"/"<prefix>.bias")
     std::string bias_tensor;
+    std::string tensor_prefix;      // the default prefix: the layer's name, or "P.K" in a body numbered "P"
     bool has_bias = true;
+    // Layout of the weight tensor in the file (the layer's own option or its block's `layout`):
+    bool transposed = false;        // stored (in, out) instead of (out, in)
+    bool time_first = false;        // the time column ('+ t') first instead of last
     Eigen::MatrixXd weight;         // out x (in + time_input); filled by bind_weights
     Eigen::VectorXd bias;           // out (size 0 when !has_bias); filled by bind_weights
 
@@ -65,11 +69,22 @@ struct SolverSpec {
 
 struct Block;
 
+// How a block's layers name and lay out their tensors: its `numbered` and `layout` statements.
+struct BodyTensors {
+    std::string numbered;           // "P": the body's modules are P.0, P.1, ... (a dense layer, then its
+                                    // activation as a module of its own; a nested block one module)
+    Loc numbered_loc;
+    bool transposed = false;        // every dense layer inside stores its weight (in, out)
+    bool time_first = false;        // every dense layer inside with '+ t' stores the time column first
+    Loc layout_loc;
+};
+
 struct Residual {
     std::string name;
     Loc loc;
     int width = 0;
     std::vector<Block> body;        // dense layers and residual blocks; output width == width
+    BodyTensors tensors;
 };
 
 struct Continuous {
@@ -81,6 +96,7 @@ struct Continuous {
     double t1 = 1.0;
     Loc interval_loc;
     std::vector<Block> field;       // f(h, t): maps width+augment -> width+augment
+    BodyTensors tensors;
     SolverSpec solver;
     std::optional<SolverSpec> trained;  // solver the model was trained with, if recorded
     // The evolution of a streaming model: the interval is [0, gap], the gap known only at run time.
@@ -130,6 +146,8 @@ struct Model {
     std::string weights_path;       // as written; relative to the description's folder
     Loc weights_loc;
     std::string weights_key;        // `under "KEY/PATH"`: a nested dictionary of a checkpoint; empty for none
+    std::vector<std::string> ignore;  // `ignore "PATTERN", ...`: tensors the model leaves unused (globs: * and ?)
+    std::vector<Loc> ignore_locs;     // each pattern's opening quote
     std::string input_name;
     int input_size = 0;
     Loc input_loc;

@@ -46,7 +46,7 @@ std::string count_text(std::size_t n, const char* word) {
 class Binder {
 public:
     Binder(const Source& src, const TensorSet& set, Diagnostics& diags)
-        : src_(src), set_(set), diags_(diags), used_(set.tensors.size(), false) {}
+        : src_(src), set_(set), diags_(diags), used_(set.tensors.size(), false), binding_(set.tensors.size()) {}
 
     // Names some layer asks for: never offered as a close name to another.
     void collect(const std::vector<Block>& bs) {
@@ -70,16 +70,37 @@ public:
         }
     }
 
-    const std::vector<bool>& used() const { return used_; }
+    const std::vector<std::string>& binding() const { return binding_; }
 
     void unused(const Model& model) {
         std::vector<std::string> names;
-        for (std::size_t i = 0; i < used_.size(); ++i)
-            if (!used_[i]) names.push_back(set_.tensors[i].name);
+        std::vector<bool> pattern_hit(model.ignore.size(), false);
+        for (std::size_t i = 0; i < used_.size(); ++i) {
+            bool ignored = false;
+            for (std::size_t p = 0; p < model.ignore.size(); ++p)
+                if (name_matches(model.ignore[p], set_.tensors[i].name)) ignored = pattern_hit[p] = true;
+            if (used_[i]) continue;
+            if (ignored) binding_[i] = "ignored";
+            else names.push_back(set_.tensors[i].name);
+        }
+        // A pattern that matches nothing is most likely misspelt.
+        for (std::size_t p = 0; p < model.ignore.size(); ++p)
+            if (!pattern_hit[p])
+                diags_.warning(src_, model.ignore_locs[p],
+                               fmt::format("ignore pattern '{}' matches no tensor in {}", model.ignore[p], set_.path));
         if (names.empty()) return;
         std::string msg = names.size() == 1
             ? fmt::format("tensor '{}' in {} is not used by any layer", names[0], set_.path)
             : fmt::format("{} tensors in {} are not used by any layer: {}", names.size(), set_.path, quoted_list(names, 10));
+        // Unless each one is explained already (a close name of a missing tensor, a no-bias layer's bias), say how
+        // to leave out the tensors a model carries but does not need (normalisation buffers, optimiser state).
+        bool unexplained = false;
+        for (const auto& n : names) {
+            bool explained = std::find(offered_.begin(), offered_.end(), n) != offered_.end();
+            for (const Dense* d : no_bias_) explained = explained || n == bias_name(*d);
+            unexplained = unexplained || !explained;
+        }
+        if (unexplained) msg += "; a tensor the model does not need goes in an 'ignore' statement";
         diags_.error(src_, model.weights_loc, msg);
         // A bias left over by a layer declared without one is the usual cause.
         for (const Dense* d : no_bias_)
@@ -93,16 +114,20 @@ private:
     const TensorSet& set_;
     Diagnostics& diags_;
     std::vector<bool> used_;
+    std::vector<std::string> binding_;
     std::vector<const Dense*> no_bias_;
     std::vector<std::string> wanted_;
+    std::vector<std::string> offered_;   // tensors named as close names of a missing one
 
     static std::string weight_name(const Dense& d) { return d.weight_tensor.empty() ? d.name + ".weight" : d.weight_tensor; }
     static std::string bias_name(const Dense& d) { return d.bias_tensor.empty() ? d.name + ".bias" : d.bias_tensor; }
 
-    const Tensor* lookup(const Dense& d, const std::string& name) {
+    const Tensor* lookup(const Dense& d, const std::string& name, const char* role) {
         for (std::size_t i = 0; i < set_.tensors.size(); ++i)
             if (set_.tensors[i].name == name) {
                 used_[i] = true;
+                binding_[i] = fmt::format("{} {}{}", d.name, role,
+                                          std::string_view(role) == "weight" && d.transposed ? " (transposed)" : "");
                 return &set_.tensors[i];
             }
         // Close names: a small edit away, or the same name under a prefix
@@ -119,6 +144,7 @@ private:
         if (!close.empty()) {
             std::vector<std::string> names;
             for (auto& c : close) names.push_back(c.second);
+            offered_.insert(offered_.end(), names.begin(), names.end());
             msg += fmt::format("; close names: {}", quoted_list(names, 5));
         } else {
             msg += fmt::format(" (it holds {})", count_text(set_.tensors.size(), "tensor"));
@@ -137,10 +163,15 @@ private:
         }
         std::string msg = fmt::format("layer '{}': tensor '{}' has shape {}, expected {}", d.name, t.name,
                                       shape_text(t.shape), shape_text(want));
-        if (want.size() == 2 && t.shape.size() == 2 && want[0] != want[1] && t.shape[0] == want[1] && t.shape[1] == want[0])
-            msg += ": it looks transposed (a weight is (out, in))";
-        else if (d.time_input && want.size() == 2 && t.shape.size() == 2 && t.shape[0] == want[0] && t.shape[1] + 1 == want[1])
-            msg += ": with '+ t' the weight has one more column, for time (the last)";
+        const bool is_weight = want.size() == 2;
+        if (is_weight && t.shape.size() == 2 && want[0] != want[1] && t.shape[0] == want[1] && t.shape[1] == want[0])
+            msg += d.transposed ? ": it looks stored (out, in), not (in, out) as 'transposed' says"
+                                : ": it looks transposed (a weight is (out, in); write 'transposed' for a file that stores (in, out))";
+        else if (d.time_input && is_weight && t.shape.size() == 2 && !d.transposed && t.shape[0] == want[0] && t.shape[1] + 1 == want[1])
+            msg += fmt::format(": with '+ t' the weight has one more column, for time (the {})", d.time_first ? "first" : "last");
+        else if (d.time_input && is_weight && t.shape.size() == 2 && d.transposed && t.shape[1] == want[1] && t.shape[0] + 1 == want[0])
+            msg += fmt::format(": with '+ t' the weight has one more row (stored (in, out)), for time (the {})",
+                               d.time_first ? "first" : "last");
         diags_.error(src_, d.loc, msg);
         return false;
     }
@@ -167,19 +198,19 @@ private:
     void dense(Dense& d) {
         const std::size_t out = static_cast<std::size_t>(std::max(d.out, 0));
         const std::size_t in = static_cast<std::size_t>(std::max(d.in_total(), 0));
-        const Tensor* w = lookup(d, weight_name(d));
-        if (w && shape_ok(d, *w, {out, in}) && finite(d, *w)) {
+        const Tensor* w = lookup(d, weight_name(d), "weight");
+        if (w && shape_ok(d, *w, stored_weight_shape(d)) && finite(d, *w)) {
             d.weight.resize(static_cast<Eigen::Index>(out), static_cast<Eigen::Index>(in));
             for (std::size_t r = 0; r < out; ++r)
                 for (std::size_t c = 0; c < in; ++c)
-                    d.weight(static_cast<Eigen::Index>(r), static_cast<Eigen::Index>(c)) = w->values[r * in + c];
+                    d.weight(static_cast<Eigen::Index>(r), static_cast<Eigen::Index>(c)) = w->values[stored_weight_index(d, r, c)];
         }
         if (!d.has_bias) {
             d.bias.resize(0);
             no_bias_.push_back(&d);
             return;
         }
-        const Tensor* b = lookup(d, bias_name(d));
+        const Tensor* b = lookup(d, bias_name(d), "bias");
         if (b && shape_ok(d, *b, {out}) && finite(d, *b)) {
             d.bias.resize(static_cast<Eigen::Index>(out));
             for (std::size_t r = 0; r < out; ++r) d.bias(static_cast<Eigen::Index>(r)) = b->values[r];
@@ -189,7 +220,43 @@ private:
 
 }  // namespace
 
-bool bind_weights(Model& model, const Source& src, const TensorSet& set, Diagnostics& diags, std::vector<bool>* used) {
+std::vector<std::size_t> stored_weight_shape(const Dense& d) {
+    const std::size_t out = static_cast<std::size_t>(std::max(d.out, 0));
+    const std::size_t in = static_cast<std::size_t>(std::max(d.in_total(), 0));
+    if (d.transposed) return {in, out};
+    return {out, in};
+}
+
+std::size_t stored_weight_index(const Dense& d, std::size_t row, std::size_t col) {
+    const std::size_t out = static_cast<std::size_t>(std::max(d.out, 0));
+    const std::size_t in = static_cast<std::size_t>(std::max(d.in_total(), 0));
+    // The model keeps time last (column `in - 1`); time-first files hold it in column 0, the rest one to the right.
+    if (d.time_input && d.time_first) col = col + 1 == in ? 0 : col + 1;
+    return d.transposed ? col * out + row : row * in + col;
+}
+
+bool name_matches(std::string_view pattern, std::string_view name) {
+    // Iterative glob matching: on a mismatch, let the last '*' take one more character.
+    std::size_t p = 0, n = 0, star = std::string_view::npos, mark = 0;
+    while (n < name.size()) {
+        if (p < pattern.size() && (pattern[p] == '?' || pattern[p] == name[n])) {
+            ++p;
+            ++n;
+        } else if (p < pattern.size() && pattern[p] == '*') {
+            star = p++;
+            mark = n;
+        } else if (star != std::string_view::npos) {
+            p = star + 1;
+            n = ++mark;
+        } else {
+            return false;
+        }
+    }
+    while (p < pattern.size() && pattern[p] == '*') ++p;
+    return p == pattern.size();
+}
+
+bool bind_weights(Model& model, const Source& src, const TensorSet& set, Diagnostics& diags, std::vector<std::string>* binding) {
     int before = diags.error_count();
     Binder binder(src, set, diags);
     binder.collect(model.blocks);
@@ -203,7 +270,7 @@ bool bind_weights(Model& model, const Source& src, const TensorSet& set, Diagnos
         binder.blocks(model.stream->update_layers);
     }
     binder.unused(model);
-    if (used) *used = binder.used();
+    if (binding) *binding = binder.binding();
     return diags.error_count() == before;
 }
 

@@ -114,7 +114,7 @@ const std::vector<Row> kSyntaxRows = {
      "input x[4]\n"
      "dense a: 4 -> 2, tanhh\n"
      "output y[2]\n",
-     "bad.mnd:3:18: error: expected a layer option: an activation (identity, relu, leaky-relu, tanh, sigmoid, softplus, silu, gelu, elu, softmax), 'weight', 'bias', 'from' or 'no-bias'\n"
+     "bad.mnd:3:18: error: expected a layer option: an activation (identity, relu, leaky-relu, tanh, sigmoid, softplus, silu, gelu, elu, softmax), 'weight', 'bias', 'from', 'no-bias', 'transposed' or 'time-first'\n"
      "dense a: 4 -> 2, tanhh\n"
      "                 ^\n"},
     {"unterminated string",
@@ -322,7 +322,7 @@ const std::vector<Row> kSyntaxRows = {
      "input x[4]\n"
      "layer a: 4 -> 2\n"
      "output y[2]\n",
-     "bad.mnd:3:1: error: expected a statement: weights, input, state, dense, residual, continuous, blend, gated, merge or output\n"
+     "bad.mnd:3:1: error: expected a statement: weights, ignore, input, state, dense, residual, continuous, blend, gated, merge or output\n"
      "layer a: 4 -> 2\n"
      "^\n"},
     {"unknown statement in a block",
@@ -332,7 +332,7 @@ const std::vector<Row> kSyntaxRows = {
      "  dens a: 4 -> 4\n"
      "}\n"
      "output y[4]\n",
-     "bad.mnd:4:3: error: expected a statement inside the block: dense, residual, augment, solver, trained-with or '}'\n"
+     "bad.mnd:4:3: error: expected a statement inside the block: dense, residual, augment, numbered, layout, solver, trained-with or '}'\n"
      "  dens a: 4 -> 4\n"
      "  ^\n"},
     {"plus without t",
@@ -552,6 +552,172 @@ const std::vector<Row> kSyntaxRows = {
      "bad.mnd:4:3: error: expected '}' to close residual 'r' (opened on line 3)\n"
      "  continuous c: 4, t in [0, 1] {\n"
      "  ^\n"},
+    // Binding as training code names and lays out tensors: ignore, numbered, layout, transposed, time-first.
+    {"ignore without a quoted pattern",
+     "model m\n"
+     "weights \"w.npz\"\n"
+     "ignore mean\n"
+     "input x[4]\n"
+     "dense a: 4 -> 2\n"
+     "output y[2]\n",
+     "bad.mnd:3:8: error: expected a quoted tensor name pattern after 'ignore' ('*' stands for any run of characters, '?' for one)\n"
+     "ignore mean\n"
+     "       ^\n"},
+    {"ignore patterns without a comma",
+     "model m\n"
+     "weights \"w.npz\"\n"
+     "ignore \"mean\" \"std\"\n"
+     "input x[4]\n"
+     "dense a: 4 -> 2\n"
+     "output y[2]\n",
+     "bad.mnd:3:15: error: expected ',' before another pattern, or the end of the ignore statement\n"
+     "ignore \"mean\" \"std\"\n"
+     "              ^\n"},
+    {"ignore without weights",
+     "model m\n"
+     "ignore \"mean\"\n"
+     "input x[4]\n"
+     "dense a: 4 -> 2\n"
+     "output y[2]\n",
+     "bad.mnd:2:1: error: 'ignore' names tensors of the weights file: it comes after the 'weights' statement\n"
+     "ignore \"mean\"\n"
+     "^\n"},
+    {"ignore after input",
+     "model m\n"
+     "weights \"w.npz\"\n"
+     "input x[4]\n"
+     "ignore \"mean\"\n"
+     "dense a: 4 -> 2\n"
+     "output y[2]\n",
+     "bad.mnd:4:1: error: 'ignore' must come before 'input' and the layers\n"
+     "ignore \"mean\"\n"
+     "^\n"},
+    {"second ignore statement",
+     "model m\n"
+     "weights \"w.npz\"\n"
+     "ignore \"mean\"\n"
+     "ignore \"std\"\n"
+     "input x[4]\n"
+     "dense a: 4 -> 2\n"
+     "output y[2]\n",
+     "bad.mnd:4:1: error: a second 'ignore' statement (the first is on line 3); list every pattern in one\n"
+     "ignore \"std\"\n"
+     "^\n"},
+    {"numbered at the top level",
+     "model m\n"
+     "input x[4]\n"
+     "numbered \"net\"\n"
+     "dense a: 4 -> 2\n"
+     "output y[2]\n",
+     "bad.mnd:3:1: error: 'numbered' is allowed only inside a residual or continuous block (it applies to the block's layers)\n"
+     "numbered \"net\"\n"
+     "^\n"},
+    {"numbered without a quoted prefix",
+     "model m\n"
+     "input x[4]\n"
+     "residual r: 4 {\n"
+     "  numbered net\n"
+     "  dense a: 4 -> 4\n"
+     "}\n"
+     "output y[4]\n",
+     "bad.mnd:4:12: error: expected a quoted module prefix after 'numbered' (\"net\" binds net.0, net.2, ...)\n"
+     "  numbered net\n"
+     "           ^\n"},
+    {"numbered after a layer",
+     "model m\n"
+     "input x[4]\n"
+     "residual r: 4 {\n"
+     "  dense a: 4 -> 4\n"
+     "  numbered \"net\"\n"
+     "}\n"
+     "output y[4]\n",
+     "bad.mnd:5:3: error: 'numbered' must come before the layers of residual 'r'\n"
+     "  numbered \"net\"\n"
+     "  ^\n"},
+    {"numbered twice",
+     "model m\n"
+     "input x[4]\n"
+     "residual r: 4 {\n"
+     "  numbered \"net\"\n"
+     "  numbered \"body\"\n"
+     "  dense a: 4 -> 4\n"
+     "}\n"
+     "output y[4]\n",
+     "bad.mnd:5:3: error: residual 'r' already has a 'numbered' statement (line 4)\n"
+     "  numbered \"body\"\n"
+     "  ^\n"},
+    {"augment after numbered",
+     "model m\n"
+     "input x[4]\n"
+     "continuous c: 4, t in [0, 1] {\n"
+     "  numbered \"net\"\n"
+     "  augment 2\n"
+     "  dense f: 6 -> 6\n"
+     "  solver rk4, steps 4\n"
+     "}\n"
+     "output y[6]\n",
+     "bad.mnd:5:3: error: 'augment' must be the first statement of continuous 'c'\n"
+     "  augment 2\n"
+     "  ^\n"},
+    {"unknown layout",
+     "model m\n"
+     "input x[4]\n"
+     "residual r: 4 {\n"
+     "  layout columns\n"
+     "  dense a: 4 -> 4\n"
+     "}\n"
+     "output y[4]\n",
+     "bad.mnd:4:10: error: expected a layout: 'transposed' (weights stored (in, out)) or 'time-first' (the time column first)\n"
+     "  layout columns\n"
+     "         ^\n"},
+    {"layout given twice in one statement",
+     "model m\n"
+     "input x[4]\n"
+     "residual r: 4 {\n"
+     "  layout transposed, transposed\n"
+     "  dense a: 4 -> 4\n"
+     "}\n"
+     "output y[4]\n",
+     "bad.mnd:4:22: error: 'transposed' is given twice in the layout statement\n"
+     "  layout transposed, transposed\n"
+     "                     ^\n"},
+    {"second layout statement",
+     "model m\n"
+     "input x[4]\n"
+     "residual r: 4 {\n"
+     "  layout transposed\n"
+     "  layout time-first\n"
+     "  dense a: 4 -> 4\n"
+     "}\n"
+     "output y[4]\n",
+     "bad.mnd:5:3: error: residual 'r' already has a 'layout' statement (line 4)\n"
+     "  layout time-first\n"
+     "  ^\n"},
+    {"layout at the top level",
+     "model m\n"
+     "input x[4]\n"
+     "layout transposed\n"
+     "dense a: 4 -> 2\n"
+     "output y[2]\n",
+     "bad.mnd:3:1: error: 'layout' is allowed only inside a residual or continuous block (it applies to the block's layers)\n"
+     "layout transposed\n"
+     "^\n"},
+    {"time-first on a layer without time",
+     "model m\n"
+     "input x[4]\n"
+     "dense a: 4 -> 2, time-first\n"
+     "output y[2]\n",
+     "bad.mnd:3:18: error: layer 'a' has no time column: 'time-first' applies to a layer with '+ t'\n"
+     "dense a: 4 -> 2, time-first\n"
+     "                 ^\n"},
+    {"transposed twice on a layer",
+     "model m\n"
+     "input x[4]\n"
+     "dense a: 4 -> 2, transposed, tanh, transposed\n"
+     "output y[2]\n",
+     "bad.mnd:3:36: error: 'transposed' is given twice for layer 'a'\n"
+     "dense a: 4 -> 2, transposed, tanh, transposed\n"
+     "                                   ^\n"},
 };
 
 const std::vector<Row> kCheckRows = {
@@ -1174,7 +1340,7 @@ TEST(SeveralErrors, SyntaxErrorsInSeparateStatements) {
               "dense a 4 -> 8\n"
               "        ^\n"
               "bad.mnd:4:18: error: expected a layer option: an activation (identity, relu, leaky-relu, tanh, sigmoid, "
-              "softplus, silu, gelu, elu, softmax), 'weight', 'bias', 'from' or 'no-bias'\n"
+              "softplus, silu, gelu, elu, softmax), 'weight', 'bias', 'from', 'no-bias', 'transposed' or 'time-first'\n"
               "dense b: 8 -> 2, tanhh\n"
               "                 ^\n");
 }

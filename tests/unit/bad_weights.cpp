@@ -452,7 +452,7 @@ const BindCase bind_cases[] = {
      "greenhouse.mnd:4:7: error: layer 'lift': tensor 'lift.weight' has shape (4,), expected (4, 1)\n"
      "dense lift: 1 -> 4, tanh\n      ^\n"},
     {"weight_transposed", [](TensorSet& s) { named(s, "f1.weight") = tensor("f1.weight", {5, 4}); },
-     "greenhouse.mnd:6:9: error: layer 'f1': tensor 'f1.weight' has shape (5, 4), expected (4, 5): it looks transposed (a weight is (out, in))\n"
+     "greenhouse.mnd:6:9: error: layer 'f1': tensor 'f1.weight' has shape (5, 4), expected (4, 5): it looks transposed (a weight is (out, in); write 'transposed' for a file that stores (in, out))\n"
      "  dense f1: 4 + t -> 4, softplus\n        ^\n"},
     {"weight_without_time_column", [](TensorSet& s) { named(s, "f1.weight") = tensor("f1.weight", {4, 4}); },
      "greenhouse.mnd:6:9: error: layer 'f1': tensor 'f1.weight' has shape (4, 4), expected (4, 5): "
@@ -490,13 +490,15 @@ const BindCase bind_cases[] = {
      "greenhouse.mnd:4:7: error: layer 'lift': no tensor 'lift.weight' in greenhouse.mnw (it holds 6 tensors)\n"
      "dense lift: 1 -> 4, tanh\n      ^\n"},
     {"extra_tensor", [](TensorSet& s) { s.tensors.push_back(tensor("drift.scale", {1})); },
-     "greenhouse.mnd:2:9: error: tensor 'drift.scale' in greenhouse.mnw is not used by any layer\n"
+     "greenhouse.mnd:2:9: error: tensor 'drift.scale' in greenhouse.mnw is not used by any layer; a tensor the model does "
+     "not need goes in an 'ignore' statement\n"
      "weights \"greenhouse.mnw\"\n        ^\n"},
     {"extra_tensors", [](TensorSet& s) {
          s.tensors.push_back(tensor("spare", {2}));
          s.tensors.push_back(tensor("drift.scale", {1}));
      },
-     "greenhouse.mnd:2:9: error: 2 tensors in greenhouse.mnw are not used by any layer: 'spare', 'drift.scale'\n"
+     "greenhouse.mnd:2:9: error: 2 tensors in greenhouse.mnw are not used by any layer: 'spare', 'drift.scale'; a tensor "
+     "the model does not need goes in an 'ignore' statement\n"
      "weights \"greenhouse.mnw\"\n        ^\n"},
     {"bias_of_a_no_bias_layer", [](TensorSet& s) { s.tensors.push_back(tensor("head.bias", {1})); },
      "greenhouse.mnd:2:9: error: tensor 'head.bias' in greenhouse.mnw is not used by any layer\n"
