@@ -602,7 +602,8 @@ int main(int argc, char** argv) {
     verify->add_option("model", model, "description (.mnd)")->required();
     verify->add_option("--input", input, "CSV of input rows")->required();
     verify->add_option("--precision", precision, "float32 (default) or float64")->check(CLI::IsMember(precisions));
-    verify->add_option("--tolerance", tol, "fail when |emitted - eval| > tolerance * max(1, |eval|)")
+    verify->add_option("--tolerance", tol, "fail when |emitted - eval| > tolerance * max(1, |eval|) (float32, streaming models; "
+                       "float64 demands equal bits)")
         ->check(kFinitePositive);
     verify->add_option("--cxx", cxx, "host C++ compiler (default: $CXX, else c++)");
     verify->add_option("--keep", keep, "build in this folder and keep the files");

@@ -2,9 +2,12 @@
 
 #include <fmt/format.h>
 
+#include <algorithm>
 #include <cmath>
+#include <cstdint>
 #include <cstdio>
 #include <cstdlib>
+#include <cstring>
 #include <filesystem>
 #include <sstream>
 
@@ -71,6 +74,12 @@ std::string driver_source(const Model& m, const std::vector<std::vector<double>>
     return s;
 }
 
+std::uint64_t bits_of(double v) {
+    std::uint64_t u = 0;
+    std::memcpy(&u, &v, sizeof u);
+    return u;
+}
+
 unsigned status_code(EvalStatus s) {
     // The emitted result enumerators carry the same order (DEVELOPERS.md, emitted API).
     return static_cast<unsigned>(s);
@@ -84,7 +93,7 @@ namespace {
 // rows with the reference results (one per row).
 std::optional<VerifyReport> build_and_compare(const Model& model, const std::vector<EmittedFile>& files,
                                               const std::string& driver, const std::vector<EvalResult>& refs, Precision p,
-                                              const VerifyOptions& opts, Diagnostics& diags);
+                                              const VerifyOptions& opts, bool bits, Diagnostics& diags);
 
 }  // namespace
 
@@ -95,7 +104,7 @@ std::optional<VerifyReport> verify_model(const Model& model, const EmitOptions& 
     for (const auto& row : inputs)
         refs.push_back(evaluate(model, Eigen::Map<const Eigen::VectorXd>(row.data(), static_cast<Eigen::Index>(row.size()))));
     return build_and_compare(model, emit_model(model, emit_opts), driver_source(model, inputs, emit_opts.precision), refs,
-                             emit_opts.precision, opts, diags);
+                             emit_opts.precision, opts, emit_opts.precision == Precision::float64, diags);
 }
 
 std::optional<VerifyReport> verify_stream(const Model& model, const EmitOptions& emit_opts, const std::vector<SequenceRow>& rows,
@@ -103,14 +112,14 @@ std::optional<VerifyReport> verify_stream(const Model& model, const EmitOptions&
     std::vector<std::vector<double>> inputs;
     for (const auto& r : rows) inputs.push_back(r.values);
     return build_and_compare(model, emit_stream(model, emit_opts), driver_source(model, inputs, emit_opts.precision, &rows),
-                             evaluate_sequences(model, rows), emit_opts.precision, opts, diags);
+                             evaluate_sequences(model, rows), emit_opts.precision, opts, false, diags);
 }
 
 namespace {
 
 std::optional<VerifyReport> build_and_compare(const Model& model, const std::vector<EmittedFile>& files,
                                               const std::string& driver, const std::vector<EvalResult>& refs, Precision p,
-                                              const VerifyOptions& opts, Diagnostics& diags) {
+                                              const VerifyOptions& opts, bool bits, Diagnostics& diags) {
     auto folder = WorkFolder::open(opts.keep_dir, "meander-verify", diags);
     if (!folder) return std::nullopt;
     const fs::path dir = folder->path();
@@ -126,7 +135,8 @@ std::optional<VerifyReport> build_and_compare(const Model& model, const std::vec
     }
     // The flags users are told to build with: the emitted code must pass them.
     std::string cmd = fmt::format(
-        "{} -std=c++17 -O2 -Wall -Wextra -Wconversion -Wdouble-promotion -Wshadow -Wfloat-equal -Werror -fno-exceptions -fno-rtti "
+        "{} -std=c++17 -O2 -ffp-contract=off -Wall -Wextra -Wconversion -Wdouble-promotion -Wshadow -Wfloat-equal -Werror "
+        "-fno-exceptions -fno-rtti "
         "-o {} {} {} > {} 2>&1",
         cxx, shell_quote((dir / "verify_driver").string()), shell_quote((dir / "verify_driver.cpp").string()),
         shell_quote((dir / (model.name + ".cpp")).string()), shell_quote((dir / "build.log").string()));
@@ -149,6 +159,7 @@ std::optional<VerifyReport> build_and_compare(const Model& model, const std::vec
     rep.outputs = model.output_size;
     rep.tolerance = opts.tolerance >= 0 ? opts.tolerance : default_tolerance(p);
     rep.counters_must_match = p == Precision::float64;
+    rep.bits_must_match = bits;
     std::istringstream lines(*out);
     for (std::size_t r = 0; r < refs.size(); ++r) {
         std::string line;
@@ -165,8 +176,16 @@ std::optional<VerifyReport> build_and_compare(const Model& model, const std::vec
         const EvalResult& ref = refs[r];
         rep.eval_field_evals += ref.stats.field_evals;
         if (static_cast<long>(evals) != ref.stats.field_evals || static_cast<long>(taken) != ref.stats.steps_taken ||
-            static_cast<long>(rejected) != ref.stats.steps_rejected)
+            static_cast<long>(rejected) != ref.stats.steps_rejected) {
+            if (rep.counter_mismatches == 0) {
+                rep.first_counter_row = static_cast<int>(r);
+                const long got[3] = {static_cast<long>(evals), static_cast<long>(taken), static_cast<long>(rejected)};
+                const long want[3] = {ref.stats.field_evals, ref.stats.steps_taken, ref.stats.steps_rejected};
+                std::copy(got, got + 3, rep.first_counter_emitted);
+                std::copy(want, want + 3, rep.first_counter_eval);
+            }
             ++rep.counter_mismatches;
+        }
         rep.emitted.emplace_back();
         rep.reference.emplace_back();
         rep.reference_status.emplace_back(eval_status_name(ref.status));
@@ -185,7 +204,17 @@ std::optional<VerifyReport> build_and_compare(const Model& model, const std::vec
             rep.emitted.back().push_back(got);
             rep.reference.back().push_back(want);
             double abs_err = std::fabs(got - want);
-            if (!(abs_err <= rep.tolerance * std::max(1.0, std::fabs(want)))) ++rep.failures;
+            // The driver prints 17 significant digits: strtod gives back the exact double.
+            if (bits && bits_of(got) != bits_of(want)) {
+                if (rep.bit_mismatches == 0) {
+                    rep.first_bits_row = static_cast<int>(r);
+                    rep.first_bits_col = c;
+                    rep.first_bits_emitted = got;
+                    rep.first_bits_eval = want;
+                }
+                ++rep.bit_mismatches;
+            }
+            if (!bits && !(abs_err <= rep.tolerance * std::max(1.0, std::fabs(want)))) ++rep.failures;
             if (!(abs_err <= rep.max_abs)) {
                 rep.max_abs = abs_err;
                 rep.max_abs_row = static_cast<int>(r);
@@ -203,6 +232,16 @@ std::optional<VerifyReport> build_and_compare(const Model& model, const std::vec
 
 }  // namespace
 
+namespace {
+
+std::string hex_bits(double v) {
+    std::uint64_t u = 0;
+    std::memcpy(&u, &v, sizeof u);
+    return fmt::format("0x{:016x}", u);
+}
+
+}  // namespace
+
 std::string render_verify(const VerifyReport& r, Precision p) {
     std::string s;
     const int both_failed = r.rows - r.compared_rows - r.status_mismatches;
@@ -215,17 +254,32 @@ std::string render_verify(const VerifyReport& r, Precision p) {
     s += fmt::format("largest abs. error   {:.3g} (row {}, output {})\n", r.max_abs, r.max_abs_row + 1, r.max_abs_col);
     s += fmt::format("largest rel. error   {:.3g} (row {}, output {}; |emitted - eval| / |eval|)\n", r.max_rel,
                      r.max_rel_row + 1, r.max_rel_col);
-    s += fmt::format("tolerance            {:.3g} x max(1, |eval|){}\n", r.tolerance,
-                     r.tolerance == default_tolerance(p) ? " (default for this precision)" : "");
+    if (r.bits_must_match)
+        s += "required             equal bits for every output, equal counters\n";
+    else
+        s += fmt::format("tolerance            {:.3g} x max(1, |eval|){}\n", r.tolerance,
+                         r.tolerance == default_tolerance(p) ? " (default for this precision)" : "");
     s += fmt::format("field evaluations    emitted {}, eval {}\n", r.field_evals, r.eval_field_evals);
     s += fmt::format("steps                {} accepted, {} rejected\n", r.steps_taken, r.steps_rejected);
     if (r.counter_mismatches)
         s += fmt::format("counters             {} rows took other steps than eval{}\n", r.counter_mismatches,
                          r.counters_must_match ? "" : " (float rounding can change an accept/reject decision)");
+    if (r.counter_mismatches && r.counters_must_match)
+        s += fmt::format("first counters       row {}: emitted {} field evaluations, {} accepted, {} rejected; eval {}, {}, {}\n",
+                         r.first_counter_row + 1, r.first_counter_emitted[0], r.first_counter_emitted[1],
+                         r.first_counter_emitted[2], r.first_counter_eval[0], r.first_counter_eval[1],
+                         r.first_counter_eval[2]);
+    if (r.bit_mismatches)
+        s += fmt::format("bits                 {} outputs differ from eval; first: row {}, output {}: emitted {} ({:a}), "
+                         "eval {} ({:a})\n",
+                         r.bit_mismatches, r.first_bits_row + 1, r.first_bits_col, hex_bits(r.first_bits_emitted),
+                         r.first_bits_emitted, hex_bits(r.first_bits_eval), r.first_bits_eval);
     if (r.status_mismatches) s += fmt::format("result codes         {} rows differ from eval\n", r.status_mismatches);
     if (r.compared_rows == 0)
         return s + "verdict              NOTHING COMPARED: no row returned ok in both the emitted code and eval\n";
-    s += fmt::format("verdict              {}\n", r.passed() ? "agrees" : fmt::format("DISAGREES ({} outputs beyond tolerance, {} result codes, {} counters)", r.failures,
+    const std::string outputs_failed = r.bits_must_match ? fmt::format("{} outputs with other bits", r.bit_mismatches)
+                                                         : fmt::format("{} outputs beyond tolerance", r.failures);
+    s += fmt::format("verdict              {}\n", r.passed() ? "agrees" : fmt::format("DISAGREES ({}, {} result codes, {} counters)", outputs_failed,
                                                               r.status_mismatches, r.counters_must_match ? r.counter_mismatches : 0));
     return s;
 }

@@ -37,6 +37,14 @@ struct VerifyReport {
     int status_mismatches = 0;      // rows whose result code differs from eval's status
     int counter_mismatches = 0;     // rows whose field evaluations or steps differ from eval's
     bool counters_must_match = false;  // float64: the same arithmetic must take the same steps
+    // float64 (not streaming models yet): every output must equal eval's bit for bit
+    // (DEVELOPERS.md, "Operation order"); the tolerance is then not used.
+    bool bits_must_match = false;
+    int bit_mismatches = 0;         // outputs whose bits differ from eval's
+    int first_bits_row = -1, first_bits_col = -1;  // the first of them (0-based)
+    double first_bits_emitted = 0.0, first_bits_eval = 0.0;
+    int first_counter_row = -1;     // the first row whose counters differ (0-based)
+    long first_counter_emitted[3] = {0, 0, 0}, first_counter_eval[3] = {0, 0, 0};  // evals, taken, rejected
     long field_evals = 0, steps_taken = 0, steps_rejected = 0;  // emitted code, summed over rows
     long eval_field_evals = 0;      // reference evaluator, summed over rows
     std::vector<std::vector<double>> emitted, reference;  // per row (empty where a row returned no result)
@@ -45,7 +53,7 @@ struct VerifyReport {
     // Agreement needs something to agree on: at least one row compared.
     bool passed() const {
         return compared_rows > 0 && failures == 0 && status_mismatches == 0 &&
-               (!counters_must_match || counter_mismatches == 0);
+               (!counters_must_match || counter_mismatches == 0) && (!bits_must_match || bit_mismatches == 0);
     }
 };
 

@@ -2,24 +2,39 @@
 
 #include "activation.hpp"
 
+#include <cmath>
+
 namespace meander {
 
+// The operation order is the contract with the emitted code (DEVELOPERS.md,
+// "Operation order"): per output, a sum from zero over the inputs in ascending
+// order, the time column last, then the bias. A plain loop, not Eigen's
+// product, whose blocking sums in another order.
 void dense_affine(const Dense& d, double t, const Eigen::VectorXd& x, Eigen::VectorXd& z) {
-    if (d.time_input) {
-        Eigen::VectorXd xt(x.size() + 1);
-        xt << x, t;  // time is the last input column
-        z = d.weight * xt;
-    } else {
-        z = d.weight * x;
+    z.resize(d.out);
+    for (int j = 0; j < d.out; ++j) {
+        double acc = 0.0;
+        for (int i = 0; i < d.in; ++i) acc += d.weight(j, i) * x[i];
+        if (d.time_input) acc += d.weight(j, d.in) * t;  // time is the last input column
+        if (d.has_bias) acc += d.bias[j];
+        z[j] = acc;
     }
-    if (d.has_bias) z += d.bias;
 }
 
 void dense_activate(const Dense& d, Eigen::VectorXd& y) {
     if (d.act == Activation::softmax) {
-        // Max-subtracted: exp never overflows and the largest term is 1.
-        const Eigen::ArrayXd z = (y.array() - y.maxCoeff()).exp();
-        y = (z / z.sum()).matrix();
+        // Max-subtracted: exp never overflows and the largest term is 1. The
+        // C library's exp, the sum in ascending order, then a division (not
+        // Eigen's vectorised exp and blocked sum): the emitted code does the same.
+        double top = y[0];
+        for (Eigen::Index i = 1; i < y.size(); ++i)
+            if (y[i] > top) top = y[i];
+        double sum = 0.0;
+        for (Eigen::Index i = 0; i < y.size(); ++i) {
+            y[i] = std::exp(y[i] - top);
+            sum += y[i];
+        }
+        for (Eigen::Index i = 0; i < y.size(); ++i) y[i] = y[i] / sum;
         return;
     }
     for (Eigen::Index i = 0; i < y.size(); ++i) y[i] = activate(d.act, y[i], d.act_param);

@@ -8,9 +8,13 @@ namespace meander {
 
 namespace {
 
+// sqrt(mean of squares): the squares summed from zero in ascending order, then
+// divided by n (DEVELOPERS.md, "Operation order"; not Eigen's blocked squaredNorm).
 double rms(const Eigen::VectorXd& v) {
     if (v.size() == 0) return 0.0;
-    return std::sqrt(v.squaredNorm() / static_cast<double>(v.size()));
+    double sum = 0.0;
+    for (Eigen::Index i = 0; i < v.size(); ++i) sum += v[i] * v[i];
+    return std::sqrt(sum / static_cast<double>(v.size()));
 }
 
 void note_accepted(IntegrateStats& stats, double h) {
@@ -20,16 +24,36 @@ void note_accepted(IntegrateStats& stats, double h) {
     stats.steps_taken += 1;
 }
 
-// out = y + h * sum_{j < count} w[j] k[j]. Zero weights are skipped: cheaper,
-// and a non-finite stage that the method does not use cannot poison the sum.
-void combine(const Eigen::VectorXd& y, double h, const std::vector<Coefficient>& w, std::size_t offset,
-             std::size_t count, const std::vector<Eigen::VectorXd>& k, Eigen::VectorXd& out) {
-    Eigen::VectorXd sum = Eigen::VectorXd::Zero(y.size());
+// sum = w[a] k[a] + w[b] k[b] + ... over the non-zero weights in stage
+// order, starting at the first term (not at zero); false when every weight is
+// zero. Zero weights are skipped: cheaper, and a non-finite stage that the
+// method does not use cannot poison the sum.
+bool weighted_sum(const std::vector<Coefficient>& w, std::size_t offset, std::size_t count,
+                  const std::vector<Eigen::VectorXd>& k, Eigen::VectorXd& sum) {
+    bool any = false;
     for (std::size_t j = 0; j < count; ++j) {
         const double wj = w[offset + j].value;
-        if (wj != 0.0) sum += wj * k[j];
+        if (wj == 0.0) continue;
+        if (any) {
+            for (Eigen::Index i = 0; i < sum.size(); ++i) sum[i] += wj * k[j][i];
+        } else {
+            for (Eigen::Index i = 0; i < sum.size(); ++i) sum[i] = wj * k[j][i];
+            any = true;
+        }
     }
-    out = y + h * sum;
+    return any;
+}
+
+// out = y + h * (sum_j w[j] k[j]), or y itself when every weight is zero.
+void combine(const Eigen::VectorXd& y, double h, const std::vector<Coefficient>& w, std::size_t offset,
+             std::size_t count, const std::vector<Eigen::VectorXd>& k, Eigen::VectorXd& out) {
+    Eigen::VectorXd sum(y.size());
+    if (!weighted_sum(w, offset, count, k, sum)) {
+        out = y;
+        return;
+    }
+    out.resize(y.size());
+    for (Eigen::Index i = 0; i < y.size(); ++i) out[i] = y[i] + h * sum[i];
 }
 
 // One step of the tableau from (t, y) with k[0] = f(t, y) already filled.
@@ -107,15 +131,10 @@ IntegrateStatus integrate_adaptive(const Field& f, const Tableau& tb, double t0,
             h_abs = std::fabs(h);
 
             rk_step(f, tb, t, h, t_new, y, k, y_new, stats);
-            err_vec.setZero();
-            for (std::size_t i = 0; i < s; ++i) {
-                const double ei = tb.e[i].value;
-                if (ei != 0.0) err_vec += ei * k[i];
-            }
-            err_vec *= h;
+            if (!weighted_sum(tb.e, 0, s, k, err_vec)) err_vec.setZero();
             for (Eigen::Index i = 0; i < y.size(); ++i) {
                 const double sc = spec.atol + spec.rtol * std::max(std::fabs(y[i]), std::fabs(y_new[i]));
-                err_vec[i] /= sc;
+                err_vec[i] = h * err_vec[i] / sc;
             }
             const double err = rms(err_vec);
             attempts += 1;
@@ -164,15 +183,24 @@ IntegrateStatus integrate_adaptive(const Field& f, const Tableau& tb, double t0,
 
 double initial_step(const Field& f, double t0, const Eigen::VectorXd& y0, const Eigen::VectorXd& f0,
                     double direction, int q, double rtol, double atol, IntegrateStats& stats) {
-    const Eigen::VectorXd sc = (y0.cwiseAbs() * rtol).array() + atol;
-    const double d0 = rms(y0.cwiseQuotient(sc));
-    const double d1 = rms(f0.cwiseQuotient(sc));
+    // Element by element, each operation as the emitted code writes it.
+    const Eigen::Index n = y0.size();
+    Eigen::VectorXd sc(n), q0(n), q1(n), y1(n), q2(n);
+    for (Eigen::Index i = 0; i < n; ++i) {
+        sc[i] = std::fabs(y0[i]) * rtol + atol;
+        q0[i] = y0[i] / sc[i];
+        q1[i] = f0[i] / sc[i];
+    }
+    const double d0 = rms(q0);
+    const double d1 = rms(q1);
     const double h0 = (d0 < 1e-5 || d1 < 1e-5) ? 1e-6 : 0.01 * d0 / d1;
-    const Eigen::VectorXd y1 = y0 + h0 * direction * f0;
-    Eigen::VectorXd f1(y0.size());
-    f(t0 + h0 * direction, y1, f1);
+    const double step = h0 * direction;  // direction is +-1: exact
+    for (Eigen::Index i = 0; i < n; ++i) y1[i] = y0[i] + step * f0[i];
+    Eigen::VectorXd f1(n);
+    f(t0 + step, y1, f1);
     stats.field_evals += 1;
-    const double d2 = rms((f1 - f0).cwiseQuotient(sc)) / h0;
+    for (Eigen::Index i = 0; i < n; ++i) q2[i] = (f1[i] - f0[i]) / sc[i];
+    const double d2 = rms(q2) / h0;
     const double h1 = (d1 <= 1e-15 && d2 <= 1e-15) ? std::max(1e-6, h0 * 1e-3)
                                                    : std::pow(0.01 / std::max(d1, d2), 1.0 / (q + 1));
     return std::min(100.0 * h0, h1);

@@ -16,10 +16,10 @@ std::string render_dense_layers(const Emission& e) {
                          d.time_input ? "real t, " : "");
         o += fmt::format("    for (std::size_t o = 0; o < {}; ++o) {{\n", d.out);
         o += fmt::format("        const real* w = w_{} + o * {};\n", d.name, cols);
-        o += d.has_bias ? fmt::format("        real acc = b_{}[o];\n", d.name)
-                        : fmt::format("        real acc = {};\n", e.L(0));
+        o += fmt::format("        real acc = {};\n", e.L(0));
         o += fmt::format("        for (std::size_t i = 0; i < {}; ++i) acc += w[i] * x[i];\n", d.in);
         if (d.time_input) o += fmt::format("        acc += w[{}] * t;\n", d.in);
+        if (d.has_bias) o += fmt::format("        acc += b_{}[o];\n", d.name);
         o += fmt::format("        y[o] = {};\n", apply_activation(e, d, "acc"));
         o += "    }\n";
         if (d.act == Activation::softmax) {
@@ -30,8 +30,7 @@ std::string render_dense_layers(const Emission& e) {
             o += fmt::format("    real sum = {};\n", e.L(0));
             o += fmt::format("    for (std::size_t o = 0; o < {}; ++o) {{\n", d.out);
             o += fmt::format("        y[o] = {}(y[o] - top);\n        sum += y[o];\n    }}\n", e.math("exp"));
-            o += fmt::format("    const real inv_sum = {} / sum;\n", e.L(1));
-            o += fmt::format("    for (std::size_t o = 0; o < {}; ++o) y[o] *= inv_sum;\n", d.out);
+            o += fmt::format("    for (std::size_t o = 0; o < {}; ++o) y[o] = y[o] / sum;\n", d.out);
         }
         o += "}\n\n";
     });

@@ -138,8 +138,9 @@ std::string banner(const Model& model, const EmitOptions& opts, std::string_view
         o += "// bits: the same outputs on every core when built with -ffp-contract=off (no FMA\n";
         o += "//   contraction), without -ffast-math, rounding to nearest, subnormals kept;\n";
     } else {
-        o += "// math: the C++ library's <cmath>; build with -ffp-contract=off, without -ffast-math,\n";
-        o += "//   rounding to nearest, subnormals kept;\n";
+        o += "// math: the C++ library's <cmath>, as meander eval uses it: with the same library, built\n";
+        o += "//   with -ffp-contract=off, without -ffast-math, rounding to nearest, subnormals kept,\n";
+        o += "//   outputs and counters equal eval's bit for bit (the same operations in the same order);\n";
     }
     o += "//   build_conditions_hold() checks a build, the self-test reports it\n";
     banner_blocks(o, model.blocks);

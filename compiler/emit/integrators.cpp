@@ -47,7 +47,8 @@ void adaptive_body(const Emission& e, std::string& o, const ContinuousPlan& cp, 
     o += fmt::format("    constexpr real rtol = {};\n", e.L(sp.rtol));
     o += fmt::format("    constexpr real atol = {};\n", e.L(sp.atol));
     o += fmt::format("    constexpr std::uint32_t max_steps = {}u;  // attempted steps\n", sp.max_steps);
-    o += fmt::format("    constexpr real inv_n = {};  // 1/n, for the rms norm\n", e.L(1.0 / static_cast<double>(cp.n)));
+    o += fmt::format("    constexpr real n_real = {};  // rms norms divide by n, as eval does\n",
+                     e.L(static_cast<double>(cp.n)));
     o += fmt::format("    constexpr real safety = {};\n", e.L(sp.safety));
     o += fmt::format("    constexpr real min_factor = {};\n", e.L(sp.min_factor));
     o += fmt::format("    constexpr real max_factor = {};\n", e.L(sp.max_factor));
@@ -68,12 +69,12 @@ void adaptive_body(const Emission& e, std::string& o, const ContinuousPlan& cp, 
         o += "        // Initial step: HNW I, II.4 (SciPy 1.10 select_initial_step).\n";
         o += fmt::format("        real s0 = {0};\n        real s1 = {0};\n", e.L(0));
         o += "        for (std::size_t j = 0; j < n; ++j) {\n";
-        o += "            const real inv_sc = " + e.L(1) + " / (std::fabs(y[j]) * rtol + atol);\n";
-        o += "            const real q0 = y[j] * inv_sc;\n";
-        o += "            const real q1 = k1[j] * inv_sc;\n";
+        o += "            const real sc = std::fabs(y[j]) * rtol + atol;\n";
+        o += "            const real q0 = y[j] / sc;\n";
+        o += "            const real q1 = k1[j] / sc;\n";
         o += "            s0 += q0 * q0;\n            s1 += q1 * q1;\n        }\n";
-        o += "        const real d0 = std::sqrt(s0 * inv_n);\n";
-        o += "        const real d1 = std::sqrt(s1 * inv_n);\n";
+        o += "        const real d0 = std::sqrt(s0 / n_real);\n";
+        o += "        const real d1 = std::sqrt(s1 / n_real);\n";
         o += fmt::format("        const real h0 = (d0 < {0} || d1 < {0}) ? {1} : {2} * d0 / d1;\n", e.L(1e-5),
                          e.L(1e-6), e.L(0.01));
         o += fmt::format("        for (std::size_t j = 0; j < n; ++j) arg[j] = y[j] {} h0 * k1[j];\n", plus);
@@ -82,7 +83,7 @@ void adaptive_body(const Emission& e, std::string& o, const ContinuousPlan& cp, 
         o += "        for (std::size_t j = 0; j < n; ++j) {\n";
         o += "            const real q2 = (k2[j] - k1[j]) / (std::fabs(y[j]) * rtol + atol);\n";
         o += "            s2 += q2 * q2;\n        }\n";
-        o += "        const real d2 = std::sqrt(s2 * inv_n) / h0;\n";
+        o += "        const real d2 = std::sqrt(s2 / n_real) / h0;\n";
         o += "        const real dmax = d1 < d2 ? d2 : d1;\n";
         o += fmt::format("        const real h1 = (d1 <= {0} && d2 <= {0})\n", e.L(1e-15));
         o += fmt::format("                            ? ({0} < h0 * {1} ? h0 * {1} : {0})\n", e.L(1e-6), e.L(1e-3));
@@ -119,7 +120,7 @@ void adaptive_body(const Emission& e, std::string& o, const ContinuousPlan& cp, 
     o += "                const real q = e / (atol + rtol * (ay < ay_new ? ay_new : ay));\n";
     o += "                sum += q * q;\n";
     o += "            }\n";
-    o += "            const real err = std::sqrt(sum * inv_n);\n";
+    o += "            const real err = std::sqrt(sum / n_real);\n";
     o += "            ++attempts;\n";
     o += fmt::format("            if (!(err < {})) {{  // reject (a NaN error too: it shrinks by min-factor)\n",
                      e.L(1));

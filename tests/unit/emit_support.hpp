@@ -83,8 +83,8 @@ inline std::vector<std::vector<double>> random_inputs(std::uint64_t seed, int co
 
 // The flags every emitted file must pass (DEVELOPERS.md, "The emitted API").
 inline std::string strict_flags() {
-    return "-std=c++17 -O2 -Wall -Wextra -Wpedantic -Wconversion -Wdouble-promotion -Wshadow -Wfloat-equal -Werror "
-           "-fno-exceptions -fno-rtti";
+    return "-std=c++17 -O2 -ffp-contract=off -Wall -Wextra -Wpedantic -Wconversion -Wdouble-promotion -Wshadow "
+           "-Wfloat-equal -Werror -fno-exceptions -fno-rtti";
 }
 
 inline void write_files(const std::filesystem::path& dir, const std::vector<EmittedFile>& files) {

@@ -182,9 +182,10 @@ bool all_finite(const real* v, std::size_t n) noexcept {
 void dense_g1(const real* x, real t, real* y) noexcept {
     for (std::size_t o = 0; o < 5; ++o) {
         const real* w = w_g1 + o * 4;
-        real acc = b_g1[o];
+        real acc = 0.0f;
         for (std::size_t i = 0; i < 3; ++i) acc += w[i] * x[i];
         acc += w[3] * t;
+        acc += b_g1[o];
         y[o] = act_softplus(acc);
     }
 }
@@ -258,7 +259,7 @@ result block_drift(real* work, const real* in, real* out, counters& count) noexc
     constexpr real rtol = 0.0001f;
     constexpr real atol = 1e-06f;
     constexpr std::uint32_t max_steps = 32u;  // attempted steps
-    constexpr real inv_n = 0.33333334f;  // 1/n, for the rms norm
+    constexpr real n_real = 3.0f;  // rms norms divide by n, as eval does
     constexpr real safety = 0.9f;
     constexpr real min_factor = 0.2f;
     constexpr real max_factor = 10.0f;
@@ -273,14 +274,14 @@ result block_drift(real* work, const real* in, real* out, counters& count) noexc
         real s0 = 0.0f;
         real s1 = 0.0f;
         for (std::size_t j = 0; j < n; ++j) {
-            const real inv_sc = 1.0f / (std::fabs(y[j]) * rtol + atol);
-            const real q0 = y[j] * inv_sc;
-            const real q1 = k1[j] * inv_sc;
+            const real sc = std::fabs(y[j]) * rtol + atol;
+            const real q0 = y[j] / sc;
+            const real q1 = k1[j] / sc;
             s0 += q0 * q0;
             s1 += q1 * q1;
         }
-        const real d0 = std::sqrt(s0 * inv_n);
-        const real d1 = std::sqrt(s1 * inv_n);
+        const real d0 = std::sqrt(s0 / n_real);
+        const real d1 = std::sqrt(s1 / n_real);
         const real h0 = (d0 < 1e-05f || d1 < 1e-05f) ? 1e-06f : 0.01f * d0 / d1;
         for (std::size_t j = 0; j < n; ++j) arg[j] = y[j] + h0 * k1[j];
         field_drift(work, t + h0, arg, k2, count);
@@ -289,7 +290,7 @@ result block_drift(real* work, const real* in, real* out, counters& count) noexc
             const real q2 = (k2[j] - k1[j]) / (std::fabs(y[j]) * rtol + atol);
             s2 += q2 * q2;
         }
-        const real d2 = std::sqrt(s2 * inv_n) / h0;
+        const real d2 = std::sqrt(s2 / n_real) / h0;
         const real dmax = d1 < d2 ? d2 : d1;
         const real h1 = (d1 <= 1e-15f && d2 <= 1e-15f)
                             ? (1e-06f < h0 * 0.001f ? h0 * 0.001f : 1e-06f)
@@ -330,7 +331,7 @@ result block_drift(real* work, const real* in, real* out, counters& count) noexc
                 const real q = e / (atol + rtol * (ay < ay_new ? ay_new : ay));
                 sum += q * q;
             }
-            const real err = std::sqrt(sum * inv_n);
+            const real err = std::sqrt(sum / n_real);
             ++attempts;
             if (!(err < 1.0f)) {  // reject (a NaN error too: it shrinks by min-factor)
                 const real shrink = safety * pow_kernel(err, exponent);

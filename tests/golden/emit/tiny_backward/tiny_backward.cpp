@@ -2,8 +2,9 @@
 // model: tiny_backward
 // content hash (description and weights): 0123456789abcdef
 // precision: float64 (real = double)
-// math: the C++ library's <cmath>; build with -ffp-contract=off, without -ffast-math,
-//   rounding to nearest, subnormals kept;
+// math: the C++ library's <cmath>, as meander eval uses it: with the same library, built
+//   with -ffp-contract=off, without -ffast-math, rounding to nearest, subnormals kept,
+//   outputs and counters equal eval's bit for bit (the same operations in the same order);
 //   build_conditions_hold() checks a build, the self-test reports it
 // continuous rewind: state 2 (2 + augment 0), t from 1 to 0
 //   method: Cash-Karp 5(4) (`cash-karp`); coefficients from Cash & Karp, ACM Trans. Math. Softw. 16(3):201-222, 1990
@@ -26,7 +27,7 @@
 #include <cstddef>
 #include <cstdint>
 
-#if !defined(TINY_BACKWARD_MEANDER_STAMP) || TINY_BACKWARD_MEANDER_STAMP != 0xc07bbd4674930b6bULL
+#if !defined(TINY_BACKWARD_MEANDER_STAMP) || TINY_BACKWARD_MEANDER_STAMP != 0xf631752eecc82f06ULL
 #error "tiny_backward.hpp is not the header generated with this source: regenerate both"
 #endif
 
@@ -73,8 +74,9 @@ bool all_finite(const real* v, std::size_t n) noexcept {
 void dense_h1(const real* x, real* y) noexcept {
     for (std::size_t o = 0; o < 2; ++o) {
         const real* w = w_h1 + o * 2;
-        real acc = b_h1[o];
+        real acc = 0.0;
         for (std::size_t i = 0; i < 2; ++i) acc += w[i] * x[i];
+        acc += b_h1[o];
         y[o] = act_elu(acc, 1.0);
     }
 }
@@ -133,7 +135,7 @@ result block_rewind(real* work, const real* in, real* out, counters& count) noex
     constexpr real rtol = 1e-08;
     constexpr real atol = 1e-10;
     constexpr std::uint32_t max_steps = 100u;  // attempted steps
-    constexpr real inv_n = 0.5;  // 1/n, for the rms norm
+    constexpr real n_real = 2.0;  // rms norms divide by n, as eval does
     constexpr real safety = 0.9;
     constexpr real min_factor = 0.2;
     constexpr real max_factor = 10.0;
@@ -146,14 +148,14 @@ result block_rewind(real* work, const real* in, real* out, counters& count) noex
         real s0 = 0.0;
         real s1 = 0.0;
         for (std::size_t j = 0; j < n; ++j) {
-            const real inv_sc = 1.0 / (std::fabs(y[j]) * rtol + atol);
-            const real q0 = y[j] * inv_sc;
-            const real q1 = k1[j] * inv_sc;
+            const real sc = std::fabs(y[j]) * rtol + atol;
+            const real q0 = y[j] / sc;
+            const real q1 = k1[j] / sc;
             s0 += q0 * q0;
             s1 += q1 * q1;
         }
-        const real d0 = std::sqrt(s0 * inv_n);
-        const real d1 = std::sqrt(s1 * inv_n);
+        const real d0 = std::sqrt(s0 / n_real);
+        const real d1 = std::sqrt(s1 / n_real);
         const real h0 = (d0 < 1e-05 || d1 < 1e-05) ? 1e-06 : 0.01 * d0 / d1;
         for (std::size_t j = 0; j < n; ++j) arg[j] = y[j] - h0 * k1[j];
         field_rewind(t - h0, arg, k2, count);
@@ -162,7 +164,7 @@ result block_rewind(real* work, const real* in, real* out, counters& count) noex
             const real q2 = (k2[j] - k1[j]) / (std::fabs(y[j]) * rtol + atol);
             s2 += q2 * q2;
         }
-        const real d2 = std::sqrt(s2 * inv_n) / h0;
+        const real d2 = std::sqrt(s2 / n_real) / h0;
         const real dmax = d1 < d2 ? d2 : d1;
         const real h1 = (d1 <= 1e-15 && d2 <= 1e-15)
                             ? (1e-06 < h0 * 0.001 ? h0 * 0.001 : 1e-06)
@@ -201,7 +203,7 @@ result block_rewind(real* work, const real* in, real* out, counters& count) noex
                 const real q = e / (atol + rtol * (ay < ay_new ? ay_new : ay));
                 sum += q * q;
             }
-            const real err = std::sqrt(sum * inv_n);
+            const real err = std::sqrt(sum / n_real);
             ++attempts;
             if (!(err < 1.0)) {  // reject (a NaN error too: it shrinks by min-factor)
                 const real shrink = safety * std::pow(err, exponent);

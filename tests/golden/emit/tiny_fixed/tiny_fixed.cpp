@@ -174,8 +174,9 @@ bool all_finite(const real* v, std::size_t n) noexcept {
 void dense_lift(const real* x, real* y) noexcept {
     for (std::size_t o = 0; o < 3; ++o) {
         const real* w = w_lift + o * 2;
-        real acc = b_lift[o];
+        real acc = 0.0f;
         for (std::size_t i = 0; i < 2; ++i) acc += w[i] * x[i];
+        acc += b_lift[o];
         y[o] = act_relu(acc);
     }
 }
@@ -184,9 +185,10 @@ void dense_lift(const real* x, real* y) noexcept {
 void dense_f1(const real* x, real t, real* y) noexcept {
     for (std::size_t o = 0; o < 4; ++o) {
         const real* w = w_f1 + o * 4;
-        real acc = b_f1[o];
+        real acc = 0.0f;
         for (std::size_t i = 0; i < 3; ++i) acc += w[i] * x[i];
         acc += w[3] * t;
+        acc += b_f1[o];
         y[o] = act_tanh(acc);
     }
 }
@@ -195,8 +197,9 @@ void dense_f1(const real* x, real t, real* y) noexcept {
 void dense_f2(const real* x, real* y) noexcept {
     for (std::size_t o = 0; o < 3; ++o) {
         const real* w = w_f2 + o * 4;
-        real acc = b_f2[o];
+        real acc = 0.0f;
         for (std::size_t i = 0; i < 4; ++i) acc += w[i] * x[i];
+        acc += b_f2[o];
         y[o] = acc;
     }
 }
@@ -205,8 +208,9 @@ void dense_f2(const real* x, real* y) noexcept {
 void dense_r1(const real* x, real* y) noexcept {
     for (std::size_t o = 0; o < 3; ++o) {
         const real* w = w_r1 + o * 3;
-        real acc = b_r1[o];
+        real acc = 0.0f;
         for (std::size_t i = 0; i < 3; ++i) acc += w[i] * x[i];
+        acc += b_r1[o];
         y[o] = act_silu(acc);
     }
 }
@@ -215,8 +219,9 @@ void dense_r1(const real* x, real* y) noexcept {
 void dense_head(const real* x, real* y) noexcept {
     for (std::size_t o = 0; o < 2; ++o) {
         const real* w = w_head + o * 3;
-        real acc = b_head[o];
+        real acc = 0.0f;
         for (std::size_t i = 0; i < 3; ++i) acc += w[i] * x[i];
+        acc += b_head[o];
         y[o] = acc;
     }
     // Max-subtracted: exp never overflows and the largest term is 1.
@@ -228,8 +233,7 @@ void dense_head(const real* x, real* y) noexcept {
         y[o] = exp_kernel(y[o] - top);
         sum += y[o];
     }
-    const real inv_sum = 1.0f / sum;
-    for (std::size_t o = 0; o < 2; ++o) y[o] *= inv_sum;
+    for (std::size_t o = 0; o < 2; ++o) y[o] = y[o] / sum;
 }
 
 // The field of glide: dx = f(x, t); one call is one field evaluation.
