@@ -17,6 +17,7 @@
 #include "../runtime/evaluate.hpp"
 #include "../runtime/integrate.hpp"
 #include "../runtime/tableau.hpp"
+#include "cost_cycles.hpp"
 #include "cost_object.hpp"
 #include "emit.hpp"
 #include "lower.hpp"
@@ -349,6 +350,33 @@ std::optional<CostReport> measure_cost(const Model& model, const CostOptions& op
         if (!measure_object(model, files, opts, rep.core, block_names, rep, diags)) return std::nullopt;
     } else {
         rep.code_bytes = estimate_code_bytes(model, rep.core);
+    }
+
+    // Cycles measured on the emulated cores, over the input rows (one row of zeros without them).
+    if (!opts.measure_cycles) {
+        rep.cycles_not_measured = "measurement turned off (--estimate-only)";
+    } else if (opts.cross_prefix.empty()) {
+        rep.cycles_not_measured = "no cross compiler";
+    } else {
+        std::vector<std::vector<double>> rows = opts.inputs;
+        Measured evals = measured;
+        if (rows.empty()) {
+            rows.assign(1, std::vector<double>(static_cast<std::size_t>(model.input_size), 0.0));
+            evals = measure_evals(model, rows);
+            rep.measured_on_zero_row = true;
+        }
+        std::vector<std::vector<long>> per_row(rows.size(), std::vector<long>(model.blocks.size(), 0));
+        for (const auto& [block, v] : evals.per_block)
+            for (std::size_t r = 0; r < v.size() && r < rows.size(); ++r) per_row[r][block] = v[r];
+        CyclesOptions co;
+        co.cross_prefix = opts.cross_prefix;
+        co.qemu = opts.qemu;
+        co.keep_dir = opts.keep_dir.empty() ? "" : opts.keep_dir + "/cycles";
+        std::string missing;
+        if (!measure_cycles(model, files, {CoreClass::cortex_m4f, CoreClass::cortex_m3, CoreClass::cortex_m7}, rows,
+                            per_row, co, rep.measured_cycles, missing, diags))
+            return std::nullopt;
+        if (!missing.empty()) rep.cycles_not_measured = fmt::format("{} is not on PATH", missing);
     }
 
     const CoreFigures& chosen = core_figures(rep.core);

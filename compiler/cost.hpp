@@ -9,6 +9,7 @@
 // estimate from per-operation figures whose sources the report states.
 #pragma once
 
+#include <map>
 #include <optional>
 #include <string>
 #include <string_view>
@@ -51,6 +52,10 @@ struct CostOptions {
     // Non-empty: compile in this folder and keep the files (for tests and
     // for a look at the object); otherwise a temporary folder is removed.
     std::string keep_dir;
+    // Measure cycles on the emulated cores (compiler/cost_cycles.hpp) when the
+    // cross tools and qemu are on PATH; false: the static estimate only.
+    bool measure_cycles = true;
+    std::string qemu = "qemu-system-arm";
     // The emitter's options for the measured code (banner, C entry point);
     // its precision is replaced by `precision`, self-test vectors are ignored.
     EmitOptions emit;
@@ -97,6 +102,42 @@ struct CoreCycles {
     std::optional<double> median;           // with the measured median field evaluations
 };
 
+// Cycles measured on an emulated core (compiler/cost_cycles.hpp).
+struct CycleSpread {
+    double min = 0.0;
+    double median = 0.0;
+    double max = 0.0;
+};
+
+struct MeasuredBlockCycles {
+    std::string name;
+    CycleSpread cycles;
+};
+
+struct MeasuredCycles {
+    CoreClass core = CoreClass::cortex_m4f;
+    std::string machine;                 // qemu board, "mps2-an386"
+    std::string compiler;                // "arm-none-eabi-g++ 12.2.1 -mcpu=... -Os -ffp-contract=off"
+    std::string emulator;                // "qemu-system-arm 7.2.22"
+    std::string timings;                 // the document and rules the prices come from
+    int rows = 0;
+    int failed_rows = 0;                 // rows whose infer returned a result other than ok
+    CycleSpread cycles;                  // per inference
+    CycleSpread instructions;            // per inference
+    std::vector<MeasuredBlockCycles> blocks;  // top-level blocks, from the timing hook
+    // Over all rows: cycles of the instructions whose innermost source function is a
+    // dense layer's (the multiply-accumulate loops, bias and stores) per MAC; -1 unknown.
+    double dense_cycles_per_mac = -1.0;
+    // Cycles of the activation kernels (inlined into the dense functions or called
+    // from them) per activation evaluation, by activation name, and over all.
+    std::map<std::string, double> activation_cycles;
+    double cycles_per_activation = -1.0;
+    double other_cycles = 0.0;           // mean per inference of the rest (solver, checks, copies)
+    double dense_cycles_total = 0.0;     // over all rows: the dense layers' own code
+    double activation_cycles_total = 0.0;  // over all rows: the activation kernels
+    std::vector<std::string> unpriced;   // mnemonics not in the table (priced 1 cycle each)
+};
+
 struct CostReport {
     std::string model;
     Precision precision = Precision::float32;
@@ -135,6 +176,10 @@ struct CostReport {
     double cycles_per_mac = 0.0;            // the figure used for `core`
     bool cycles_per_mac_overridden = false;
     std::vector<CoreCycles> cycles;         // `core` first, then the other classes
+
+    std::vector<MeasuredCycles> measured_cycles;  // one per emulated core (cortex-m4f, cortex-m3, cortex-m7)
+    std::string cycles_not_measured;              // why there is no measured figure (empty when there is)
+    bool measured_on_zero_row = false;            // no --input: one row of zeros was run
 };
 
 // `model` must have passed check_model and bind_weights (the emitter needs

@@ -56,6 +56,57 @@ std::string short_name(const std::string& full) {
     return s;
 }
 
+std::string spread3(const CycleSpread& s) {
+    return fmt::format("{:.0f} / {:.0f} / {:.0f}", s.min, s.median, s.max);
+}
+
+std::string render_measured_text(const CostReport& r) {
+    std::string t;
+    if (r.measured_cycles.empty()) {
+        t += fmt::format("\nmeasured cycles: none ({}); the figures above are the static estimate only\n",
+                         r.cycles_not_measured.empty() ? "no emulated core" : r.cycles_not_measured);
+        return t;
+    }
+    const MeasuredCycles& first = r.measured_cycles.front();
+    t += fmt::format("\nmeasured cycles per inference on the emulated cores ({} row{}{}; min / median / max)\n", first.rows,
+                     first.rows == 1 ? "" : "s", r.measured_on_zero_row ? " of zeros: no --input given" : "");
+    std::vector<std::vector<std::string>> rows;
+    rows.push_back({"core", "board", "cycles", "instructions", "cycles/MAC", "cycles/activation"});
+    for (const MeasuredCycles& m : r.measured_cycles)
+        rows.push_back({std::string(core_name(m.core)), m.machine, spread3(m.cycles), spread3(m.instructions),
+                        m.dense_cycles_per_mac < 0 ? "-" : fmt::format("{:.2f}", m.dense_cycles_per_mac),
+                        m.cycles_per_activation < 0 ? "-" : fmt::format("{:.1f}", m.cycles_per_activation)});
+    t += table(rows, 2);
+    t += "per block (median cycles per inference)\n";
+    std::vector<std::vector<std::string>> b;
+    std::vector<std::string> head{"block"};
+    for (const MeasuredCycles& m : r.measured_cycles) head.push_back(std::string(core_name(m.core)));
+    b.push_back(head);
+    for (std::size_t i = 0; i < first.blocks.size(); ++i) {
+        std::vector<std::string> row{first.blocks[i].name};
+        for (const MeasuredCycles& m : r.measured_cycles)
+            row.push_back(i < m.blocks.size() ? spread3(m.blocks[i].cycles) : "-");
+        b.push_back(row);
+    }
+    t += table(b, 1);
+    for (const MeasuredCycles& m : r.measured_cycles) {
+        std::vector<std::string> kinds;
+        for (const auto& [k, c] : m.activation_cycles) kinds.push_back(fmt::format("{} {:.1f}", k, c));
+        if (!kinds.empty()) t += fmt::format("  {}: cycles per activation: {}\n", core_name(m.core), fmt::join(kinds, ", "));
+        if (!m.unpriced.empty())
+            t += fmt::format("  {}: not in the timing table, priced 1 cycle: {}\n", core_name(m.core), fmt::join(m.unpriced, ", "));
+    }
+    t += "how: the emitted code built with meander's bare-metal board driver, run on qemu's MPS2 boards with\n"
+         "the translation log on; every instruction between the driver's marks around infer priced with:\n";
+    for (const MeasuredCycles& m : r.measured_cycles) {
+        t += fmt::format("  {}: {}\n", core_name(m.core), m.timings);
+        t += fmt::format("  {:{}}  built with {}; {}\n", "", core_name(m.core).size(), m.compiler, m.emulator);
+    }
+    t += "  cycles/MAC: the dense layers' own code (loops, bias, stores) per multiply-accumulate;\n"
+         "  cycles/activation: the activation kernels per evaluation; the block hook's calls are counted.\n";
+    return t;
+}
+
 }  // namespace
 
 std::string render_cost_text(const CostReport& r) {
@@ -163,6 +214,7 @@ std::string render_cost_text(const CostReport& r) {
     if (r.precision == Precision::float64)
         t += "  float64: the sourced figures are for float32; give cycles per MAC for an estimate\n";
     t += "  (secondary sources, as collected for the project; check them for your part)\n";
+    t += render_measured_text(r);
     return t;
 }
 
@@ -237,6 +289,32 @@ std::string render_cost_json(const CostReport& r) {
         cyc.push_back(o);
     }
     j["cycles"] = cyc;
+    auto spread3j = [](const CycleSpread& s) { return json{{"min", s.min}, {"median", s.median}, {"max", s.max}}; };
+    json measured = json::array();
+    for (const MeasuredCycles& m : r.measured_cycles) {
+        json blocks_m = json::array();
+        for (const MeasuredBlockCycles& b : m.blocks) blocks_m.push_back({{"name", b.name}, {"cycles", spread3j(b.cycles)}});
+        json acts = json::object();
+        for (const auto& [k, c] : m.activation_cycles) acts[k] = c;
+        measured.push_back({{"core", core_name(m.core)},
+                            {"board", m.machine},
+                            {"compiler", m.compiler},
+                            {"emulator", m.emulator},
+                            {"timings", m.timings},
+                            {"rows", m.rows},
+                            {"rows_of_zeros", r.measured_on_zero_row},
+                            {"failed_rows", m.failed_rows},
+                            {"cycles", spread3j(m.cycles)},
+                            {"instructions", spread3j(m.instructions)},
+                            {"blocks", blocks_m},
+                            {"dense_cycles_per_mac", m.dense_cycles_per_mac < 0 ? json(nullptr) : json(m.dense_cycles_per_mac)},
+                            {"cycles_per_activation", m.cycles_per_activation < 0 ? json(nullptr) : json(m.cycles_per_activation)},
+                            {"activation_cycles", acts},
+                            {"other_cycles_mean", m.other_cycles},
+                            {"unpriced_mnemonics", m.unpriced}});
+    }
+    j["measured"] = measured;
+    if (!r.cycles_not_measured.empty()) j["measured_skipped"] = r.cycles_not_measured;
     return j.dump(2) + "\n";
 }
 

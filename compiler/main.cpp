@@ -329,7 +329,7 @@ int cmd_verify(const std::string& model_path, const std::string& input, const st
 }
 
 int cmd_cost(const std::string& model_path, const std::string& input, const std::string& precision,
-             const std::string& core, double cycles_per_mac, bool json) {
+             const std::string& core, double cycles_per_mac, bool json, bool estimate_only) {
     Diagnostics diags;
     Precision p = precision_of(precision);
     auto loaded = load_model(model_path, p, diags);
@@ -338,6 +338,7 @@ int cmd_cost(const std::string& model_path, const std::string& input, const std:
     co.precision = p;
     co.core = core;
     co.cycles_per_mac = cycles_per_mac;
+    co.measure_cycles = !estimate_only;
     if (loaded->model.stream) {
         // Per observation: the worst case at the largest gap, and the spread over a sequence file.
         std::vector<SequenceRow> rows;
@@ -575,7 +576,7 @@ int main(int argc, char** argv) {
     const std::vector<std::string> precisions{"float32", "float64"};
     std::string model, input, output, outdir, precision = "float32", self_test, dump, cxx, keep, core = "cortex-m4f";
     double tol = -1.0, cycles_per_mac = -1.0;
-    bool stats = false, show = false, c_api = false, json = false, in_place = false, check_only = false;
+    bool stats = false, show = false, c_api = false, json = false, in_place = false, check_only = false, estimate_only = false;
 
     auto* check = app.add_subcommand("check", "parse the description, check shapes, read and bind the weights");
     check->add_option("model", model, "description (.mnd)")->required();
@@ -618,6 +619,8 @@ int main(int argc, char** argv) {
     cost->add_option("--cycles-per-mac", cycles_per_mac, "override the core's cycles per multiply-accumulate")
         ->check(kFinitePositive);
     cost->add_flag("--json", json, "JSON for tools instead of text");
+    cost->add_flag("--estimate-only", estimate_only,
+                   "do not measure cycles on the emulated cores (no cross build, no emulator run)");
 
     double target = 1e-4;
     int sweep = 256;
@@ -715,7 +718,7 @@ int main(int argc, char** argv) {
         if (*eval) return cmd_eval(model, input, output, stats, labels_path);
         if (*compile) return cmd_compile(model, outdir, precision, c_api, self_test, dump);
         if (*verify) return cmd_verify(model, input, precision, tol, cxx, keep, show);
-        if (*cost) return cmd_cost(model, input, precision, core, cycles_per_mac, json);
+        if (*cost) return cmd_cost(model, input, precision, core, cycles_per_mac, json, estimate_only);
         if (*tune)
             return cmd_tune(model, input, precision, target, methods, sweep, json, labels_path,
                             slack_opt->count() ? std::optional<double>(metric_slack) : std::nullopt, plot_path,

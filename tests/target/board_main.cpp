@@ -2,9 +2,14 @@
 // Built by run_target.sh with
 //   MEANDER_MODEL           the model's namespace (its name in the description)
 //   MEANDER_MODEL_HEADER    "NAME.hpp"
-//   MEANDER_SELFTEST_HEADER "NAME_selftest.hpp"
+//   MEANDER_SELFTEST_HEADER "NAME_selftest.hpp" (optional: without it no self-test runs)
 //   MEANDER_TOLERANCE       the self-test tolerance, a real literal
+//   MEANDER_CYCLE_MARKS     (optional) call the empty mark functions below around
+//                           each inference, for `meander cost` to find them in the
+//                           emulator's trace; outputs are then not printed
 // and board_inputs.inc, the rows of the sample's inputs.csv as brace lists.
+// `meander cost` carries a copy of this file (built into the binary) and builds
+// it the same way.
 // It prints one line per input row,
 //   row R RESULT FIELD_EVALS STEPS_TAKEN STEPS_REJECTED Y0 Y1 ...
 //   bits R HEX0 HEX1 ...   (the outputs' bit patterns, little-endian cores)
@@ -14,7 +19,9 @@
 #include <cstring>
 
 #include MEANDER_MODEL_HEADER
+#if defined(MEANDER_SELFTEST_HEADER)
 #include MEANDER_SELFTEST_HEADER
+#endif
 
 namespace model = MEANDER_MODEL;
 
@@ -35,16 +42,37 @@ model::context ctx;
 
 }  // namespace
 
+#if defined(MEANDER_CYCLE_MARKS)
+// Where an inference and a block begin and end: the trace sees each function's
+// one instruction (bx lr). noipa keeps every call and each function apart (no
+// identical-code folding); the emitted source's block hook calls the block marks.
+extern "C" {
+__attribute__((noipa)) void meander_mark_row_begin() { __asm volatile("" ::: "memory"); }
+__attribute__((noipa)) void meander_mark_row_end() { __asm volatile("" ::: "memory"); }
+__attribute__((noipa)) void meander_mark_block_begin() { __asm volatile("" ::: "memory"); }
+__attribute__((noipa)) void meander_mark_block_end() { __asm volatile("" ::: "memory"); }
+}
+#define MEANDER_MARK(what) meander_mark_##what()
+#else
+#define MEANDER_MARK(what) static_cast<void>(0)
+#endif
+
 int main() {
     model::real in[model::input_size];
     model::real out[model::output_size];
     for (unsigned r = 0; r < kRows; ++r) {
         for (unsigned i = 0; i < model::input_size; ++i) in[i] = static_cast<model::real>(kInputs[r][i]);
+        MEANDER_MARK(row_begin);
         const model::result res = model::infer(ctx, in, out);
+        MEANDER_MARK(row_end);
         std::printf("row %u %s %lu %lu %lu", r, model::result_name(res),
                     static_cast<unsigned long>(ctx.count.field_evals),
                     static_cast<unsigned long>(ctx.count.steps_taken),
                     static_cast<unsigned long>(ctx.count.steps_rejected));
+#if defined(MEANDER_CYCLE_MARKS)
+        std::printf("\n");
+        continue;
+#endif
         if (res == model::result::ok)
             for (unsigned i = 0; i < model::output_size; ++i) std::printf(" %.*g", kDigits, static_cast<double>(out[i]));
         std::printf("\n");
@@ -59,6 +87,10 @@ int main() {
         std::printf("\n");
     }
 
+#if !defined(MEANDER_SELFTEST_HEADER)
+    std::fflush(stdout);
+    return model::build_conditions_hold() ? 0 : 1;
+#else
     const auto rep = model::self_test(ctx, MEANDER_TOLERANCE);
     std::printf("self-test vectors %lu failures %lu first-failing %ld max-abs %.*g max-rel %.*g build-conditions %d "
                 "first-bad-result %s\n",
@@ -68,4 +100,5 @@ int main() {
                 model::result_name(rep.first_bad_result));
     std::fflush(stdout);
     return rep.failures == 0 && rep.build_conditions_hold ? 0 : 1;
+#endif
 }
