@@ -38,21 +38,45 @@ namespace meander {
 
 namespace {
 
+// The Cortex-M3, M4F and M7 figures were measured once with `meander cost`
+// itself (compiler/cost_cycles.cpp: the emitted code of the samples fan_balance,
+// boiler_ahead and soil_probe on qemu's MPS2 boards, arm-none-eabi-g++ 12.2.1 -Os
+// -ffp-contract=off, each instruction priced with the core's manual as
+// compiler/cycle_prices.hpp states, the 40 rows of each sample's inputs.csv; 8
+// rows on the M3), 2026-12-02, on the emitted code of that day:
+//   per MAC: the dense layers' own code (loops, bias, stores) over their MACs;
+//   per activation: the kernels' cycles over their evaluations, by kind, the
+//     mean of the samples that use the kind (sigmoid, gelu and elu appear in no
+//     sample: they take the dearest measured kind, softplus, as a stated bound);
+//   per state element per field evaluation: the rest (the Runge-Kutta stage
+//     sums, error norms, step control, finiteness checks, copies) over the
+//     samples' field evaluations times the state width, a rounded mean.
+// Recalibrate with tests/target/calibrate_cost.sh when the emitted code changes;
+// ctest's target.cost-estimate test fails when an estimate strays over 20% from
+// the measured median.
+constexpr const char* kMeasuredWhere =
+    "measured with meander cost on the emulated board (the samples' emitted code, 2026-12-02; "
+    "compiler/cost.cpp states how)";
+
 std::vector<CoreFigures> make_figures() {
     std::vector<CoreFigures> f(4);
     f[0] = {CoreClass::cortex_m0, {"-mcpu=cortex-m0", "-mthumb", "-mfloat-abi=soft"}, false,
             270.0, "software float fmul ~170 + fadd ~100 cycles (GCC library on a Cortex-M0)",
-            1930.0, "software expf ~1,930 cycles (GCC library on a Cortex-M0)"};
+            1930.0, "software expf ~1,930 cycles (GCC library on a Cortex-M0)", {}, 0.0,
+            "not counted (no figure for this core)"};
     f[1] = {CoreClass::cortex_m3, {"-mcpu=cortex-m3", "-mthumb", "-mfloat-abi=soft"}, false,
-            270.0, "the Cortex-M0 software float figures (fmul ~170 + fadd ~100), an upper bound: "
-                   "no Cortex-M3 figure in our sources",
-            1930.0, "the Cortex-M0 software expf figure (~1,930), an upper bound"};
+            121.0, std::string("software float, ") + kMeasuredWhere,
+            2760.0, std::string("meander's kernels in software float, ") + kMeasuredWhere,
+            {{"tanh", 1180.0}, {"softplus", 2730.0}, {"silu", 1880.0}, {"softmax", 1390.0}}, 600.0,
+            kMeasuredWhere};
     f[2] = {CoreClass::cortex_m4f, {"-mcpu=cortex-m4", "-mthumb", "-mfpu=fpv4-sp-d16", "-mfloat-abi=hard"}, true,
-            3.0, "VFMA.F32 3 cycles (Cortex-M4 Technical Reference Manual, FPU instruction timing)",
-            0.0, "no sourced figure for the maths library on this core: activations not counted"};
+            12.5, kMeasuredWhere,
+            165.0, std::string("meander's kernels, ") + kMeasuredWhere,
+            {{"tanh", 77.0}, {"softplus", 161.0}, {"silu", 130.0}, {"softmax", 87.0}}, 50.0, kMeasuredWhere};
     f[3] = {CoreClass::cortex_m7, {"-mcpu=cortex-m7", "-mthumb", "-mfpu=fpv5-sp-d16", "-mfloat-abi=hard"}, true,
-            3.0, "the Cortex-M4 VFMA.F32 figure (3 cycles), an upper bound: no Cortex-M7 figure in our sources",
-            0.0, "no sourced figure for the maths library on this core: activations not counted"};
+            12.4, std::string(kMeasuredWhere) + ", priced with the Cortex-M4 table",
+            165.0, std::string("meander's kernels, ") + kMeasuredWhere + ", priced with the Cortex-M4 table",
+            {{"tanh", 77.0}, {"softplus", 161.0}, {"silu", 130.0}, {"softmax", 87.0}}, 50.0, kMeasuredWhere};
     return f;
 }
 
@@ -106,6 +130,7 @@ struct Counts {
     long params = 0;
     long macs = 0;          // one pass (for a field: one evaluation)
     long activations = 0;   // exp-based activation evaluations in one pass
+    std::map<std::string, long> by_kind;  // the same by activation name
 };
 
 void count(const std::vector<Block>& blocks, Counts& c) {
@@ -114,7 +139,10 @@ void count(const std::vector<Block>& blocks, Counts& c) {
         case Block::Kind::dense:
             c.params += dense_params(b.dense);
             c.macs += dense_macs(b.dense);
-            if (exp_based(b.dense.act)) c.activations += b.dense.out;
+            if (exp_based(b.dense.act)) {
+                c.activations += b.dense.out;
+                c.by_kind[std::string(activation_name(b.dense.act))] += b.dense.out;
+            }
             break;
         case Block::Kind::residual: count(b.residual.body, c); break;
         case Block::Kind::continuous: count(b.continuous.field, c); break;
@@ -269,12 +297,17 @@ std::optional<CostReport> measure_cost(const Model& model, const CostOptions& op
     if (!opts.inputs.empty()) measured = measure_evals(model, opts.inputs);
 
     BlockNames block_names;
+    // Per top-level block, for the estimate: activations of one pass by kind, and the state width.
+    std::vector<std::map<std::string, long>> kinds(model.blocks.size());
+    std::vector<long> widths(model.blocks.size(), 0);
     for (std::size_t i = 0; i < model.blocks.size(); ++i) {
         const Block& b = model.blocks[i];
         BlockCost bc;
         bc.name = block_name(b);
         Counts c;
         count({b}, c);
+        kinds[i] = c.by_kind;
+        widths[i] = block_out_width(b);
         bc.parameters = c.params;
         bc.weight_bytes = c.params * rep.real_bytes;
         bc.macs = c.macs;
@@ -391,28 +424,45 @@ std::optional<CostReport> measure_cost(const Model& model, const CostOptions& op
         cc.core = c;
         const bool chosen_core = c == rep.core;
         cc.cycles_per_mac = chosen_core ? rep.cycles_per_mac : f.cycles_per_mac;
-        cc.cycles_per_activation = f.cycles_per_activation;
-        // The sourced figures are for float32; double precision has none
-        // unless the user gives one for the chosen core.
+        // The figures are for float32; double precision has none unless the
+        // user gives one for the chosen core (then MACs only).
         cc.estimated = opts.precision == Precision::float32 || (chosen_core && rep.cycles_per_mac_overridden);
-        if (opts.precision == Precision::float64) cc.cycles_per_activation = 0.0;
+        const bool f32 = opts.precision == Precision::float32;
+        cc.cycles_per_state_eval = f32 ? f.cycles_per_state_eval : 0.0;
+        auto act_cost = [&](const std::string& kind) {
+            if (!f32) return 0.0;
+            const auto k = f.activation_cycles.find(kind);
+            return k != f.activation_cycles.end() ? k->second : f.cycles_per_activation;
+        };
+        // Cycles of the whole model with `evals(i)` field evaluations in continuous block i.
+        auto cycles_with = [&](const std::function<double(std::size_t)>& evals, double& acts_cycles, double& acts) {
+            double total = 0.0;
+            acts_cycles = 0.0;
+            acts = 0.0;
+            for (std::size_t i = 0; i < rep.blocks.size(); ++i) {
+                const BlockCost& b = rep.blocks[i];
+                const bool cont = b.kind == "continuous";
+                const double n = cont ? evals(i) : 1.0;
+                total += (cont ? static_cast<double>(b.macs_per_field_eval) * n : static_cast<double>(b.macs)) * cc.cycles_per_mac;
+                for (const auto& [kind, per_pass] : kinds[i]) {
+                    acts += static_cast<double>(per_pass) * n;
+                    acts_cycles += static_cast<double>(per_pass) * n * act_cost(kind);
+                }
+                if (cont) total += n * static_cast<double>(widths[i]) * cc.cycles_per_state_eval;
+            }
+            return total + acts_cycles;
+        };
         if (cc.estimated) {
-            cc.worst = static_cast<double>(rep.macs) * cc.cycles_per_mac +
-                       static_cast<double>(rep.activations) * cc.cycles_per_activation;
+            double ac = 0.0, an = 0.0;
+            cc.worst = cycles_with([&](std::size_t i) { return static_cast<double>(rep.blocks[i].field_evals); }, ac, an);
+            cc.cycles_per_activation = an > 0 ? ac / an : f.cycles_per_activation;
+            if (!f32) cc.cycles_per_activation = 0.0;
             if (rep.measured) {
                 // The median evaluations replace the worst case in the continuous blocks' share.
-                double macs = static_cast<double>(rep.macs_outside_fields);
-                double acts = 0.0;
-                for (const BlockCost& b : rep.blocks) {
-                    if (b.kind != "continuous") {
-                        acts += static_cast<double>(b.activations);
-                        continue;
-                    }
-                    const double n = b.measured ? b.measured->median : static_cast<double>(b.field_evals);
-                    macs += static_cast<double>(b.macs_per_field_eval) * n;
-                    acts += b.field_evals > 0 ? static_cast<double>(b.activations) / static_cast<double>(b.field_evals) * n : 0.0;
-                }
-                cc.median = macs * cc.cycles_per_mac + acts * cc.cycles_per_activation;
+                cc.median = cycles_with([&](std::size_t i) {
+                    const BlockCost& b = rep.blocks[i];
+                    return b.measured ? b.measured->median : static_cast<double>(b.field_evals);
+                }, ac, an);
             }
         }
         rep.cycles.push_back(cc);

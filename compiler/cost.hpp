@@ -36,6 +36,11 @@ struct CoreFigures {
     std::string mac_source;
     double cycles_per_activation = 0.0;     // one exp-based activation (tanh, sigmoid, ...); 0: no figure
     std::string activation_source;
+    // Measured per-kernel figures (float32): cycles of one evaluation by activation
+    // name; kinds not listed take cycles_per_activation.
+    std::map<std::string, double> activation_cycles;
+    double cycles_per_state_eval = 0.0;     // solver and checks, per state element per field evaluation
+    std::string state_eval_source;
 };
 const CoreFigures& core_figures(CoreClass c);
 
@@ -96,7 +101,8 @@ struct FunctionSize {
 struct CoreCycles {
     CoreClass core = CoreClass::cortex_m4f;
     double cycles_per_mac = 0.0;
-    double cycles_per_activation = 0.0;
+    double cycles_per_activation = 0.0;     // over this model's activations (the per-kind figures weighted by count)
+    double cycles_per_state_eval = 0.0;
     bool estimated = false;                 // false: no figure for this precision (no estimate)
     double worst = 0.0;                     // cycles per inference, worst case
     std::optional<double> median;           // with the measured median field evaluations

@@ -185,19 +185,21 @@ std::string render_cost_text(const CostReport& r) {
         t += table(f, 2);
     }
 
-    t += fmt::format("\nestimated cycles per inference = MACs x cycles/MAC + exp-based activations x cycles each\n"
-                     "({} activation evaluations, worst case; loads, loop and solver overhead not counted)\n",
+    t += fmt::format("\nestimated cycles per inference = MACs x cycles/MAC + activations x their kernel's cycles\n"
+                     "  + field evaluations x state width x cycles/state (solver, checks, copies)\n"
+                     "({} activation evaluations, worst case; cycles/activation: this model's mean)\n",
                      r.activations);
     std::vector<std::vector<std::string>> c;
-    c.push_back({"core", "cycles/MAC", "cycles/activation", "worst", r.measured ? "median" : ""});
+    c.push_back({"core", "cycles/MAC", "cycles/activation", "cycles/state", "worst", r.measured ? "median" : ""});
     for (const CoreCycles& cc : r.cycles) {
         if (!cc.estimated) {
-            c.push_back({std::string(core_name(cc.core)), "-", "-", "no figure", ""});
+            c.push_back({std::string(core_name(cc.core)), "-", "-", "-", "no figure", ""});
             continue;
         }
         // No sourced figure: say so instead of a 0 that reads as "free".
         c.push_back({std::string(core_name(cc.core)), format_double(cc.cycles_per_mac),
-                     cc.cycles_per_activation > 0 ? format_double(cc.cycles_per_activation) : "not counted",
+                     cc.cycles_per_activation > 0 ? fmt::format("{:.1f}", cc.cycles_per_activation) : "not counted",
+                     cc.cycles_per_state_eval > 0 ? format_double(cc.cycles_per_state_eval) : "not counted",
                      cycles_text(cc.worst),
                      cc.median ? cycles_text(*cc.median) : ""});
     }
@@ -208,12 +210,20 @@ std::string render_cost_text(const CostReport& r) {
         const CoreFigures& f = core_figures(cc.core);
         const bool user = cc.core == r.core && r.cycles_per_mac_overridden;
         t += fmt::format("  {}: per MAC: {}\n", core_name(cc.core), user ? "given by the user" : f.mac_source);
-        if (r.precision == Precision::float32)
-            t += fmt::format("  {:{}}  per activation: {}\n", "", core_name(cc.core).size(), f.activation_source);
+        if (r.precision == Precision::float32) {
+            std::vector<std::string> kinds;
+            for (const auto& [k, v] : f.activation_cycles) kinds.push_back(fmt::format("{} {}", k, format_double(v)));
+            t += fmt::format("  {:{}}  per activation: {}{}{}\n", "", core_name(cc.core).size(), f.activation_source,
+                             kinds.empty() ? "" : fmt::format(" ({}; other kinds {})", fmt::join(kinds, ", "),
+                                                              format_double(f.cycles_per_activation)),
+                             "");
+            t += fmt::format("  {:{}}  per state element and field evaluation: {}\n", "", core_name(cc.core).size(),
+                             f.state_eval_source);
+        }
     }
     if (r.precision == Precision::float64)
         t += "  float64: the sourced figures are for float32; give cycles per MAC for an estimate\n";
-    t += "  (secondary sources, as collected for the project; check them for your part)\n";
+    t += "  (the Cortex-M0 figures: secondary sources, as collected for the project; check them for your part)\n";
     t += render_measured_text(r);
     return t;
 }
@@ -281,6 +291,10 @@ std::string render_cost_json(const CostReport& r) {
         if (cc.estimated) {
             o["cycles_per_mac"] = cc.cycles_per_mac;
             o["cycles_per_activation"] = cc.cycles_per_activation;
+            o["cycles_per_state_eval"] = cc.cycles_per_state_eval;
+            json kinds = json::object();
+            for (const auto& [k, v] : f.activation_cycles) kinds[k] = v;
+            o["activation_cycles"] = kinds;
             o["worst"] = cc.worst;
             if (cc.median) o["median"] = *cc.median;
         }

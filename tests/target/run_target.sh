@@ -359,7 +359,7 @@ cost)
     text=$(arm-none-eabi-size -A "$work/$name.o" | awk '$1 ~ /^\.text/ { s += $2 } END { print s + 0 }')
     frame=$(awk -F'\t' -v f="$name::infer(" 'index($1, f) { print $2 }' "$work/$name.su")
     reals=$(sed -n 's/.*constexpr std::size_t workspace_size = \([0-9]*\);.*/\1/p' "$work/gen/$name.hpp")
-    run "$meander" cost "$mnd" --json > "$work/cost.json" || fail "meander cost failed"
+    run "$meander" cost "$mnd" --json --estimate-only > "$work/cost.json" || fail "meander cost failed"
     # The "total" object's fields, one per line in the JSON.
     total() { sed -n '/"total": {/,/}/p' "$work/cost.json" | sed -n "s/^ *\"$1\": \([0-9]*\),\{0,1\}$/\1/p"; }
     echo "arm-none-eabi-size: .text $text B; .su: infer frame $frame B; header: workspace_size $reals reals"

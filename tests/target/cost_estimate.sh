@@ -1,0 +1,60 @@
+#!/usr/bin/env bash
+# The static cycle estimate of `meander cost` against the cycles it measures on
+# the emulated Cortex-M4F, M3 and M7, for one sample:
+#
+#   cost_estimate.sh SAMPLE.mnd WORK_DIR
+#
+# Runs `meander cost --json` over the first 8 rows of the sample's inputs.csv
+# (the Cortex-M3 measures 8 rows at most, so every core and the estimate's
+# median see the same rows) and fails when, on any core, the estimate's median
+# differs from the measured median by more than 20% of the measured one. The
+# measured figure is the outside value here: every executed instruction priced
+# with the core's manual (compiler/cycle_prices.hpp), not the estimate's table.
+# It prints both, so a run of it over every sample is also how the estimate's
+# figures (compiler/cost.cpp, make_figures) are recalibrated.
+#
+# Environment: MEANDER (the meander binary, default: meander on PATH).
+# Exit status: 0 pass, 1 fail, 77 the cross tools or qemu are missing.
+set -u -o pipefail
+[ $# -eq 2 ] || { echo "usage: cost_estimate.sh SAMPLE.mnd WORK_DIR" >&2; exit 2; }
+mnd=$1
+work=$2
+meander=${MEANDER:-meander}
+inputs=$(dirname "$mnd")/inputs.csv
+for tool in arm-none-eabi-g++ arm-none-eabi-nm arm-none-eabi-addr2line qemu-system-arm; do
+    command -v "$tool" > /dev/null 2>&1 || { echo "SKIP: $tool is not installed (scripts/install-target-tools installs it)"; exit 77; }
+done
+if sed -e 's/#.*//' "$mnd" | grep -Eq '^[[:space:]]*state[[:space:]]'; then
+    echo "SKIP: meander cost does not measure a streaming model's code yet"
+    exit 77
+fi
+case "$work" in ""|/) echo "cost_estimate.sh: refusing WORK_DIR '$work'" >&2; exit 2 ;; esac
+rm -rf "$work" && mkdir -p "$work" || exit 1
+# The header line and the first 8 data rows.
+head -n 9 "$inputs" > "$work/rows.csv"
+echo "+ $meander cost $mnd --input $work/rows.csv --json"
+"$meander" cost "$mnd" --input "$work/rows.csv" --json > "$work/cost.json" || { echo "FAIL: meander cost failed"; exit 1; }
+/usr/bin/python3 - "$work/cost.json" <<'PY'
+import json, sys
+j = json.load(open(sys.argv[1]))
+measured = {m["core"]: m for m in j.get("measured", [])}
+if not measured:
+    print("SKIP: no measured cycles:", j.get("measured_skipped", "?"))
+    sys.exit(77)
+bad = 0
+for c in j["cycles"]:
+    m = measured.get(c["core"])
+    if m is None:
+        continue
+    est, got = c.get("median"), m["cycles"]["median"]
+    ratio = est / got
+    ok = abs(est - got) <= 0.2 * got
+    bad += not ok
+    print(f'{c["core"]:<11} measured median {got:>10.0f} (rows {m["rows"]})  estimate {est:>10.0f}  ratio {ratio:.3f}'
+          f'  dense cycles/MAC {m["dense_cycles_per_mac"]:.2f}  activations {m["activation_cycles"]}'
+          f'  other per inference {m["other_cycles_mean"]:.0f}  {"ok" if ok else "OFF BY MORE THAN 20%"}')
+if bad:
+    print("FAIL: the estimate strays over 20% from the measured median")
+    sys.exit(1)
+print("PASS: cost-estimate")
+PY
