@@ -389,5 +389,23 @@ TEST(Cost, CodeAndStackAreWhatTheCrossToolsSay) {
     fs::remove_all(dir);
 }
 
+TEST(Cost, WithoutTheEmulatorTheEstimateStandsAlone) {
+    // No measurement when qemu is missing: the report says why and keeps the estimate.
+    CostOptions o;
+    o.qemu = "/nonexistent/qemu-system-arm";
+    Diagnostics diags;
+    const auto rep = measure_cost(mixed_model(), o, diags);
+    ASSERT_TRUE(rep) << diags.render();
+    EXPECT_TRUE(rep->measured_cycles.empty());
+    EXPECT_FALSE(rep->cycles_not_measured.empty());
+    EXPECT_NE(render_cost_text(*rep).find("static estimate only"), std::string::npos);
+    EXPECT_NE(render_cost_json(*rep).find("\"measured_skipped\""), std::string::npos);
+    CostOptions off = no_tools();
+    off.measure_cycles = false;
+    const auto rep2 = measure_cost(mixed_model(), off, diags);
+    ASSERT_TRUE(rep2);
+    EXPECT_NE(rep2->cycles_not_measured.find("--estimate-only"), std::string::npos);
+}
+
 }  // namespace
 }  // namespace meander
