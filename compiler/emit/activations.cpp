@@ -62,15 +62,7 @@ bool has_adaptive_block(const Emission& e) {
     return false;
 }
 
-std::string float_kernels(const Emission& e) {
-    std::set<std::string> wanted;
-    for_each_dense(e.model.blocks, [&](const Dense& d) {
-        if (const char* k = kernel_of(d.act)) wanted.insert(k);
-    });
-    if (has_adaptive_block(e)) {  // the step-size controller
-        wanted.insert("pow");
-        wanted.insert("nextafter");
-    }
+std::string float_kernels(std::set<std::string> wanted) {
     if (wanted.empty()) return "";
     const std::vector<KernelSection> sections = kernel_sections();
     // What the wanted sections need, and what that needs (a section only
@@ -89,12 +81,18 @@ std::string float_kernels(const Emission& e) {
 
 }  // namespace
 
-std::string render_activations(const Emission& e) {
-    if (e.p == Precision::float32) return float_kernels(e);
-    std::set<Activation> used;
-    for_each_dense(e.model.blocks, [&](const Dense& d) { used.insert(d.act); });
-    const bool f = e.p == Precision::float32;
-    auto l = [&](double v) { return e.L(v); };
+std::string render_activation_kernels(Precision p, const std::set<Activation>& used, bool step_controller) {
+    if (p == Precision::float32) {
+        std::set<std::string> wanted;
+        for (Activation a : used)
+            if (const char* k = kernel_of(a)) wanted.insert(k);
+        if (step_controller) {
+            wanted.insert("pow");
+            wanted.insert("nextafter");
+        }
+        return float_kernels(std::move(wanted));
+    }
+    auto l = [&](double v) { return real_literal(v, p); };
     std::string o;
     // The same stable forms as runtime/activation.cpp.
     for (Activation a : used) {
@@ -140,7 +138,7 @@ std::string render_activations(const Emission& e) {
                              "    const real inner = {} * (x + {} * x * x * x);\n"
                              "    return {} * x * ({} + std::tanh(inner));\n"
                              "}}\n",
-                             f ? "0.7978845608f" : "0.7978845608028654", f ? "0.7978845608f" : "0.7978845608028654",
+                             "0.7978845608028654", "0.7978845608028654",
                              l(0.044715), l(0.5), l(1));
             break;
         case Activation::elu:
@@ -154,18 +152,28 @@ std::string render_activations(const Emission& e) {
     return o;
 }
 
+std::string render_activations(const Emission& e) {
+    std::set<Activation> used;
+    for_each_dense(e.model.blocks, [&](const Dense& d) { used.insert(d.act); });
+    return render_activation_kernels(e.p, used, has_adaptive_block(e));
+}
+
 std::string apply_activation(const Emission& e, const Dense& d, const std::string& x) {
+    return apply_activation(e.p, d, x);
+}
+
+std::string apply_activation(Precision p, const Dense& d, const std::string& x) {
     switch (d.act) {
     case Activation::identity:
     case Activation::softmax: return x;
     case Activation::relu: return "act_relu(" + x + ")";
-    case Activation::leaky_relu: return fmt::format("act_leaky_relu({}, {})", x, e.L(d.act_param));
+    case Activation::leaky_relu: return fmt::format("act_leaky_relu({}, {})", x, real_literal(d.act_param, p));
     case Activation::tanh: return "act_tanh(" + x + ")";
     case Activation::sigmoid: return "act_sigmoid(" + x + ")";
     case Activation::softplus: return "act_softplus(" + x + ")";
     case Activation::silu: return "act_silu(" + x + ")";
     case Activation::gelu: return "act_gelu(" + x + ")";
-    case Activation::elu: return fmt::format("act_elu({}, {})", x, e.L(d.act_param));
+    case Activation::elu: return fmt::format("act_elu({}, {})", x, real_literal(d.act_param, p));
     }
     return x;
 }

@@ -61,7 +61,7 @@ std::string render_source(const Emission& e, const std::string& stamp) {
     o += "}  // namespace\n\n";
     o += render_infer(e);
     o += render_result_name();
-    o += render_build_check(e);
+    o += render_build_check(e.p);
     o += fmt::format("}}  // namespace {}\n", e.model.name);
     if (e.opts.c_api) o += render_c_entry(e);
     return o;

@@ -93,8 +93,9 @@ std::string render_result_name(bool streaming) {
     return o;
 }
 
-std::string render_build_check(const Emission& e) {
-    const bool f = e.p == Precision::float32;
+std::string render_build_check(Precision p) {
+    const bool f = p == Precision::float32;
+    auto L = [p](double v) { return real_literal(v, p); };
     // Values for which contraction, another rounding mode or flushing would
     // change the result; volatile so the compiler cannot fold them away.
     return fmt::format(R"(// The build conditions the bits rely on (see the banner), checked on values the
@@ -116,7 +117,7 @@ bool build_conditions_hold() noexcept {{
 )",
                        f ? "2^-24" : "2^-54", f ? "0x1.001p+0f" : "0x1.0000002p+0", f ? "2^-12" : "2^-27",
                        f ? "-0x1.002p+0f" : "-0x1.0000004p+0", f ? "0x3p-25f" : "0x3p-54", f ? "0x1p-126f" : "0x1p-1022",
-                       e.L(1), e.L(0.5), e.L(0), f ? "2^-11" : "2^-26");
+                       L(1), L(0.5), L(0), f ? "2^-11" : "2^-26");
 }
 
 std::string render_c_entry(const Emission& e) {

@@ -8,6 +8,7 @@
 //   entry.cpp        chains of layers, infer, result_name and the C entry point
 #pragma once
 
+#include <set>
 #include <string>
 
 #include "../../runtime/model.hpp"
@@ -16,6 +17,12 @@
 #include "../selftest.hpp"
 
 namespace meander::emit_detail {
+
+// A maths function of the emitted code: float32 calls meander's own kernel
+// (runtime/math_float.inc), float64 the C++ library's.
+inline std::string math_call(Precision p, const char* name) {
+    return p == Precision::float32 ? std::string(name) + "_kernel" : std::string("std::") + name;
+}
 
 // What every part reads: the model, the options and the lowered plan.
 struct Emission {
@@ -28,11 +35,7 @@ struct Emission {
     std::string L(double v) const { return real_literal(v, p); }
     std::string M() const { return macro_prefix(model.name); }
     std::string real_name() const { return real_type(p); }
-    // A maths function of the emitted code: float32 calls meander's own
-    // kernel (runtime/math_float.inc), float64 the C++ library's.
-    std::string math(const char* name) const {
-        return p == Precision::float32 ? std::string(name) + "_kernel" : std::string("std::") + name;
-    }
+    std::string math(const char* name) const { return math_call(p, name); }
 };
 
 // header.cpp: NAME.hpp with kStampHole where the stamp goes; stamp_of hashes
@@ -46,8 +49,13 @@ std::string finish_header(std::string hpp);
 std::string render_weights(const Emission& e);
 
 // activations.cpp: the kernels the model's layers use, and a call of one.
+// render_activation_kernels renders them for a set of activations (plus pow
+// and nextafter for a step-size controller); the streaming emitter, whose
+// layers are not all in model.blocks, calls it directly.
 std::string render_activations(const Emission& e);
+std::string render_activation_kernels(Precision p, const std::set<Activation>& used, bool step_controller);
 std::string apply_activation(const Emission& e, const Dense& d, const std::string& x);
+std::string apply_activation(Precision p, const Dense& d, const std::string& x);
 
 // dense.cpp
 std::string render_dense_layers(const Emission& e);
@@ -65,7 +73,7 @@ void render_chain(const Emission& e, std::string& o, const Chain& c, const std::
 std::string render_infer(const Emission& e);
 // `streaming`: with the gap_out_of_range case of streaming models.
 std::string render_result_name(bool streaming = false);
-std::string render_build_check(const Emission& e);
+std::string render_build_check(Precision p);  // also the streaming emitter's
 std::string render_c_entry(const Emission& e);
 
 }  // namespace meander::emit_detail

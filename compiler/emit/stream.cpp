@@ -7,7 +7,9 @@
 
 #include <algorithm>
 #include <cmath>
+#include <set>
 
+#include "../../runtime/math_kernels.hpp"
 #include "../../runtime/stream.hpp"
 #include "../../runtime/tableau.hpp"
 #include "../emit.hpp"
@@ -86,6 +88,17 @@ private:
                                     m_.name, emit_detail::version_of(o_), m_.name, o_.content_hash);
         o += "// A streaming model: per observation, the state evolves over the gap since the previous\n";
         o += "// observation, is updated by the observation, and is read out.\n";
+        if (p_ == Precision::float32) {
+            o += "// math: meander's own float kernels (runtime/math_float.inc), no C library maths;\n";
+            o += "//   largest error in ulp against MPFR:";
+            for (const KernelBound& b : kFloatKernelBounds) o += fmt::format(" {} {:.1f}", b.name, b.ulp);
+            o += "\n// bits: the same outputs on every core when built with -ffp-contract=off (no FMA\n";
+            o += "//   contraction), without -ffast-math, rounding to nearest, subnormals kept;\n";
+        } else {
+            o += "// math: the C++ library's <cmath>; build with -ffp-contract=off, without -ffast-math,\n";
+            o += "//   rounding to nearest, subnormals kept;\n";
+        }
+        o += "//   build_conditions_hold() checks a build\n";
         o += fmt::format("#ifndef MEANDER_GENERATED_{0}_HPP\n#define MEANDER_GENERATED_{0}_HPP\n\n", M);
         o += "#include <cstddef>\n#include <cstdint>\n\n";
         o += fmt::format("namespace {} {{\n\n", m_.name);
@@ -140,6 +153,10 @@ result observe(context& ctx, const real* input, real gap, real* output) noexcept
 // "ok", "gap_out_of_range", ... (the enumerator's name).
 const char* result_name(result r) noexcept;
 
+// True when this build keeps the conditions for identical bits on every core (no FMA
+// contraction, rounding to nearest, subnormals kept).
+bool build_conditions_hold() noexcept;
+
 )";
         o += fmt::format("}}  // namespace {}\n\n#endif  // MEANDER_GENERATED_{}_HPP\n", m_.name, M);
         return o;
@@ -184,62 +201,23 @@ const char* result_name(result r) noexcept;
                                     d.out, d.in, d.time_input ? "true" : "false", x, t, y);
         if (d.act == Activation::softmax) return o + fmt::format("    softmax({}, {}u);\n", y, d.out);
         if (d.act != Activation::identity)
-            o += fmt::format("    for (std::size_t i = 0; i < {}u; ++i) {}[i] = act_{}({}[i]);\n", d.out, y,
-                             act_id(d), y);
+            o += fmt::format("    for (std::size_t i = 0; i < {}u; ++i) {}[i] = {};\n", d.out, y,
+                             emit_detail::apply_activation(p_, d, y + "[i]"));
         return o;
     }
 
-    static std::string act_id(const Dense& d) {
-        std::string s(activation_name(d.act));
-        std::replace(s.begin(), s.end(), '-', '_');
-        return s;
-    }
-
+    // The kernels of every activation the layers use, rendered as the plain emitter renders
+    // them (compiler/emit/activations.cpp): float32 meander's own, float64 the C++ library's.
+    // A GRU cell needs sigmoid and tanh, a blend sigmoid, softmax exp, whatever the layers use.
     std::string activations() const {
-        std::vector<std::pair<std::string, std::string>> used;  // id -> body
-        const std::string r = real();
-        const bool f = p_ == Precision::float32;
-        auto lit = [&](double v) { return L(v); };
-        for_each_model_dense(m_, [&](const Dense& d) {
-            if (d.act == Activation::identity || d.act == Activation::softmax) return;
-            const std::string id = act_id(d) + (d.act == Activation::leaky_relu || d.act == Activation::elu ? "" : "");
-            std::string body;
-            switch (d.act) {
-            case Activation::relu: body = fmt::format("return x > {0} ? x : {0};", lit(0)); break;
-            case Activation::leaky_relu: body = fmt::format("return x >= {} ? x : {} * x;", lit(0), lit(d.act_param)); break;
-            case Activation::tanh: body = "return std::tanh(x);"; break;
-            case Activation::sigmoid:
-                body = fmt::format("if (x >= {0}) return {1} / ({1} + std::exp(-x));\n    const {2} ex = std::exp(x);\n    return ex / ({1} + ex);",
-                                   lit(0), lit(1), r);
-                break;
-            case Activation::softplus:
-                body = fmt::format("return std::fmax(x, {}) + std::log1p(std::exp(-std::fabs(x)));", lit(0));
-                break;
-            case Activation::silu:
-                body = fmt::format("if (x >= {0}) return x / ({1} + std::exp(-x));\n    const {2} ex = std::exp(x);\n    return x * ex / ({1} + ex);",
-                                   lit(0), lit(1), r);
-                break;
-            case Activation::gelu:
-                body = fmt::format("const {} inner = {} * (x + {} * x * x * x);\n    return {} * x * ({} + std::tanh(inner));", r,
-                                   lit(0.7978845608028654), lit(0.044715), lit(0.5), lit(1));
-                break;
-            case Activation::elu: body = fmt::format("return x > {} ? x : {} * std::expm1(x);", lit(0), lit(d.act_param)); break;
-            default: return;
-            }
-            for (const auto& u : used)
-                if (u.first == id) return;
-            used.emplace_back(id, body);
-        });
-        (void)f;
-        std::string o;
-        // A GRU cell and a blend need sigmoid whatever the layers use.
-        bool has_sigmoid = false;
-        for (const auto& u : used) has_sigmoid = has_sigmoid || u.first == "sigmoid";
-        if (!has_sigmoid && (st_.update == Stream::Update::gated || st_.evolve.blend))
-            used.emplace_back("sigmoid", fmt::format("if (x >= {0}) return {1} / ({1} + std::exp(-x));\n    const {2} ex = std::exp(x);\n    return ex / ({1} + ex);",
-                                                     L(0), L(1), r));
-        for (const auto& u : used) o += fmt::format("{} act_{}({} x) noexcept {{\n    {}\n}}\n\n", r, u.first, r, u.second);
-        return o;
+        std::set<Activation> used;
+        for_each_model_dense(m_, [&](const Dense& d) { used.insert(d.act); });
+        if (st_.update == Stream::Update::gated) {
+            used.insert(Activation::sigmoid);
+            used.insert(Activation::tanh);
+        }
+        if (st_.evolve.blend) used.insert(Activation::sigmoid);
+        return emit_detail::render_activation_kernels(p_, used, false);
     }
 
     std::string kernels() const {
@@ -266,12 +244,13 @@ const char* result_name(result r) noexcept;
         if (softmax)
             o += fmt::format("void softmax({0}* y, std::size_t n) noexcept {{\n"
                              "    {0} top = y[0];\n"
-                             "    for (std::size_t i = 1; i < n; ++i) top = std::fmax(top, y[i]);\n"
+                             "    for (std::size_t i = 1; i < n; ++i)\n"
+                             "        if (y[i] > top) top = y[i];\n"
                              "    {0} sum = {1};\n"
-                             "    for (std::size_t i = 0; i < n; ++i) {{ y[i] = std::exp(y[i] - top); sum += y[i]; }}\n"
+                             "    for (std::size_t i = 0; i < n; ++i) {{ y[i] = {2}(y[i] - top); sum += y[i]; }}\n"
                              "    for (std::size_t i = 0; i < n; ++i) y[i] = y[i] / sum;\n"
                              "}}\n\n",
-                             r, L(0));
+                             r, L(0), emit_detail::math_call(p_, "exp"));
         return o;
     }
 
@@ -336,9 +315,13 @@ const char* result_name(result r) noexcept;
         // In `real` (no software double on a single-precision FPU); clamped to the step count at
         // the largest gap, so the stated worst case bounds every call.
         const long most = gap_steps(st_.evolve.solver, st_.largest_gap);
-        o += fmt::format("    const {} steps = std::ceil(gap * {});\n", r, L(st_.evolve.solver.steps_per_unit));
-        o += fmt::format("    const std::uint32_t n = !(steps >= {0}) ? 1u : !(steps <= {1}) ? {2}u : static_cast<std::uint32_t>(steps);\n",
-                         L(1), L(static_cast<double>(most)), most);
+        // n = ceil(span) clamped to [1, most], without the C library's ceil: below `most` the
+        // span converts exactly to an integer, rounded down, and one more when it was not whole.
+        o += fmt::format("    const {} span = gap * {};\n", r, L(st_.evolve.solver.steps_per_unit));
+        o += fmt::format("    std::uint32_t n = {}u;\n", most);
+        o += fmt::format("    if (!(span >= {})) {{\n        n = 1u;\n    }} else if (span <= {}) {{\n", L(1), L(static_cast<double>(most)));
+        o += "        n = static_cast<std::uint32_t>(span);\n";
+        o += fmt::format("        if (static_cast<{}>(n) < span) n += 1u;\n    }}\n", r);
         o += fmt::format("    const {0} step = gap / static_cast<{0}>(n);\n", r);
         o += fmt::format("    {0}* k = work + {1};\n    {0}* arg = work + {2};\n", r, off_k_, off_arg_);
         o += "    for (std::uint32_t s = 0; s < n; ++s) {\n";
@@ -394,7 +377,7 @@ const char* result_name(result r) noexcept;
             o += fmt::format("    for (std::size_t i = 0; i < {}u; ++i) {{\n", S);
             o += fmt::format("        const {} rg = act_sigmoid(gi[i] + gh[i]);\n", r);
             o += fmt::format("        const {} zg = act_sigmoid(gi[{} + i] + gh[{} + i]);\n", r, S, S);
-            o += fmt::format("        const {} ng = std::tanh(gi[{} + i] + rg * gh[{} + i]);\n", r, 2 * S, 2 * S);
+            o += fmt::format("        const {} ng = act_tanh(gi[{} + i] + rg * gh[{} + i]);\n", r, 2 * S, 2 * S);
             o += fmt::format("        h[i] = ({} - zg) * ng + zg * h[i];\n    }}\n", L(1));
         } else {
             o += "    // Merge: a dense layer on [h; input].\n";
@@ -422,7 +405,8 @@ const char* result_name(result r) noexcept;
         const std::string M = emit_detail::macro_prefix(m_.name);
         std::string o = fmt::format("// {}.cpp: generated by meander {} from model '{}' (content {}). Do not edit.\n",
                                     m_.name, emit_detail::version_of(o_), m_.name, o_.content_hash);
-        o += fmt::format("#include \"{}.hpp\"\n\n#include <cmath>\n#include <cstddef>\n#include <cstdint>\n\n", m_.name);
+        o += fmt::format("#include \"{}.hpp\"\n\n#include <cmath>\n#include <cstddef>\n#include <cstdint>\n{}\n", m_.name,
+                         p_ == Precision::float32 ? "#include <cstring>\n" : "");
         o += fmt::format("static_assert(sizeof({}::real) == {}, \"real has the width this code was generated for\");\n\n", m_.name,
                          p_ == Precision::float32 ? 4 : 8);
         o += fmt::format("#ifndef {0}_WEIGHTS_ATTR\n#define {0}_WEIGHTS_ATTR\n#endif\n\n", M);
@@ -433,6 +417,7 @@ const char* result_name(result r) noexcept;
         if (!st_.evolve.blend) o += field_function();
         o += evolve_function();
         o += observe_function();
+        o += emit_detail::render_build_check(p_);
         o += fmt::format("}}  // namespace {}\n", m_.name);
         return o;
     }

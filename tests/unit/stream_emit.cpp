@@ -28,8 +28,9 @@ TEST(StreamEmit, SampleAgreesWithEvalOnEveryObservation) {
     }
 }
 
-// A blend evolution and a merge update, with weights of our own: float64 emitted code
-// against eval at the float64 tolerance (1e-10).
+// A blend evolution and a merge update, with weights of our own: emitted code against
+// eval (double, the C++ library's maths) at verify's tolerances, 1e-10 in float64 and
+// 1e-4 in float32 (meander's own sigmoid, tanh and exp kernels).
 TEST(StreamEmit, BlendAndMergeAgreeWithEval) {
     const auto dir = meander::test::temp_dir("stream_emit_blend");
     meander::TensorSet set;
@@ -62,10 +63,27 @@ TEST(StreamEmit, BlendAndMergeAgreeWithEval) {
                               "  dense b1: 3 -> 6, tanh\n  dense rate: 6 -> 3\n  dense start: 6 -> 3, tanh\n  dense end: 6 -> 3, tanh\n}\n"
                               "merge u: 3 + 2 -> 3, tanh\ndense out: 3 -> 2, softmax\noutput y[2]\n");
     meander::test::write_text(dir / "s.csv", "id,t,a,b\n1,0,0.5,-1\n1,0.01,1,2\n1,0.4,-0.3,0.2\n1,9.9,2,2\n2,100,0.5,-1\n2,101,0,0\n");
-    const auto r = run(fmt::format("{} verify {} --input {} --precision float64", MEANDER_BINARY, (dir / "m.mnd").string(),
-                                   (dir / "s.csv").string()));
-    EXPECT_EQ(r.status, 0) << r.output;
-    EXPECT_NE(r.output.find("verdict              agrees"), std::string::npos) << r.output;
+    for (const char* precision : {"float64", "float32"}) {
+        const auto r = run(fmt::format("{} verify {} --input {} --precision {}", MEANDER_BINARY, (dir / "m.mnd").string(),
+                                       (dir / "s.csv").string(), precision));
+        EXPECT_EQ(r.status, 0) << precision << "\n" << r.output;
+        EXPECT_NE(r.output.find("verdict              agrees"), std::string::npos) << precision << "\n" << r.output;
+    }
+}
+
+// A float32 streaming source computes its activations, its GRU cell, softmax and the step
+// count with meander's own code: no call of the C library's maths (the image test of
+// tests/target checks the linked Cortex-M4F image the same way).
+TEST(StreamEmit, Float32SourceCallsNoLibraryMaths) {
+    const auto dir = meander::test::temp_dir("stream_emit_nolibm");
+    const auto c = run(fmt::format("{} compile {}/parcel_chill.mnd -o {}", MEANDER_BINARY, kSample, dir.string()));
+    ASSERT_EQ(c.status, 0) << c.output;
+    const std::string text = meander::test::read_text(dir / "parcel_chill.cpp");
+    for (const char* call : {"std::exp", "std::tanh", "std::log", "std::ceil", "std::floor", "std::fmax", "std::pow"})
+        EXPECT_EQ(text.find(call), std::string::npos) << call;
+    EXPECT_NE(text.find("act_tanh("), std::string::npos);
+    EXPECT_NE(text.find("act_sigmoid("), std::string::npos);
+    EXPECT_NE(text.find("bool build_conditions_hold() noexcept"), std::string::npos);
 }
 
 TEST(StreamEmit, RefusedCallsLeaveTheStateAsItWas) {
