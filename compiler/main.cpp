@@ -25,6 +25,7 @@
 #include "compiler/check.hpp"
 #include "compiler/refit.hpp"
 #include "compiler/sequence.hpp"
+#include "compiler/spelling.hpp"
 #include "compiler/stream_cost.hpp"
 #include "compiler/stream_tune.hpp"
 #include "compiler/source.hpp"
@@ -704,7 +705,26 @@ int main(int argc, char** argv) {
     auto* format = app.add_subcommand("format", "print the description in canonical layout");
     format->add_option("model", model, "description (.mnd)")->required();
     format->add_flag("-i,--in-place", in_place, "rewrite the file");
-    format->add_flag("--check", check_only, "exit 1 if the file is not in canonical layout");
+    format->add_flag("--check", check_only, "exit 1 if the file is not in canonical layout")
+        ->excludes(format->get_option("--in-place"));
+
+    // A first word that is no command nor option: name the commands it is close to.
+    if (argc > 1 && argv[1][0] != '-' && argv[1][0] != '\0') {
+        std::vector<std::string> commands;
+        for (const CLI::App* sub : app.get_subcommands({})) commands.push_back(sub->get_name());
+        const std::string word = argv[1];
+        if (std::find(commands.begin(), commands.end(), word) == commands.end()) {
+            const std::vector<std::string> near = close_names(word, commands, std::max<std::size_t>(1, word.size() / 3));
+            std::string all;
+            for (const std::string& c : commands) all += (all.empty() ? "" : ", ") + c;
+            if (near.empty())
+                std::fprintf(stderr, "meander: unknown command '%s' (commands: %s)\n", escape_controls(word).c_str(), all.c_str());
+            else
+                std::fprintf(stderr, "meander: unknown command '%s'; did you mean '%s'?\n", escape_controls(word).c_str(),
+                             near.front().c_str());
+            return kUsageError;
+        }
+    }
 
     try {
         app.parse(argc, argv);

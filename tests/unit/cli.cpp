@@ -313,3 +313,31 @@ TEST(Readme, UsageSnippetCompiles) {
                                     "-fno-exceptions -fno-rtti -c snippet.cpp fan_balance.cpp");
     EXPECT_EQ(cc.status, 0) << cc.output;
 }
+
+// A misspelled command names the one it is close to; a word close to none lists them all. Exit 2: usage.
+TEST(Cli, MisspelledCommandGetsASuggestion) {
+    struct Case {
+        const char* word;
+        const char* want;
+    } cases[] = {{"evl", "unknown command 'evl'; did you mean 'eval'?"},
+                 {"compil", "did you mean 'compile'?"},
+                 {"tunne", "did you mean 'tune'?"},
+                 {"frobnicate", "unknown command 'frobnicate' (commands: check, eval, compile,"}};
+    for (const Case& c : cases) {
+        SCOPED_TRACE(c.word);
+        Outcome r = run(std::string(c.word) + " x 2>&1");
+        EXPECT_EQ(r.status, 2);
+        EXPECT_NE(r.output.find(c.want), std::string::npos) << r.output;
+    }
+}
+
+// --check only reads; with --in-place it is a usage error and the file stays as it was.
+TEST(Cli, FormatCheckWithInPlaceIsAUsageError) {
+    const fs::path d = scratch("format-check-in-place");
+    const std::string messy = "model   m\ninput x[2]\ndense d: 2 -> 1\noutput y[1]\n";
+    meander::test::write_text(d / "m.mnd", messy);
+    Outcome r = run("format --check --in-place " + (d / "m.mnd").string() + " 2>&1");
+    EXPECT_EQ(r.status, 2) << r.output;
+    EXPECT_NE(r.output.find("excludes"), std::string::npos) << r.output;
+    EXPECT_EQ(read_text(d / "m.mnd"), messy);
+}
