@@ -19,9 +19,8 @@ work=$(mktemp -d)
 trap 'rm -rf "$work"' EXIT
 
 timed() {  # prints "wall user+sys" seconds of the command
-    local t
-    t=$( { /usr/bin/time -f "%e %U %S" "$@" >/dev/null 2>/dev/null; } 2>&1 | tail -1)
-    awk '{ printf "%.2f %.2f", $1, $2 + $3 }' <<<"$t"
+    /usr/bin/time -o "$work/time" -f "%e %U %S" "$@" >/dev/null 2>&1
+    awk '{ printf "%.2f %.2f", $1, $2 + $3 }' "$work/time"
 }
 
 printf "%-14s %8s  %22s  %22s  %7s\n" sample rows "whole sweep, 1 thread" "default" "ratio"
