@@ -57,7 +57,11 @@ std::string render_activation_kernels(Precision p, const std::set<Activation>& u
 std::string apply_activation(const Emission& e, const Dense& d, const std::string& x);
 std::string apply_activation(Precision p, const Dense& d, const std::string& x);
 
-// dense.cpp
+// dense.cpp. Outputs go in blocks of kDenseBlockRows with one accumulator
+// each (weights.cpp interleaves the weights to match); a block's loop over
+// the inputs is written out when a layer has at most kUnrollInputs columns.
+inline constexpr int kDenseBlockRows = 4;
+inline constexpr int kUnrollInputs = 16;
 std::string render_dense_layers(const Emission& e);
 
 // integrators.cpp

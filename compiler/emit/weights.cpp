@@ -1,5 +1,8 @@
-// Emit, weight tables: each dense layer's weights (row-major) and bias as
-// constant arrays, in the section the firmware chooses.
+// Emit, weight tables: each dense layer's weights and bias as constant arrays,
+// in the section the firmware chooses. The weights are laid out the way the
+// dense kernels (dense.cpp) read them: rows in blocks of kDenseBlockRows,
+// interleaved within a block (column by column, the block's rows side by
+// side), then the rows left over, one after another.
 #include <fmt/format.h>
 
 #include "../source.hpp"
@@ -14,12 +17,20 @@ std::string render_weights(const Emission& e) {
         const int cols = d.in_total();
         std::vector<double> w;
         w.reserve(static_cast<std::size_t>(d.out * cols));
-        for (int r = 0; r < d.out; ++r)
+        auto at = [&](int r, int c) { return d.weight.size() == 0 ? 0.0 : d.weight(r, c); };
+        const int R = kDenseBlockRows;
+        const int blocked = d.out / R * R;
+        for (int r0 = 0; r0 < blocked; r0 += R)
             for (int c = 0; c < cols; ++c)
-                w.push_back(d.weight.size() == 0 ? 0.0 : d.weight(r, c));
-        o += fmt::format("// {}: weight {} x {} (row-major, y = W x{} + b){}\n", d.name, d.out, cols,
+                for (int r = r0; r < r0 + R; ++r) w.push_back(at(r, c));
+        for (int r = blocked; r < d.out; ++r)
+            for (int c = 0; c < cols; ++c) w.push_back(at(r, c));
+        o += fmt::format("// {}: weight {} x {} ({}y = W x{} + b){}\n", d.name, d.out, cols, blocked > 0 ? "" : "row-major, ",
                          d.time_input ? " with t as the last column of x" : "",
                          d.weight_tensor.empty() ? "" : ", tensor " + escape_controls(quote_string(d.weight_tensor)));
+        if (blocked > 0)
+            o += fmt::format("//   W[{0}b + r][c] at {0}*{1}*b + {0}*c + r for rows below {2}{3}\n", R, cols, blocked,
+                             blocked < d.out ? fmt::format(", W[r][c] at r*{} + c after", cols) : "");
         o += fmt::format("{}_WEIGHTS_ATTR const real w_{}[{}] = {{\n", M_, d.name, w.size());
         o += array_rows(w, e.p);
         o += "};\n";

@@ -55,10 +55,11 @@ namespace tiny_adaptive {
 
 namespace {
 
-// g1: weight 5 x 4 (row-major, y = W x with t as the last column of x + b), tensor "g1.weight"
+// g1: weight 5 x 4 (y = W x with t as the last column of x + b), tensor "g1.weight"
+//   W[4b + r][c] at 4*4*b + 4*c + r for rows below 4, W[r][c] at r*4 + c after
 TINY_ADAPTIVE_WEIGHTS_ATTR const real w_g1[20] = {
-    -0.2780379f, 0.39476684f, 0.32883325f, -0.3311848f, -0.30100054f, 0.38613862f, -0.43800005f, -0.33586916f,
-    -0.23007835f, 0.23658128f, 0.07694051f, -0.23356049f, 0.03944514f, -0.031599384f, 0.3548307f, 0.3802458f,
+    -0.2780379f, -0.30100054f, -0.23007835f, 0.03944514f, 0.39476684f, 0.38613862f, 0.23658128f, -0.031599384f,
+    0.32883325f, -0.43800005f, 0.07694051f, 0.3548307f, -0.3311848f, -0.33586916f, -0.23356049f, 0.3802458f,
     -0.40445873f, -0.12636918f, -0.06693185f, -0.22807571f,
 };
 // g1: bias 5, tensor "g1.bias"
@@ -178,22 +179,63 @@ bool all_finite(const real* v, std::size_t n) noexcept {
     return true;
 }
 
-// dense g1: 3 + t -> 5, softplus
-void dense_g1(const real* x, real t, real* y) noexcept {
-    for (std::size_t o = 0; o < 5; ++o) {
-        const real* w = w_g1 + o * 4;
+// dense g1: 3 + t -> 5, softplus; 1 block of 4 outputs, 1 output alone, inputs written out
+void dense_g1(const real* __restrict x, real t, real* __restrict y) noexcept {
+    const real* const volatile w_at = w_g1;
+    const real* __restrict w = w_at;
+    const real* const volatile b_at = b_g1;
+    const real* __restrict b = b_at;
+    for (std::size_t o = 0; o < 4; o += 4) {
+        real a0 = 0.0f, a1 = 0.0f, a2 = 0.0f, a3 = 0.0f;
+        {
+            const real xi = x[0];
+            a0 += w[0] * xi;
+            a1 += w[1] * xi;
+            a2 += w[2] * xi;
+            a3 += w[3] * xi;
+        }
+        {
+            const real xi = x[1];
+            a0 += w[4] * xi;
+            a1 += w[5] * xi;
+            a2 += w[6] * xi;
+            a3 += w[7] * xi;
+        }
+        {
+            const real xi = x[2];
+            a0 += w[8] * xi;
+            a1 += w[9] * xi;
+            a2 += w[10] * xi;
+            a3 += w[11] * xi;
+        }
+        a0 += w[12] * t;
+        a1 += w[13] * t;
+        a2 += w[14] * t;
+        a3 += w[15] * t;
+        w += 16;
+        a0 += b[o];
+        a1 += b[o + 1];
+        a2 += b[o + 2];
+        a3 += b[o + 3];
+        y[o] = act_softplus(a0);
+        y[o + 1] = act_softplus(a1);
+        y[o + 2] = act_softplus(a2);
+        y[o + 3] = act_softplus(a3);
+    }
+    for (std::size_t o = 4; o < 5; ++o, w += 4) {
         real acc = 0.0f;
         for (std::size_t i = 0; i < 3; ++i) acc += w[i] * x[i];
         acc += w[3] * t;
-        acc += b_g1[o];
+        acc += b[o];
         y[o] = act_softplus(acc);
     }
 }
 
-// dense g2: 5 -> 3, identity
-void dense_g2(const real* x, real* y) noexcept {
-    for (std::size_t o = 0; o < 3; ++o) {
-        const real* w = w_g2 + o * 5;
+// dense g2: 5 -> 3, identity; 0 blocks of 4 outputs, 3 outputs alone
+void dense_g2(const real* __restrict x, real* __restrict y) noexcept {
+    const real* const volatile w_at = w_g2;
+    const real* __restrict w = w_at;
+    for (std::size_t o = 0; o < 3; ++o, w += 5) {
         real acc = 0.0f;
         for (std::size_t i = 0; i < 5; ++i) acc += w[i] * x[i];
         y[o] = acc;

@@ -70,13 +70,16 @@ bool all_finite(const real* v, std::size_t n) noexcept {
     return true;
 }
 
-// dense h1: 2 -> 2, elu
-void dense_h1(const real* x, real* y) noexcept {
-    for (std::size_t o = 0; o < 2; ++o) {
-        const real* w = w_h1 + o * 2;
+// dense h1: 2 -> 2, elu; 0 blocks of 4 outputs, 2 outputs alone
+void dense_h1(const real* __restrict x, real* __restrict y) noexcept {
+    const real* const volatile w_at = w_h1;
+    const real* __restrict w = w_at;
+    const real* const volatile b_at = b_h1;
+    const real* __restrict b = b_at;
+    for (std::size_t o = 0; o < 2; ++o, w += 2) {
         real acc = 0.0;
         for (std::size_t i = 0; i < 2; ++i) acc += w[i] * x[i];
-        acc += b_h1[o];
+        acc += b[o];
         y[o] = act_elu(acc, 1.0);
     }
 }

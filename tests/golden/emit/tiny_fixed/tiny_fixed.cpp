@@ -59,10 +59,11 @@ TINY_FIXED_WEIGHTS_ATTR const real b_lift[3] = {
     -0.027395368f, 0.3775166f, 0.3441861f,
 };
 
-// f1: weight 4 x 4 (row-major, y = W x with t as the last column of x + b), tensor "f1.weight"
+// f1: weight 4 x 4 (y = W x with t as the last column of x + b), tensor "f1.weight"
+//   W[4b + r][c] at 4*4*b + 4*c + r for rows below 4
 TINY_FIXED_WEIGHTS_ATTR const real w_f1[16] = {
-    -0.09948924f, 0.38501203f, 0.31403434f, -0.4738005f, 0.2658752f, -0.3848177f, -0.16699854f, -0.47563782f,
-    0.45566216f, 0.42218322f, -0.164943f, 0.4086649f, -0.052236285f, -0.41888186f, -0.08759693f, -0.33330363f,
+    -0.09948924f, 0.2658752f, 0.45566216f, -0.052236285f, 0.38501203f, -0.3848177f, 0.42218322f, -0.41888186f,
+    0.31403434f, -0.16699854f, -0.164943f, -0.08759693f, -0.4738005f, -0.47563782f, 0.4086649f, -0.33330363f,
 };
 // f1: bias 4, tensor "f1.bias"
 TINY_FIXED_WEIGHTS_ATTR const real b_f1[4] = {
@@ -170,58 +171,103 @@ bool all_finite(const real* v, std::size_t n) noexcept {
     return true;
 }
 
-// dense lift: 2 -> 3, relu
-void dense_lift(const real* x, real* y) noexcept {
-    for (std::size_t o = 0; o < 3; ++o) {
-        const real* w = w_lift + o * 2;
+// dense lift: 2 -> 3, relu; 0 blocks of 4 outputs, 3 outputs alone
+void dense_lift(const real* __restrict x, real* __restrict y) noexcept {
+    const real* const volatile w_at = w_lift;
+    const real* __restrict w = w_at;
+    const real* const volatile b_at = b_lift;
+    const real* __restrict b = b_at;
+    for (std::size_t o = 0; o < 3; ++o, w += 2) {
         real acc = 0.0f;
         for (std::size_t i = 0; i < 2; ++i) acc += w[i] * x[i];
-        acc += b_lift[o];
+        acc += b[o];
         y[o] = act_relu(acc);
     }
 }
 
-// dense f1: 3 + t -> 4, tanh
-void dense_f1(const real* x, real t, real* y) noexcept {
-    for (std::size_t o = 0; o < 4; ++o) {
-        const real* w = w_f1 + o * 4;
-        real acc = 0.0f;
-        for (std::size_t i = 0; i < 3; ++i) acc += w[i] * x[i];
-        acc += w[3] * t;
-        acc += b_f1[o];
-        y[o] = act_tanh(acc);
+// dense f1: 3 + t -> 4, tanh; 1 block of 4 outputs, inputs written out
+void dense_f1(const real* __restrict x, real t, real* __restrict y) noexcept {
+    const real* const volatile w_at = w_f1;
+    const real* __restrict w = w_at;
+    const real* const volatile b_at = b_f1;
+    const real* __restrict b = b_at;
+    for (std::size_t o = 0; o < 4; o += 4) {
+        real a0 = 0.0f, a1 = 0.0f, a2 = 0.0f, a3 = 0.0f;
+        {
+            const real xi = x[0];
+            a0 += w[0] * xi;
+            a1 += w[1] * xi;
+            a2 += w[2] * xi;
+            a3 += w[3] * xi;
+        }
+        {
+            const real xi = x[1];
+            a0 += w[4] * xi;
+            a1 += w[5] * xi;
+            a2 += w[6] * xi;
+            a3 += w[7] * xi;
+        }
+        {
+            const real xi = x[2];
+            a0 += w[8] * xi;
+            a1 += w[9] * xi;
+            a2 += w[10] * xi;
+            a3 += w[11] * xi;
+        }
+        a0 += w[12] * t;
+        a1 += w[13] * t;
+        a2 += w[14] * t;
+        a3 += w[15] * t;
+        w += 16;
+        a0 += b[o];
+        a1 += b[o + 1];
+        a2 += b[o + 2];
+        a3 += b[o + 3];
+        y[o] = act_tanh(a0);
+        y[o + 1] = act_tanh(a1);
+        y[o + 2] = act_tanh(a2);
+        y[o + 3] = act_tanh(a3);
     }
 }
 
-// dense f2: 4 -> 3, identity
-void dense_f2(const real* x, real* y) noexcept {
-    for (std::size_t o = 0; o < 3; ++o) {
-        const real* w = w_f2 + o * 4;
+// dense f2: 4 -> 3, identity; 0 blocks of 4 outputs, 3 outputs alone
+void dense_f2(const real* __restrict x, real* __restrict y) noexcept {
+    const real* const volatile w_at = w_f2;
+    const real* __restrict w = w_at;
+    const real* const volatile b_at = b_f2;
+    const real* __restrict b = b_at;
+    for (std::size_t o = 0; o < 3; ++o, w += 4) {
         real acc = 0.0f;
         for (std::size_t i = 0; i < 4; ++i) acc += w[i] * x[i];
-        acc += b_f2[o];
+        acc += b[o];
         y[o] = acc;
     }
 }
 
-// dense r1: 3 -> 3, silu
-void dense_r1(const real* x, real* y) noexcept {
-    for (std::size_t o = 0; o < 3; ++o) {
-        const real* w = w_r1 + o * 3;
+// dense r1: 3 -> 3, silu; 0 blocks of 4 outputs, 3 outputs alone
+void dense_r1(const real* __restrict x, real* __restrict y) noexcept {
+    const real* const volatile w_at = w_r1;
+    const real* __restrict w = w_at;
+    const real* const volatile b_at = b_r1;
+    const real* __restrict b = b_at;
+    for (std::size_t o = 0; o < 3; ++o, w += 3) {
         real acc = 0.0f;
         for (std::size_t i = 0; i < 3; ++i) acc += w[i] * x[i];
-        acc += b_r1[o];
+        acc += b[o];
         y[o] = act_silu(acc);
     }
 }
 
-// dense head: 3 -> 2, softmax
-void dense_head(const real* x, real* y) noexcept {
-    for (std::size_t o = 0; o < 2; ++o) {
-        const real* w = w_head + o * 3;
+// dense head: 3 -> 2, softmax; 0 blocks of 4 outputs, 2 outputs alone
+void dense_head(const real* __restrict x, real* __restrict y) noexcept {
+    const real* const volatile w_at = w_head;
+    const real* __restrict w = w_at;
+    const real* const volatile b_at = b_head;
+    const real* __restrict b = b_at;
+    for (std::size_t o = 0; o < 2; ++o, w += 3) {
         real acc = 0.0f;
         for (std::size_t i = 0; i < 3; ++i) acc += w[i] * x[i];
-        acc += b_head[o];
+        acc += b[o];
         y[o] = acc;
     }
     // Max-subtracted: exp never overflows and the largest term is 1.
