@@ -1,13 +1,30 @@
 # meander_generate(<target> DESCRIPTION <file.mnd>
-#                  [OUTPUT_DIR <dir>] [PRECISION float32|float64] [C_API])
+#                  [OUTPUT_DIR <dir>] [PRECISION float32|float64] [C_API]
+#                  [SELF_TEST <inputs.csv>])
 #
 # Emits C++ for a description at build time and makes it a static library
 # <target> whose include folder holds <model>.hpp. The emitted files are
-# regenerated whenever the description, its weights or the meander binary
-# change. Inside this project the freshly built `meander` target is used;
-# elsewhere set MEANDER_EXECUTABLE or put meander on PATH.
+# regenerated whenever the description, its weights, the self-test inputs or
+# the meander binary change. SELF_TEST adds <model>_selftest.hpp/.cpp (the
+# inputs with eval's outputs, and self_test() to run them on the target).
+#
+# Which meander runs: inside this project, the freshly built `meander` target;
+# elsewhere the MEANDER_EXECUTABLE variable when set (a cache entry, so
+# -DMEANDER_EXECUTABLE=/path/to/meander on the command line works), else the
+# first `meander` on PATH (find_program; configuring fails when there is none).
+# An unknown keyword or a keyword without its value stops the configure step.
 function(meander_generate target)
-  cmake_parse_arguments(MG "C_API" "DESCRIPTION;OUTPUT_DIR;PRECISION" "" ${ARGN})
+  cmake_parse_arguments(MG "C_API" "DESCRIPTION;OUTPUT_DIR;PRECISION;SELF_TEST" "" ${ARGN})
+  if(MG_UNPARSED_ARGUMENTS)
+    message(FATAL_ERROR "meander_generate(${target}): unknown argument(s) ${MG_UNPARSED_ARGUMENTS} "
+                        "(known: DESCRIPTION, OUTPUT_DIR, PRECISION, C_API, SELF_TEST)")
+  endif()
+  if(MG_KEYWORDS_MISSING_VALUES)
+    message(FATAL_ERROR "meander_generate(${target}): ${MG_KEYWORDS_MISSING_VALUES} needs a value")
+  endif()
+  if(MG_PRECISION AND NOT MG_PRECISION MATCHES "^(float32|float64)$")
+    message(FATAL_ERROR "meander_generate(${target}): PRECISION is float32 or float64, not '${MG_PRECISION}'")
+  endif()
   if(NOT MG_DESCRIPTION)
     message(FATAL_ERROR "meander_generate(${target}): DESCRIPTION is required")
   endif()
@@ -56,13 +73,21 @@ function(meander_generate target)
     list(APPEND extra --c-api)
   endif()
   set(outputs "${MG_OUTPUT_DIR}/${model}.hpp" "${MG_OUTPUT_DIR}/${model}.cpp")
+  set(sources "${MG_OUTPUT_DIR}/${model}.cpp")
+  if(MG_SELF_TEST)
+    get_filename_component(self_test "${MG_SELF_TEST}" ABSOLUTE)
+    list(APPEND extra --self-test "${self_test}")
+    list(APPEND deps "${self_test}")
+    list(APPEND outputs "${MG_OUTPUT_DIR}/${model}_selftest.hpp" "${MG_OUTPUT_DIR}/${model}_selftest.cpp")
+    list(APPEND sources "${MG_OUTPUT_DIR}/${model}_selftest.cpp")
+  endif()
   add_custom_command(
     OUTPUT ${outputs}
     COMMAND "${tool}" compile "${desc}" -o "${MG_OUTPUT_DIR}" --precision ${MG_PRECISION} ${extra}
     DEPENDS ${deps}
     COMMENT "meander: emitting ${model} from ${MG_DESCRIPTION}"
     VERBATIM)
-  add_library(${target} STATIC "${MG_OUTPUT_DIR}/${model}.cpp")
+  add_library(${target} STATIC ${sources})
   target_include_directories(${target} PUBLIC "${MG_OUTPUT_DIR}")
   target_compile_features(${target} PUBLIC cxx_std_17)
 endfunction()

@@ -9,6 +9,7 @@
 #include <vector>
 
 #include "fan_balance.hpp"
+#include "fan_balance_selftest.hpp"  // SELF_TEST in meander_generate
 
 static std::vector<std::vector<double>> rows(const std::string& path) {
     std::ifstream in(path);
@@ -46,5 +47,9 @@ int main() {
         }
     }
     std::printf("%zu rows, largest deviation %.3g, %d failures\n", inputs.size(), worst, failures);
+    // The self-test the helper emitted holds the same 40 rows with eval's outputs.
+    const fan_balance::self_test_report st = fan_balance::self_test(ctx, 1e-4f);
+    std::printf("self-test: %u vectors, %u failures\n", st.vectors_run, st.failures);
+    if (st.vectors_run != inputs.size() || st.failures != 0 || !st.build_conditions_hold) ++failures;
     return failures == 0 ? 0 : 1;
 }
