@@ -9,14 +9,17 @@
 #include <cmath>
 #include <cstdio>
 #include <filesystem>
+#include <functional>
 #include <memory>
 #include <optional>
 #include <string>
 #include <vector>
 
+#include "baseline_support.hpp"
 #include "bench_support.hpp"
 #include "compiler/load.hpp"
 #include "compiler/source.hpp"
+#include "compiler/weights.hpp"
 #include "runtime/evaluate.hpp"
 #include "runtime/integrate.hpp"
 #include "runtime/tableau.hpp"
@@ -48,6 +51,40 @@ const SampleEntry kSamples[] = {
 #include "bench_samples.inc"
 #undef MEANDER_BENCH_SAMPLE
 };
+
+// The hand-written baselines (baseline_<sample>.cpp), by sample folder; each
+// reads <sample>.npz from that folder.
+struct BaselineEntry {
+    const char* sample;
+    void (*register_fn)(const meander_bench::Sample&, const meander_bench::baseline::Weights&);
+};
+const BaselineEntry kBaselines[] = {
+#ifdef MEANDER_BENCH_BASELINES
+    {"fan_balance", meander_bench::baseline::register_fan_balance},
+    {"boiler_ahead", meander_bench::baseline::register_boiler_ahead},
+    {"soil_probe", meander_bench::baseline::register_soil_probe},
+#endif
+    {nullptr, nullptr},
+};
+
+bool register_baseline(const meander_bench::Sample& s, const std::string& description) {
+    for (const BaselineEntry& b : kBaselines) {
+        if (!b.sample || s.name != b.sample) continue;
+        Diagnostics diags;
+        const fs::path npz = fs::path(description).parent_path() / (s.name + ".npz");
+        auto set = read_weights(npz.string(), diags);
+        if (!set) {
+            std::fputs(diags.render().c_str(), stderr);
+            return false;
+        }
+        b.register_fn(s, meander_bench::baseline::Weights(std::move(*set)));
+    }
+    return true;
+}
+
+// Instructions of `n` calls alone, for callgrind: ratios.sh runs
+// `valgrind --tool=callgrind --collect-atstart=no --toggle-collect=<this>`.
+__attribute__((noinline)) void counted_calls(const std::function<void(std::size_t)>& loop, std::size_t n) { loop(n); }
 
 // The sample whose continuous block is the field of the method benchmarks.
 constexpr const char* kFieldSample = "fan_balance";
@@ -217,6 +254,24 @@ void register_methods(const FieldCase& fc, const std::string& sample) {
 }  // namespace
 
 int main(int argc, char** argv) {
+    // --calls=NAME:N runs N inferences of benchmark NAME in counted_calls and
+    // nothing else (no timing, no method tuning): for instruction counts.
+    std::string calls_name;
+    std::size_t calls_n = 0;
+    for (int i = 1; i < argc; ++i) {
+        const std::string a = argv[i];
+        if (a.rfind("--calls=", 0) != 0) continue;
+        const std::size_t colon = a.rfind(':');
+        if (colon == std::string::npos || colon < 8) {
+            std::fprintf(stderr, "bench_infer: --calls=NAME:N, e.g. --calls=infer/fan_balance/float32:100\n");
+            return 2;
+        }
+        calls_name = a.substr(8, colon - 8);
+        calls_n = static_cast<std::size_t>(std::stoul(a.substr(colon + 1)));
+        for (int j = i; j + 1 < argc; ++j) argv[j] = argv[j + 1];
+        --argc;
+        break;
+    }
     benchmark::Initialize(&argc, argv);
     if (benchmark::ReportUnrecognizedArguments(argc, argv)) return 2;
     std::optional<FieldCase> field;
@@ -236,11 +291,23 @@ int main(int argc, char** argv) {
             if (ref.status != EvalStatus::ok) continue;  // a row the model rejects times nothing useful
             s.rows.push_back((*rows)[r]);
             s.reference.emplace_back(ref.output.data(), ref.output.data() + ref.output.size());
+            s.reference_evals.push_back(static_cast<std::uint32_t>(ref.stats.field_evals));
         }
         register_reference(model, s);
         e.float32(s);
         e.float64(s);
-        if (s.name == kFieldSample) field = field_case(model, s);
+        if (!register_baseline(s, e.description)) return 1;
+        if (calls_name.empty() && s.name == kFieldSample) field = field_case(model, s);
+    }
+    if (!calls_name.empty()) {
+        const auto loop = meander_bench::call_loops().find(calls_name);
+        if (loop == meander_bench::call_loops().end()) {
+            std::fprintf(stderr, "bench_infer: no benchmark %s to call\n", calls_name.c_str());
+            return 2;
+        }
+        counted_calls(loop->second, calls_n);
+        std::printf("%zu calls of %s\n", calls_n, calls_name.c_str());
+        return 0;
     }
     if (field)
         register_methods(*field, kFieldSample);
