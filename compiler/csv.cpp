@@ -19,90 +19,193 @@ bool is_blank(std::string_view s) {
     return true;
 }
 
-}  // namespace
+enum class NumberRead { ok, not_a_number, out_of_range };
 
-bool parse_number(std::string_view field, double& out) {
+std::string_view trimmed(std::string_view field) {
     std::size_t b = 0, e = field.size();
     while (b < e && (field[b] == ' ' || field[b] == '\t')) ++b;
     while (e > b && (field[e - 1] == ' ' || field[e - 1] == '\t' || field[e - 1] == '\r')) --e;
-    if (b == e) return false;
-    std::string tmp(field.substr(b, e - b));
+    return field.substr(b, e - b);
+}
+
+NumberRead read_number(std::string_view field, double& out) {
+    const std::string_view t = trimmed(field);
+    if (t.empty()) return NumberRead::not_a_number;
+    std::string tmp(t);
     // strtod is locale-dependent for the decimal point; the "C" locale is the
     // default in our programs, which never call setlocale.
     char* end = nullptr;
     errno = 0;
     out = std::strtod(tmp.c_str(), &end);
-    return end == tmp.c_str() + tmp.size() && errno != ERANGE;
+    if (end != tmp.c_str() + tmp.size()) return NumberRead::not_a_number;
+    // ERANGE also flags an underflow (a subnormal such as 5e-324, or a value that
+    // rounds to zero): strtod then returns the correctly rounded value. Only an
+    // overflow, which returns an infinity, is refused.
+    if (errno == ERANGE && std::isinf(out)) return NumberRead::out_of_range;
+    return NumberRead::ok;
 }
 
+struct Field {
+    std::size_t start;          // byte offset in the line
+    std::string_view text;
+};
+
+std::vector<Field> split(std::string_view line, char sep) {
+    std::vector<Field> out;
+    std::size_t pos = 0;
+    while (true) {
+        const std::size_t at = line.find(sep, pos);
+        out.push_back({pos, line.substr(pos, at == std::string_view::npos ? std::string_view::npos : at - pos)});
+        if (at == std::string_view::npos) return out;
+        pos = at + 1;
+    }
+}
+
+// The separator a line that does not split into `width` values at commas uses instead, if it is plain.
+char other_separator(std::string_view line, int width) {
+    const std::size_t commas = split(line, ',').size();
+    for (char c : {';', '\t', '|'}) {
+        const std::size_t n = split(line, c).size();
+        if (n > 1 && (static_cast<int>(n) == width || commas == 1)) return c;
+    }
+    return 0;
+}
+
+std::string separator_problem(char sep, std::string_view line) {
+    const char* name = sep == ';' ? "semicolons (';')" : sep == '\t' ? "tabs" : "vertical bars ('|')";
+    return fmt::format("the values are separated by {}, not commas: meander reads comma-separated values{}", name,
+                       line.find(',') != std::string_view::npos ? " with '.' as the decimal point" : "");
+}
+
+std::string shown(std::string_view text) {
+    const std::string_view t = trimmed(text);
+    return t.size() <= 24 ? std::string(t) : std::string(t.substr(0, 24)) + "...";
+}
+
+// "vib.3" or "vib[3]" for the vector "vib": the index, else -1.
+long vector_index(std::string_view name, std::string_view vector) {
+    if (vector.empty() || name.size() <= vector.size() + 1 || name.substr(0, vector.size()) != vector) return -1;
+    std::string_view rest = name.substr(vector.size());
+    if (rest.front() == '.') rest.remove_prefix(1);
+    else if (rest.front() == '[' && rest.back() == ']') rest = rest.substr(1, rest.size() - 2);
+    else return -1;
+    if (rest.empty() || rest.size() > 9) return -1;
+    long v = 0;
+    for (char c : rest) {
+        if (c < '0' || c > '9') return -1;
+        v = v * 10 + (c - '0');
+    }
+    return v;
+}
+
+}  // namespace
+
+void RowProblems::add(const std::string& key, Loc loc, std::string message) {
+    for (auto& p : list_)
+        if (p.key == key) {
+            ++p.more;
+            p.last_line = loc.line;
+            return;
+        }
+    list_.push_back(Problem{key, loc, std::move(message), 0, loc.line});
+}
+
+void RowProblems::report(const Source& src, Diagnostics& diags) const {
+    for (const auto& p : list_) {
+        std::string message = p.message;
+        if (p.more > 0)
+            message += fmt::format(" (and {} more row{} like it, the last on line {})", p.more, p.more == 1 ? "" : "s",
+                                   p.last_line);
+        diags.error(src, p.loc, std::move(message));
+    }
+}
+
+bool parse_number(std::string_view field, double& out) { return read_number(field, out) == NumberRead::ok; }
+
 std::optional<std::vector<std::vector<double>>> read_csv_rows(const std::string& path, int width, Diagnostics& diags,
-                                                              bool float32_range, std::vector<int>* lines) {
+                                                              bool float32_range, std::vector<int>* lines,
+                                                              std::string_view vector_name) {
     auto text = read_file(path, diags);
     if (!text) return std::nullopt;
     Source src(path, *text);
     std::vector<std::vector<double>> rows;
     bool first_content = true;
-    int errors_before = diags.error_count();
+    RowProblems problems;
     for (std::size_t li = 1; li <= src.line_starts.size(); ++li) {
-        std::string_view line = src.line_text(static_cast<int>(li));
+        const std::string_view line = src.line_text(static_cast<int>(li));
         if (is_blank(line) || line.front() == '#') continue;
-        std::vector<double> row;
-        std::vector<std::size_t> starts;
-        bool bad = false;
-        std::size_t bad_col = 0;
-        std::size_t pos = 0;
-        while (true) {
-            std::size_t comma = line.find(',', pos);
-            std::string_view field = line.substr(pos, comma == std::string_view::npos ? std::string_view::npos : comma - pos);
-            double v = 0;
-            if (!parse_number(field, v)) {
-                if (!bad) bad_col = pos;
-                bad = true;
-            }
-            row.push_back(v);
-            starts.push_back(pos);
-            if (comma == std::string_view::npos) break;
-            pos = comma + 1;
-        }
+        const int ln = static_cast<int>(li);
+        const std::vector<Field> fields = split(line, ',');
+        std::vector<double> row(fields.size(), 0.0);
+        std::vector<NumberRead> read(fields.size());
         bool any_number = false;
-        for (std::size_t i = 0; i < row.size() && !any_number; ++i) {
-            std::size_t end = i + 1 < starts.size() ? starts[i + 1] - 1 : line.size();
-            double ignored = 0;
-            any_number = parse_number(line.substr(starts[i], end - starts[i]), ignored);
+        for (std::size_t i = 0; i < fields.size(); ++i) {
+            read[i] = read_number(fields[i].text, row[i]);
+            any_number = any_number || read[i] != NumberRead::not_a_number;
         }
-        if (bad && first_content && !any_number) {  // a header line of names (a row with a typo is no header)
-            first_content = false;
-            if (static_cast<int>(row.size()) != width)
-                diags.error(src, Loc{static_cast<int>(li), 1},
-                            fmt::format("header names {} columns, expected {}", row.size(), width));
-            continue;
-        }
+        const bool header = first_content && !any_number;  // a header holds names only (a row with a typo is no header)
         first_content = false;
-        if (bad) {
-            diags.error(src, Loc{static_cast<int>(li), static_cast<int>(bad_col + 1)}, "expected a number");
+        if (static_cast<int>(fields.size()) != width) {
+            if (const char sep = other_separator(line, width)) {
+                problems.add("separator", Loc{ln, 1}, separator_problem(sep, line));
+                continue;
+            }
+            if (header)
+                problems.add("header", Loc{ln, 1}, fmt::format("header names {} columns, expected {}", fields.size(), width));
+            else
+                problems.add(fmt::format("count {}", fields.size()), Loc{ln, 1},
+                             fmt::format("row has {} value{}, expected {}", fields.size(), fields.size() == 1 ? "" : "s", width));
             continue;
         }
-        if (static_cast<int>(row.size()) != width) {
-            diags.error(src, Loc{static_cast<int>(li), 1},
-                        fmt::format("row has {} value{}, expected {}", row.size(), row.size() == 1 ? "" : "s", width));
+        if (header) {
+            for (std::size_t i = 0; i < fields.size(); ++i) {
+                const std::string_view name = trimmed(fields[i].text);
+                const Loc at{ln, static_cast<int>(fields[i].start + 1)};
+                for (std::size_t j = 0; j < i; ++j)
+                    if (trimmed(fields[j].text) == name) {
+                        problems.add(fmt::format("repeat {}", i), at,
+                                     fmt::format("column {} repeats the name '{}' of column {}", i + 1, shown(name), j + 1));
+                        break;
+                    }
+                const long k = vector_index(name, vector_name);
+                if (k >= 0 && static_cast<std::size_t>(k) != i)
+                    problems.add(fmt::format("order {}", i), at,
+                                 fmt::format("column {} is named '{}', but input '{}' takes its values in order: column {} "
+                                             "holds {}.{}",
+                                             i + 1, shown(name), vector_name, i + 1, vector_name, i));
+            }
             continue;
         }
-        if (float32_range) {
-            bool fits = true;
-            for (std::size_t i = 0; i < row.size() && fits; ++i)
-                if (std::fabs(row[i]) > static_cast<double>(std::numeric_limits<float>::max())) {
-                    diags.error(src, Loc{static_cast<int>(li), static_cast<int>(starts[i] + 1)},
-                                fmt::format("{} is beyond the float32 range (largest {}): the emitted float32 code "
-                                            "would see an infinite input",
-                                            format_double(row[i]), format_float(std::numeric_limits<float>::max())));
-                    fits = false;
-                }
-            if (!fits) continue;
+        bool fits = true;
+        for (std::size_t i = 0; i < fields.size() && fits; ++i) {
+            const Loc at{ln, static_cast<int>(fields[i].start + 1)};
+            if (read[i] == NumberRead::not_a_number) {
+                if (trimmed(fields[i].text).empty())
+                    problems.add(fmt::format("empty {}", i), at, fmt::format("column {} is empty: expected a number", i + 1));
+                else
+                    problems.add(fmt::format("text {}", i), at,
+                                 fmt::format("expected a number in column {}, not '{}'", i + 1, shown(fields[i].text)));
+                fits = false;
+            } else if (read[i] == NumberRead::out_of_range) {
+                problems.add(fmt::format("range {}", i), at,
+                             fmt::format("{} in column {} is beyond the range of a double", shown(fields[i].text), i + 1));
+                fits = false;
+            } else if (float32_range && std::fabs(row[i]) > static_cast<double>(std::numeric_limits<float>::max())) {
+                problems.add(fmt::format("float32 {}", i), at,
+                             fmt::format("{} is beyond the float32 range (largest {}): the emitted float32 code "
+                                         "would see an infinite input",
+                                         format_double(row[i]), format_float(std::numeric_limits<float>::max())));
+                fits = false;
+            }
         }
+        if (!fits) continue;
         rows.push_back(std::move(row));
-        if (lines) lines->push_back(static_cast<int>(li));
+        if (lines) lines->push_back(ln);
     }
-    if (diags.error_count() != errors_before) return std::nullopt;
+    if (!problems.empty()) {
+        problems.report(src, diags);
+        return std::nullopt;
+    }
     if (rows.empty()) {
         diags.error(path, "no input rows");
         return std::nullopt;

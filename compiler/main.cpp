@@ -100,7 +100,7 @@ std::optional<LoadedWithRows> load_with_rows(const std::string& path, Precision 
     auto loaded = load_model(path, p, diags);
     if (!loaded || refuse_stream(*loaded, path, command, diags)) return std::nullopt;
     std::vector<int> lines;
-    auto rows = read_csv_rows(input, loaded->model.input_size, diags, float32_inputs, &lines);
+    auto rows = read_csv_rows(input, loaded->model.input_size, diags, float32_inputs, &lines, loaded->model.input_name);
     if (!rows) return std::nullopt;
     return LoadedWithRows{std::move(*loaded), std::move(*rows), std::move(lines)};
 }
@@ -154,8 +154,10 @@ int cmd_check(const std::string& model_path, const std::string& precision) {
     return 0;
 }
 
+// `keep_going`: a row that does not evaluate gets NaN outputs and its result in the
+// last column (`result`: ok, input_not_finite, ...) instead of failing the run.
 int cmd_eval(const std::string& model_path, const std::string& input, const std::string& output, bool stats,
-             const std::string& labels_path) {
+             const std::string& labels_path, bool keep_going) {
     Diagnostics diags;
     auto loaded = load_model(model_path, Precision::float64, diags);
     if (!loaded) return flush(diags), kModelError;
@@ -169,7 +171,7 @@ int cmd_eval(const std::string& model_path, const std::string& input, const std:
         results = evaluate_sequences(model, *rows);
         for (const auto& r : *rows) lines.push_back(r.line);
     } else {
-        auto rows = read_csv_rows(input, model.input_size, diags, false, &lines);
+        auto rows = read_csv_rows(input, model.input_size, diags, false, &lines, model.input_name);
         if (!rows) return flush(diags), kModelError;
         for (const auto& x : to_vectors(*rows)) results.push_back(evaluate(model, x));
     }
@@ -177,29 +179,49 @@ int cmd_eval(const std::string& model_path, const std::string& input, const std:
     if (!labels_path.empty() && !(labels = read_labels(labels_path, model, results.size(), diags)))
         return flush(diags), kModelError;
     std::vector<Eigen::VectorXd> outputs;
+    std::vector<std::size_t> ok_rows;  // 0-based, for the labels of the rows that evaluated
     std::string csv = csv_header(model);
+    if (keep_going) csv.insert(csv.size() - 1, ",result");
     std::string stat_text;
     if (stats) stat_text = "row  field_evals  steps_taken  steps_rejected  h_min  h_max\n";
-    int row = 0;
-    std::optional<Source> csv_src;  // read again only to point at a failing row
+    int row = 0, failed = 0;
+    RowProblems problems;  // one diagnostic per distinct failure, with a count of the rows like it
     for (const EvalResult& r : results) {
         ++row;
         if (r.status != EvalStatus::ok) {
-            if (!csv_src) csv_src = load_source(input, diags);
+            ++failed;
             const std::string what = fmt::format("the model returns {}{} for this row", eval_status_name(r.status),
                                                  r.block.empty() ? "" : fmt::format(" in block '{}'", r.block));
-            if (csv_src)
-                diags.error(*csv_src, Loc{lines[static_cast<std::size_t>(row - 1)], 1}, what);
+            if (!keep_going) {
+                problems.add(what, Loc{lines[static_cast<std::size_t>(row - 1)], 1}, what);
+                continue;
+            }
+            for (int i = 0; i < model.output_size; ++i) csv += i ? ",nan" : "nan";
+            csv += fmt::format(",{}\n", eval_status_name(r.status));
             continue;
         }
         for (Eigen::Index i = 0; i < r.output.size(); ++i) csv += (i ? "," : "") + format_double(r.output[i]);
-        csv += "\n";
+        csv += keep_going ? ",ok\n" : "\n";
         outputs.push_back(r.output);
+        ok_rows.push_back(static_cast<std::size_t>(row - 1));
         if (stats)
             stat_text += fmt::format("{}  {}  {}  {}  {}  {}\n", row, r.stats.field_evals, r.stats.steps_taken,
                                      r.stats.steps_rejected, format_double(r.stats.h_min), format_double(r.stats.h_max));
     }
+    if (!problems.empty()) {
+        if (auto csv_src = load_source(input, diags)) problems.report(*csv_src, diags);  // read again to show the rows
+        else diags.error(input, fmt::format("{} rows did not evaluate", failed));
+    }
     if (!diags.ok()) return flush(diags), kModelError;
+    if (failed > 0)
+        diags.warning(input, fmt::format("{} of {} rows did not evaluate: their outputs are nan and the result column says why",
+                                         failed, row));
+    if (labels && failed > 0) {  // the metric over the rows that evaluated
+        Labels kept = *labels;
+        kept.rows.clear();
+        for (std::size_t i : ok_rows) kept.rows.push_back(labels->rows[i]);
+        labels = std::move(kept);
+    }
     if (output.empty()) {
         std::fputs(csv.c_str(), stdout);
     } else if (!write_file_atomic(output, csv, diags)) {
@@ -590,6 +612,9 @@ int main(int argc, char** argv) {
     eval->add_flag("--stats", stats, "print field evaluations, accepted/rejected steps and step sizes per row (stderr)");
     std::string labels_path;
     eval->add_option("--labels", labels_path, "CSV of held-out labels, a row per input row: print the task metric (stderr)");
+    bool keep_going = false;
+    eval->add_flag("--keep-going", keep_going,
+                   "a row that does not evaluate gets nan outputs and its result in a last column, 'result', instead of failing the run");
 
     auto* compile = app.add_subcommand("compile", "emit standalone C++ for the model");
     compile->add_option("model", model, "description (.mnd)")->required();
@@ -735,7 +760,7 @@ int main(int argc, char** argv) {
 
     try {
         if (*check) return cmd_check(model, precision);
-        if (*eval) return cmd_eval(model, input, output, stats, labels_path);
+        if (*eval) return cmd_eval(model, input, output, stats, labels_path, keep_going);
         if (*compile) return cmd_compile(model, outdir, precision, c_api, self_test, dump);
         if (*verify) return cmd_verify(model, input, precision, tol, cxx, keep, show);
         if (*cost) return cmd_cost(model, input, precision, core, cycles_per_mac, json, estimate_only);

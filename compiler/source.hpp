@@ -134,17 +134,47 @@ std::optional<std::string> run_capture(const std::string& command);
 // 64-bit FNV-1a, for the content hash in emitted banners.
 std::uint64_t fnv1a64(std::string_view bytes, std::uint64_t seed = 0xcbf29ce484222325ULL);
 
-// Rows of numbers from a CSV file (comma separated, optional header line of
-// names, blank lines and '#' comment lines skipped). Every row must have
-// `width` values; errors are reported as path:line:col.
+// Rows of numbers from a CSV file (comma separated, '.' the decimal point,
+// optional header line of names, blank lines and '#' comment lines skipped).
+// Every row must have `width` values. Problems are reported as path:line:col,
+// one diagnostic per distinct problem (its first row, and a count of the rows
+// like it): a wrong column count, a value that is not a number (by column), a
+// number beyond the range of a double, values separated by semicolons, tabs or
+// vertical bars (named as such). Subnormal numbers read as themselves.
 // With `float32_range`, a value beyond the largest float (it would become
 // infinite in emitted float32 code) is an error too.
 // `lines`, when given, receives the 1-based file line of each row.
+// `vector_name`, when given (the description's input name, say "vib"), checks a
+// header's columns that name the input's values ("vib.3" or "vib[3]") against
+// their positions; a header also may not repeat a name.
 std::optional<std::vector<std::vector<double>>> read_csv_rows(const std::string& path, int width, Diagnostics& diags,
-                                                              bool float32_range = false, std::vector<int>* lines = nullptr);
+                                                              bool float32_range = false, std::vector<int>* lines = nullptr,
+                                                              std::string_view vector_name = {});
 
-// One CSV field as a number (blanks around allowed; strtod spelling, so "nan" and "inf" read too).
+// One CSV field as a number (blanks around allowed; strtod spelling, so "nan",
+// "-nan", "inf" and "-inf", everything eval writes, read too; a subnormal or
+// underflowing value reads as its nearest double).
 bool parse_number(std::string_view field, double& out);
+
+// Diagnostics about many rows of a file, one per distinct problem: the first row
+// that shows it, with the count of the others ("and 39 more rows like it, the
+// last on line 44"). `key` tells problems apart; rows are added in file order.
+class RowProblems {
+public:
+    void add(const std::string& key, Loc loc, std::string message);
+    void report(const Source& src, Diagnostics& diags) const;
+    bool empty() const { return list_.empty(); }
+
+private:
+    struct Problem {
+        std::string key;
+        Loc loc;
+        std::string message;
+        int more = 0;
+        int last_line = 0;
+    };
+    std::vector<Problem> list_;
+};
 
 // Shortest text that reads back to the same double / float (fmt, locale-free).
 std::string format_double(double v);

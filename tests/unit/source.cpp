@@ -56,7 +56,7 @@ TEST(Csv, BadValueHasPosition) {
     Diagnostics d;
     EXPECT_FALSE(read_csv_rows(p.string(), 2, d));
     std::string file = p.string();
-    EXPECT_EQ(d.render(), file + ":2:3: error: expected a number\n3,x4\n  ^\n" + file +
+    EXPECT_EQ(d.render(), file + ":2:3: error: expected a number in column 2, not 'x4'\n3,x4\n  ^\n" + file +
                               ":3:1: error: row has 1 value, expected 2\n5\n^\n");
     fs::remove(p);
 }
@@ -101,7 +101,7 @@ TEST(Csv, AFirstRowWithATypoIsNoHeader) {
     std::ofstream(p) << "0.1,O.2\n1,2\n";
     Diagnostics d;
     EXPECT_FALSE(read_csv_rows(p.string(), 2, d));
-    EXPECT_EQ(d.render(), p.string() + ":1:5: error: expected a number\n0.1,O.2\n    ^\n");
+    EXPECT_EQ(d.render(), p.string() + ":1:5: error: expected a number in column 2, not 'O.2'\n0.1,O.2\n    ^\n");
     fs::remove(p);
 }
 

@@ -1,0 +1,186 @@
+// CSV input a person can fix: one diagnostic per distinct problem with a count
+// of the rows like it, a wrong separator named, subnormal numbers and
+// everything eval writes read back, a header checked against the input's name,
+// and `eval --keep-going`.
+// Expected numbers come from outside the reader: IEEE 754 binary64 facts
+// (std::numeric_limits, the compiler's own reading of decimal literals) and the
+// sample's expected.csv (samples/check_expected.py, an independent NumPy
+// forward pass); diagnostics are the texts meander promises (grammar/LANGUAGE.md
+// and README).
+#include <gtest/gtest.h>
+
+#include <cmath>
+#include <cstring>
+#include <filesystem>
+#include <limits>
+#include <sstream>
+
+#include "compiler/source.hpp"
+#include "test_support.hpp"
+
+namespace fs = std::filesystem;
+using namespace meander;
+
+namespace {
+
+fs::path scratch(const std::string& name) { return test::scratch_dir("test_csv", name); }
+
+// The diagnostics of reading `text` as rows of `width`, rendered, with the path shortened to "in.csv".
+std::string problems(const std::string& name, const std::string& text, int width, std::string_view vector = {}) {
+    const fs::path dir = scratch(name);
+    test::write_text(dir / "in.csv", text);
+    Diagnostics d;
+    std::vector<int> lines;
+    EXPECT_FALSE(read_csv_rows((dir / "in.csv").string(), width, d, false, &lines, vector));
+    std::string out = d.render();
+    const std::string path = (dir / "in.csv").string();
+    for (std::size_t at; (at = out.find(path)) != std::string::npos;) out.replace(at, path.size(), "in.csv");
+    return out;
+}
+
+std::uint64_t bits(double v) {
+    std::uint64_t b;
+    std::memcpy(&b, &v, sizeof b);
+    return b;
+}
+
+TEST(CsvNumbers, SubnormalsReadAsThemselves) {
+    const fs::path dir = scratch("subnormal");
+    test::write_text(dir / "in.csv", "a,b,c,d,e\n5e-324,-5e-324,1e-310,2.2250738585072009e-308,1e-400\n");
+    Diagnostics d;
+    auto rows = read_csv_rows((dir / "in.csv").string(), 5, d);
+    ASSERT_TRUE(rows) << d.render();
+    const auto& r = (*rows)[0];
+    EXPECT_EQ(r[0], std::numeric_limits<double>::denorm_min());   // IEEE 754: 2^-1074 is the least subnormal
+    EXPECT_EQ(r[1], -std::numeric_limits<double>::denorm_min());
+    EXPECT_EQ(r[2], 1e-310);                                      // the compiler's rounding of the literal
+    EXPECT_EQ(r[3], 2.2250738585072009e-308);                     // the largest subnormal
+    EXPECT_LT(r[3], std::numeric_limits<double>::min());
+    EXPECT_EQ(bits(r[4]), bits(0.0));                             // below half the least subnormal: rounds to +0
+}
+
+// Whatever format_double writes (eval's outputs), parse_number reads back to the same bits.
+TEST(CsvNumbers, EverythingEvalWritesReadsBack) {
+    const double values[] = {0.1,
+                             -0.0,
+                             std::numeric_limits<double>::denorm_min(),
+                             std::numeric_limits<double>::min(),
+                             std::numeric_limits<double>::max(),
+                             -std::numeric_limits<double>::max(),
+                             std::numeric_limits<double>::infinity(),
+                             -std::numeric_limits<double>::infinity(),
+                             1.0 / 3.0};
+    for (double v : values) {
+        double back = 0;
+        ASSERT_TRUE(parse_number(format_double(v), back)) << format_double(v);
+        EXPECT_EQ(bits(back), bits(v)) << format_double(v);
+    }
+    for (double v : {std::numeric_limits<double>::quiet_NaN(), -std::numeric_limits<double>::quiet_NaN()}) {
+        double back = 0;
+        ASSERT_TRUE(parse_number(format_double(v), back)) << format_double(v);
+        EXPECT_TRUE(std::isnan(back)) << format_double(v);
+    }
+}
+
+TEST(CsvProblems, OverflowIsNamed) {
+    EXPECT_EQ(problems("overflow", "1,2\n1e400,2\n", 2),
+              "in.csv:2:1: error: 1e400 in column 1 is beyond the range of a double\n1e400,2\n^\n");
+}
+
+TEST(CsvProblems, SemicolonsAreNamedOnceWithACount) {
+    EXPECT_EQ(problems("semicolon", "a;b;c\n1,5;2;3\n4;5;6\n7;8;9\n", 3),
+              "in.csv:1:1: error: the values are separated by semicolons (';'), not commas: meander reads comma-separated "
+              "values (and 3 more rows like it, the last on line 4)\na;b;c\n^\n");
+    // Decimal commas are the usual reason; the message then says which decimal point is read.
+    EXPECT_EQ(problems("decimal-comma", "1,5;2,25\n", 2),
+              "in.csv:1:1: error: the values are separated by semicolons (';'), not commas: meander reads comma-separated "
+              "values with '.' as the decimal point\n1,5;2,25\n^\n");
+}
+
+TEST(CsvProblems, TabsAreNamed) {
+    EXPECT_EQ(problems("tab", "1\t2\n3\t4\n", 2),
+              "in.csv:1:1: error: the values are separated by tabs, not commas: meander reads comma-separated values (and 1 "
+              "more row like it, the last on line 2)\n1\t2\n^\n");
+}
+
+TEST(CsvProblems, OneDiagnosticPerDistinctProblem) {
+    std::string text = "a,b,c\n";
+    for (int i = 0; i < 40; ++i) text += "1,2\n";      // lines 2-41: too few values
+    text += "1,x,3\n1,y,3\n1,2,3,4\n1,,3\n";           // lines 42-45
+    EXPECT_EQ(problems("grouped", text, 3),
+              "in.csv:2:1: error: row has 2 values, expected 3 (and 39 more rows like it, the last on line 41)\n1,2\n^\n"
+              "in.csv:42:3: error: expected a number in column 2, not 'x' (and 1 more row like it, the last on line 43)\n"
+              "1,x,3\n  ^\n"
+              "in.csv:44:1: error: row has 4 values, expected 3\n1,2,3,4\n^\n"
+              "in.csv:45:3: error: column 2 is empty: expected a number\n1,,3\n  ^\n");
+}
+
+TEST(CsvProblems, HeaderIsCheckedAgainstTheInputName) {
+    EXPECT_EQ(problems("header-order", "vib.0,vib[2],vib.1\n1,2,3\n", 3, "vib"),
+              "in.csv:1:7: error: column 2 is named 'vib[2]', but input 'vib' takes its values in order: column 2 holds "
+              "vib.1\nvib.0,vib[2],vib.1\n      ^\n"
+              "in.csv:1:14: error: column 3 is named 'vib.1', but input 'vib' takes its values in order: column 3 holds "
+              "vib.2\nvib.0,vib[2],vib.1\n             ^\n");
+    EXPECT_EQ(problems("header-repeat", "amps,volts,amps\n1,2,3\n", 3),
+              "in.csv:1:12: error: column 3 repeats the name 'amps' of column 1\namps,volts,amps\n           ^\n");
+    EXPECT_EQ(problems("header-count", "amps,volts\n1,2,3\n", 3),
+              "in.csv:1:1: error: header names 2 columns, expected 3\namps,volts\n^\n");
+    // Names in order, or names of the user's own, pass.
+    const fs::path dir = scratch("header-ok");
+    test::write_text(dir / "in.csv", "vib.0,vib.1,rpm\n1,2,3\n");
+    Diagnostics d;
+    EXPECT_TRUE(read_csv_rows((dir / "in.csv").string(), 3, d, false, nullptr, "vib")) << d.render();
+}
+
+// eval --keep-going on soil_probe's inputs with two rows made non-finite: the other rows
+// equal expected.csv, the two carry nan and their result.
+TEST(EvalKeepGoing, WritesAResultColumn) {
+    const fs::path sample = fs::path(MEANDER_SOURCE_DIR) / "samples" / "soil_probe";
+    const fs::path dir = scratch("keep-going");
+    std::istringstream in(test::read_text(sample / "inputs.csv"));
+    std::string line, text;
+    for (int i = 0; std::getline(in, line) && i < 6; ++i) {
+        if (i == 2) line = "nan" + line.substr(line.find(','));
+        if (i == 4) line = line.substr(0, line.rfind(',')) + ",inf";
+        text += line + "\n";
+    }
+    test::write_text(dir / "in.csv", text);
+    const std::string cmd = std::string(MEANDER_BINARY) + " eval " + (sample / "soil_probe.mnd").string() + " --input " +
+                            (dir / "in.csv").string();
+    const auto failed = test::run(cmd);
+    EXPECT_EQ(failed.status, 1);
+    EXPECT_NE(failed.output.find(":3:1: error: the model returns input_not_finite for this row (and 1 more row like it, "
+                                 "the last on line 5)"),
+              std::string::npos)
+        << failed.output;
+
+    const auto r = test::run(cmd + " --keep-going --output " + (dir / "out.csv").string());
+    EXPECT_EQ(r.status, 0) << r.output;
+    EXPECT_NE(r.output.find("warning: 2 of 5 rows did not evaluate: their outputs are nan and the result column says why"),
+              std::string::npos)
+        << r.output;
+    std::istringstream got(test::read_text(dir / "out.csv"));
+    std::istringstream want(test::read_text(sample / "expected.csv"));
+    std::getline(got, line);
+    EXPECT_EQ(line, "estimate.0,estimate.1,result");
+    std::getline(want, line);  // its own header
+    for (int row = 1; row <= 5; ++row) {
+        std::string g, w;
+        ASSERT_TRUE(std::getline(got, g));
+        ASSERT_TRUE(std::getline(want, w));
+        if (row == 2 || row == 4) {
+            EXPECT_EQ(g, "nan,nan,input_not_finite");
+            continue;
+        }
+        ASSERT_EQ(g.substr(g.rfind(',')), ",ok") << g;
+        double g0 = 0, g1 = 0, w0 = 0, w1 = 0;
+        ASSERT_TRUE(parse_number(g.substr(0, g.find(',')), g0));
+        ASSERT_TRUE(parse_number(g.substr(g.find(',') + 1, g.rfind(',') - g.find(',') - 1), g1));
+        ASSERT_TRUE(parse_number(w.substr(0, w.find(',')), w0));
+        ASSERT_TRUE(parse_number(w.substr(w.find(',') + 1), w1));
+        EXPECT_NEAR(g0, w0, 1e-9 * std::max(1.0, std::fabs(w0))) << "row " << row;
+        EXPECT_NEAR(g1, w1, 1e-9 * std::max(1.0, std::fabs(w1))) << "row " << row;
+    }
+}
+
+}  // namespace
