@@ -120,6 +120,12 @@ void RowProblems::report(const Source& src, Diagnostics& diags) const {
     }
 }
 
+std::string csv_separator_problem(std::string_view line, std::size_t fields) {
+    if (split(line, ',').size() == fields) return {};
+    const char sep = other_separator(line, static_cast<int>(fields));
+    return sep ? separator_problem(sep, line) : std::string();
+}
+
 bool parse_number(std::string_view field, double& out) { return read_number(field, out) == NumberRead::ok; }
 
 std::optional<std::vector<std::vector<double>>> read_csv_rows(const std::string& path, int width, Diagnostics& diags,

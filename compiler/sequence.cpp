@@ -37,6 +37,7 @@ std::optional<std::vector<SequenceRow>> read_sequence_file(const std::string& pa
     std::vector<SequenceRow> rows;
     std::map<std::string, int> began;   // sequence id -> line of its first row
     std::optional<SequenceRow> prev;    // the previous good row (without its values)
+    RowProblems problems;               // one diagnostic per distinct problem, with a count of the rows like it
     bool first_content = true;
     const double flt_max = static_cast<double>(std::numeric_limits<float>::max());
     for (std::size_t li = 1; li <= src.line_starts.size(); ++li) {
@@ -55,6 +56,14 @@ std::optional<std::vector<SequenceRow>> read_sequence_file(const std::string& pa
         auto at = [&](std::size_t i) { return Loc{line, static_cast<int>(starts[i] + 1)}; };
         double t = 0;
         const bool time_is_number = fields.size() > 1 && parse_number(fields[1], t);
+        if (fields.size() != columns) {
+            const std::string sep = csv_separator_problem(text_line, columns);
+            if (!sep.empty()) {
+                first_content = false;
+                problems.add("separator", Loc{line, 1}, sep);
+                continue;
+            }
+        }
         if (first_content && !time_is_number) {  // a header line of names
             first_content = false;
             if (fields.size() != columns)
@@ -65,24 +74,24 @@ std::optional<std::vector<SequenceRow>> read_sequence_file(const std::string& pa
         }
         first_content = false;
         if (fields.size() != columns) {
-            diags.error(src, Loc{line, 1}, fmt::format("row has {} columns, expected {}: a sequence id, a time stamp and {} "
-                                                       "observation values",
-                                                       fields.size(), columns, width));
+            problems.add(fmt::format("count {}", fields.size()), Loc{line, 1},
+                         fmt::format("row has {} columns, expected {}: a sequence id, a time stamp and {} observation values",
+                                     fields.size(), columns, width));
             continue;
         }
         SequenceRow row;
         row.line = line;
         row.id = std::string(trimmed(fields[0]));
         if (row.id.empty()) {
-            diags.error(src, at(0), "expected a sequence id");
+            problems.add("id", at(0), "expected a sequence id");
             continue;
         }
         if (!time_is_number) {
-            diags.error(src, at(1), "expected a time stamp (a number)");
+            problems.add("time", at(1), "expected a time stamp (a number)");
             continue;
         }
         if (!std::isfinite(t)) {
-            diags.error(src, at(1), fmt::format("time stamp {} is not finite", trimmed(fields[1])));
+            problems.add("time finite", at(1), fmt::format("time stamp {} is not finite", trimmed(fields[1])));
             continue;
         }
         row.time = t;
@@ -90,10 +99,11 @@ std::optional<std::vector<SequenceRow>> read_sequence_file(const std::string& pa
         for (std::size_t i = 2; i < columns && !bad; ++i) {
             double v = 0;
             if (!parse_number(fields[i], v)) {
-                diags.error(src, at(i), "expected a number");
+                problems.add(fmt::format("text {}", i), at(i),
+                             fmt::format("expected a number in column {}, not '{}'", i + 1, trimmed(fields[i])));
                 bad = true;
             } else if (float32_range && std::fabs(v) > flt_max) {
-                diags.error(src, at(i), fmt::format("{} is beyond the float32 range (largest {}): the emitted float32 code "
+                problems.add(fmt::format("float32 {}", i), at(i), fmt::format("{} is beyond the float32 range (largest {}): the emitted float32 code "
                                                     "would see an infinite input",
                                                     format_double(v), format_float(std::numeric_limits<float>::max())));
                 bad = true;
@@ -104,7 +114,7 @@ std::optional<std::vector<SequenceRow>> read_sequence_file(const std::string& pa
         if (!prev || prev->id != row.id) {
             auto [it, fresh] = began.emplace(row.id, line);
             if (!fresh) {
-                diags.error(src, at(0), fmt::format("sequence '{}' returns after another began (its rows start on line {}); the "
+                problems.add("returns", at(0), fmt::format("sequence '{}' returns after another began (its rows start on line {}); the "
                                                     "rows of a sequence must be together",
                                                     row.id, it->second));
                 continue;
@@ -115,17 +125,17 @@ std::optional<std::vector<SequenceRow>> read_sequence_file(const std::string& pa
             const std::string step = fmt::format("time stamp {} after {} (line {})", format_number(row.time),
                                                  format_number(prev->time), prev->line);
             if (gap < 0) {
-                diags.error(src, at(1), fmt::format("time goes backwards within sequence '{}': {}", row.id, step));
+                problems.add("backwards", at(1), fmt::format("time goes backwards within sequence '{}': {}", row.id, step));
                 continue;
             }
             if (gap == 0) {
-                diags.error(src, at(1), fmt::format("time stamp {} repeats the previous row's (line {}); time stamps must "
+                problems.add("repeat", at(1), fmt::format("time stamp {} repeats the previous row's (line {}); time stamps must "
                                                     "increase within a sequence",
                                                     format_number(row.time), prev->line));
                 continue;
             }
             if (!(gap <= largest_gap)) {
-                diags.error(src, at(1), fmt::format("gap {} since the previous row ({}) is larger than the model's largest gap {}",
+                problems.add("gap", at(1), fmt::format("gap {} since the previous row ({}) is larger than the model's largest gap {}",
                                                     format_number(gap), step, format_number(largest_gap)));
                 continue;
             }
@@ -134,6 +144,7 @@ std::optional<std::vector<SequenceRow>> read_sequence_file(const std::string& pa
         prev = SequenceRow{row.id, row.time, row.gap, row.first, {}, row.line};
         rows.push_back(std::move(row));
     }
+    problems.report(src, diags);
     if (diags.error_count() != before) return std::nullopt;
     if (rows.empty()) {
         diags.error(path, "no observation rows");

@@ -156,6 +156,10 @@ std::optional<std::vector<std::vector<double>>> read_csv_rows(const std::string&
 // underflowing value reads as its nearest double).
 bool parse_number(std::string_view field, double& out);
 
+// For a CSV line that does not split at commas into `fields` values: the message that
+// names the separator it uses instead (semicolons, tabs, vertical bars), or empty.
+std::string csv_separator_problem(std::string_view line, std::size_t fields);
+
 // Diagnostics about many rows of a file, one per distinct problem: the first row
 // that shows it, with the count of the others ("and 39 more rows like it, the
 // last on line 44"). `key` tells problems apart; rows are added in file order.

@@ -259,7 +259,14 @@ TEST(StreamLanguage, SequenceFileDiagnostics) {
     EXPECT_EQ(sequence_error("a,0,1,2\nb,0,1,2\na,5,1,2\n"),
               "seq.csv:3:1: error: sequence 'a' returns after another began (its rows start on line 1); the rows of a "
               "sequence must be together\na,5,1,2\n^\n");
-    EXPECT_EQ(sequence_error("a,0,1,x\n"), "seq.csv:1:7: error: expected a number\na,0,1,x\n      ^\n");
+    EXPECT_EQ(sequence_error("a,0,1,x\n"), "seq.csv:1:7: error: expected a number in column 4, not 'x'\na,0,1,x\n      ^\n");
+    // One diagnostic per distinct problem, with the count of the rows like it; a wrong separator named.
+    EXPECT_EQ(sequence_error("a,0,1,2\na,1,3\na,2,3\na,3,3\n"),
+              "seq.csv:2:1: error: row has 3 columns, expected 4: a sequence id, a time stamp and 2 observation values (and "
+              "2 more rows like it, the last on line 4)\na,1,3\n^\n");
+    EXPECT_EQ(sequence_error("id;t;x1;x2\na;0;1;2\na;1;3;4\n"),
+              "seq.csv:1:1: error: the values are separated by semicolons (';'), not commas: meander reads comma-separated "
+              "values (and 2 more rows like it, the last on line 3)\nid;t;x1;x2\n^\n");
     EXPECT_EQ(sequence_error(",0,1,2\n"), "seq.csv:1:1: error: expected a sequence id\n,0,1,2\n^\n");
 }
 
