@@ -22,6 +22,10 @@ double default_tolerance(Precision p) { return p == Precision::float32 ? 1e-4 : 
 namespace {
 
 std::string literal(double v, Precision p) {
+    // Rows may hold NaN or infinities (the emitted code must answer input_not_finite):
+    // spelled through numeric_limits, since C++ has no literal for them.
+    if (std::isnan(v)) return "std::numeric_limits<real_t>::quiet_NaN()";
+    if (std::isinf(v)) return v > 0 ? "std::numeric_limits<real_t>::infinity()" : "-std::numeric_limits<real_t>::infinity()";
     if (p == Precision::float64) {
         std::string s = format_double(v);
         if (s.find_first_of(".eEn") == std::string::npos) s += ".0";
@@ -39,7 +43,8 @@ std::string literal(double v, Precision p) {
 std::string driver_source(const Model& m, const std::vector<std::vector<double>>& inputs, Precision p,
                           const std::vector<SequenceRow>* rows = nullptr) {
     std::string s;
-    s += fmt::format("#include \"{}.hpp\"\n#include <cstdio>\n\n", m.name);
+    s += fmt::format("#include \"{}.hpp\"\n#include <cstdio>\n#include <limits>\n\n", m.name);
+    s += fmt::format("using real_t = {}::real;\n\n", m.name);
     s += fmt::format("static const {0}::real kInputs[{1}][{2}] = {{\n", m.name, inputs.size(), m.input_size);
     for (const auto& row : inputs) {
         s += "    {";

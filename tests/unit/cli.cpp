@@ -341,3 +341,20 @@ TEST(Cli, FormatCheckWithInPlaceIsAUsageError) {
     EXPECT_NE(r.output.find("excludes"), std::string::npos) << r.output;
     EXPECT_EQ(read_text(d / "m.mnd"), messy);
 }
+
+// A NaN row reaches the emitted code (which must answer input_not_finite, as eval does):
+// verify's own driver spells it through numeric_limits instead of failing to build.
+TEST(Cli, VerifyTakesANonFiniteRow) {
+    const fs::path d = scratch("verify-nan-row");
+    const fs::path s = fs::path(MEANDER_SOURCE_DIR) / "samples/fan_balance";
+    std::string rows = read_text(s / "inputs.csv");
+    rows = rows.substr(0, rows.find('\n', rows.find('\n') + 1) + 1) + "nan,1,2,3,4,5,6,7\n-nan,1,2,3,4,5,6,7\n";
+    meander::test::write_text(d / "rows.csv", rows);
+    for (const char* p : {"float32", "float64"}) {
+        SCOPED_TRACE(p);
+        Outcome r = run("verify " + (s / "fan_balance.mnd").string() + " --input " + (d / "rows.csv").string() +
+                        " --precision " + p);
+        EXPECT_EQ(r.status, 0) << r.output;
+        EXPECT_NE(r.output.find("2 with the same result other than ok in both"), std::string::npos) << r.output;
+    }
+}
