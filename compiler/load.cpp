@@ -40,7 +40,7 @@ std::optional<LoadedModel> load_model(const std::string& path, Precision precisi
             diags.note(out.source, out.model.weights_loc, fmt::format("the weights file '{}' is named here", weights));
             return std::nullopt;
         };
-        auto set = read_weights(weights, diags, out.model.weights_key);
+        auto set = read_weights(weights, diags, out.model.weights_key, &out.model);
         if (!set) return named_here();
         if (!bind_weights(out.model, out.source, *set, diags)) return std::nullopt;
         if (!check_weight_range(out.model, out.source, precision, diags)) return std::nullopt;

@@ -133,7 +133,7 @@ int cmd_tensors(const std::string& file, const std::string& under) {
         weights = weights_path_of(loaded->model, file);
         if (key.empty()) key = loaded->model.weights_key;
     }
-    auto set = read_weights(weights, diags, key);
+    auto set = read_weights(weights, diags, key, loaded ? &loaded->model : nullptr);
     if (!set) return flush(diags), kModelError;
     std::vector<std::string> binding;
     if (loaded) {

@@ -4,6 +4,7 @@
 #pragma once
 
 #include <cstddef>
+#include <cstdint>
 #include <optional>
 #include <string>
 #include <vector>
@@ -26,12 +27,43 @@ struct TensorSet {
     const Tensor* find(const std::string& name) const;
 };
 
+// How much one weights file may bring into memory: the file's size, and for a
+// zip archive (.npz, torch.save) the inflated bytes of the members read. The
+// readers stop at the limit, before reading or inflating what would pass it.
+inline constexpr std::uint64_t kMaxWeightsBytes = std::uint64_t{256} << 20;     // any weights file
+// Given a description: what its layers bind, kWeightsSlack times over at 8
+// bytes a value (float64, or a checkpoint with optimiser state), plus an
+// allowance for headers, the pickle and small extras.
+inline constexpr std::uint64_t kWeightsSlack = 4;
+inline constexpr std::uint64_t kWeightsAllowance = std::uint64_t{4} << 20;
+// Replaces both limits with this many MiB when set.
+inline constexpr const char* kWeightsLimitVariable = "MEANDER_WEIGHTS_LIMIT_MIB";
+
+struct WeightsLimit {
+    std::uint64_t bytes = kMaxWeightsBytes;
+    // Why this many, and how to raise it, for the diagnostic.
+    std::string basis = "256 MiB, meander's limit for a weights file; set MEANDER_WEIGHTS_LIMIT_MIB to raise it";
+};
+
+// Values the model's layers bind: every dense layer's weight and bias, through
+// residual bodies, continuous fields, blends, the gated and merge updates and
+// the readout.
+std::uint64_t bound_values(const Model& model);
+
+// The limit for reading `model`'s weights (null: no description): the smaller
+// of kMaxWeightsBytes and what the model binds, or kWeightsLimitVariable's
+// value when it is set (an error when it is not a whole number of MiB from 1
+// to 1048576).
+std::optional<WeightsLimit> weights_limit(const Model* model, Diagnostics& diags);
+
 // By the path: "*.npz", "*.npy" (one tensor, named after the file's stem),
 // a folder (every "*.npy" in it, named after their stems, sorted by name),
 // "*.mnw" (weight listing), "*.pt"/"*.pth" (torch.save), "*.safetensors".
 // `key_path` ("model/state_dict") selects a nested dictionary of tensors in a
-// checkpoint; it is an error for the other formats.
-std::optional<TensorSet> read_weights(const std::string& path, Diagnostics& diags, const std::string& key_path = "");
+// checkpoint; it is an error for the other formats. `model`, when given, sets
+// the limit (weights_limit).
+std::optional<TensorSet> read_weights(const std::string& path, Diagnostics& diags, const std::string& key_path = "",
+                                      const Model* model = nullptr);
 
 // Fills every Dense's weight and bias; reports missing, extra, misshapen and
 // non-finite tensors at the layer's position in the description. A tensor that

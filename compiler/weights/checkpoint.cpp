@@ -40,11 +40,13 @@ const PyValue* lookup(const PyValue& dict, const std::string& key) {
 }  // namespace
 
 std::optional<TensorSet> read_checkpoint_bytes(std::string_view bytes, const std::string& path,
-                                               const std::string& key_path, Diagnostics& diags) {
+                                               const std::string& key_path, Diagnostics& diags,
+                                               const WeightsLimit& limit) {
     auto fail = [&](std::string message) {
         diags.error(path, std::move(message));
         return std::nullopt;
     };
+    if (!file_within_limit(bytes.size(), path, limit, diags)) return std::nullopt;
     ZipArchive ar;
     std::string error;
     if (!open_zip(bytes, ar, error)) {
@@ -72,6 +74,9 @@ std::optional<TensorSet> read_checkpoint_bytes(std::string_view bytes, const std
     if (pickles != 1)
         return fail(pickles == 0 ? "not a torch.save checkpoint: no FOLDER/data.pkl member in the zip archive"
                                  : "the checkpoint holds more than one FOLDER/data.pkl");
+    // Members are inflated as the pickle names them; the total read is held to
+    // the limit, each member checked before it is inflated.
+    zip_uint64_t inflated = 0;
     auto member = [&](const std::string& name, std::string& err) -> std::optional<std::string> {
         const zip_uint64_t index = members.at(name);
         zip_stat_t st;
@@ -80,7 +85,15 @@ std::optional<TensorSet> read_checkpoint_bytes(std::string_view bytes, const std
             err = "unreadable";
             return std::nullopt;
         }
-        return read_member(ar.za, index, st, err);
+        const zip_uint64_t size = declared_size(st);
+        if (size > limit.bytes - inflated) {
+            err = fmt::format("it would bring the inflated size of the members read to {} bytes{}; it was not inflated",
+                              inflated + size, beyond_limit(limit));
+            return std::nullopt;
+        }
+        auto data = read_member(ar.za, index, st, limit.bytes - inflated, err);
+        if (data) inflated += data->size();
+        return data;
     };
     bool little = true;
     if (members.count(prefix + "byteorder")) {

@@ -32,11 +32,14 @@ std::optional<std::vector<std::string>> npy_files_in(const std::string& folder, 
 
 std::optional<TensorSet> read_npy_folder_files(const std::string& path,
                                                const std::vector<std::pair<std::string, std::string>>& files,
-                                               Diagnostics& diags) {
+                                               Diagnostics& diags, const WeightsLimit& limit) {
     if (files.empty()) {
         diags.error(path, "no .npy files in this folder");
         return std::nullopt;
     }
+    std::uint64_t total = 0;
+    for (const auto& f : files) total += f.second.size();
+    if (!file_within_limit(total, path, limit, diags)) return std::nullopt;
     TensorSet set;
     set.path = path;
     bool ok = true;

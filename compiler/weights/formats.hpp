@@ -45,34 +45,48 @@ bool decode_elements(const ElementType& type, std::string_view storage, std::siz
                      const std::vector<std::size_t>& shape, const std::vector<std::size_t>& strides, bool little,
                      std::vector<double>& out, std::string& error);
 
+// Every entry point below refuses input past `limit` (weights.hpp): bytes
+// longer than it, or archive members that would inflate past it.
+// True when `size` bytes of `path` are within the limit; else an error.
+bool file_within_limit(std::uint64_t size, const std::string& path, const WeightsLimit& limit, Diagnostics& diags);
+// ", beyond the limit of N bytes (BASIS); set VARIABLE ... to raise it" for messages.
+std::string beyond_limit(const WeightsLimit& limit);
+
 // safetensors (safetensors.cpp): the file's bytes; `path` names it in messages.
-std::optional<TensorSet> read_safetensors_bytes(std::string_view bytes, const std::string& path, Diagnostics& diags);
+std::optional<TensorSet> read_safetensors_bytes(std::string_view bytes, const std::string& path, Diagnostics& diags,
+                                                const WeightsLimit& limit = {});
 
 // PyTorch checkpoints written by torch.save (checkpoint.cpp): the zip's bytes;
 // `key_path` ("model/state_dict", empty for the top level) selects a nested
-// dictionary of tensors.
+// dictionary of tensors. The limit is on the file's bytes and on the inflated
+// total of the members read (the pickle and the storages it names).
 std::optional<TensorSet> read_checkpoint_bytes(std::string_view bytes, const std::string& path,
-                                               const std::string& key_path, Diagnostics& diags);
+                                               const std::string& key_path, Diagnostics& diags,
+                                               const WeightsLimit& limit = {});
 
 // .npy (npy.cpp): one whole .npy image; on failure returns nullopt and sets `error`.
 std::optional<Tensor> parse_npy(std::string_view bytes, std::string name, std::string& error);
 // Name of a tensor stored as "STEM.npy" (case of the suffix ignored).
 bool npy_stem(const std::string& file, std::string& stem);
 // A .npy file's bytes as a set of one tensor named after the stem of `path`.
-std::optional<TensorSet> read_npy_bytes(std::string_view bytes, const std::string& path, Diagnostics& diags);
+std::optional<TensorSet> read_npy_bytes(std::string_view bytes, const std::string& path, Diagnostics& diags,
+                                        const WeightsLimit& limit = {});
 
 // A folder of .npy files (folder.cpp): `files` holds (file name, bytes) pairs
-// in name order; `path` is the folder, for messages.
+// in name order; `path` is the folder, for messages. The limit is on their total.
 std::optional<TensorSet> read_npy_folder_files(const std::string& path,
                                                const std::vector<std::pair<std::string, std::string>>& files,
-                                               Diagnostics& diags);
+                                               Diagnostics& diags, const WeightsLimit& limit = {});
 // The .npy files of a folder, sorted by file name (bytewise) for determinism.
 std::optional<std::vector<std::string>> npy_files_in(const std::string& folder, Diagnostics& diags);
 
 // .npz (npz.cpp): the archive's bytes; `path` names it in messages.
-std::optional<TensorSet> read_npz_bytes(std::string_view bytes, const std::string& path, Diagnostics& diags);
+// The limit is on the archive's bytes and on its members' inflated total.
+std::optional<TensorSet> read_npz_bytes(std::string_view bytes, const std::string& path, Diagnostics& diags,
+                                        const WeightsLimit& limit = {});
 
 // Weight listing (listing.cpp): the listing's text; `path` names it in messages.
-std::optional<TensorSet> read_listing_bytes(std::string text, const std::string& path, Diagnostics& diags);
+std::optional<TensorSet> read_listing_bytes(std::string text, const std::string& path, Diagnostics& diags,
+                                            const WeightsLimit& limit = {});
 
 }  // namespace meander::weights

@@ -252,7 +252,9 @@ private:
 
 }  // namespace
 
-std::optional<TensorSet> read_listing_bytes(std::string text, const std::string& path, Diagnostics& diags) {
+std::optional<TensorSet> read_listing_bytes(std::string text, const std::string& path, Diagnostics& diags,
+                                            const WeightsLimit& limit) {
+    if (!file_within_limit(text.size(), path, limit, diags)) return std::nullopt;
     ListingReader reader(path, std::move(text), diags);
     return reader.read();
 }

@@ -295,7 +295,9 @@ bool npy_stem(const std::string& file, std::string& stem) {
     return true;
 }
 
-std::optional<TensorSet> read_npy_bytes(std::string_view bytes, const std::string& path, Diagnostics& diags) {
+std::optional<TensorSet> read_npy_bytes(std::string_view bytes, const std::string& path, Diagnostics& diags,
+                                        const WeightsLimit& limit) {
+    if (!file_within_limit(bytes.size(), path, limit, diags)) return std::nullopt;
     std::string error;
     auto t = parse_npy(bytes, std::filesystem::path(path).stem().string(), error);
     if (!t) {

@@ -5,8 +5,12 @@
 #include <fmt/format.h>
 #include <fmt/ranges.h>
 
+#include <algorithm>
+#include <charconv>
+#include <cstdlib>
 #include <cstring>
 #include <filesystem>
+#include <fstream>
 #include <limits>
 #include <system_error>
 
@@ -57,23 +61,106 @@ std::uint64_t read_le(std::string_view b, std::size_t at, std::size_t n) {
     return v;
 }
 
+bool file_within_limit(std::uint64_t size, const std::string& path, const WeightsLimit& limit, Diagnostics& diags) {
+    if (size <= limit.bytes) return true;
+    diags.error(path, fmt::format("{} bytes of weights{}; nothing was read", size, beyond_limit(limit)));
+    return false;
+}
+
+std::string beyond_limit(const WeightsLimit& limit) {
+    return fmt::format(", beyond the limit of {} bytes ({})", limit.bytes, limit.basis);
+}
+
 }  // namespace weights
 
 using namespace weights;
+
+std::uint64_t bound_values(const Model& model) {
+    // Checked widths keep this far below the cap; it guards unchecked models
+    // (each term is below 2^63, and the cap times 8 * kWeightsSlack fits 64 bits).
+    constexpr std::uint64_t cap = std::uint64_t{1} << 56;
+    std::uint64_t n = 0;
+    for_each_model_dense(model, [&](const Dense& d) {
+        const auto out = static_cast<std::uint64_t>(std::max(d.out, 0));
+        const std::uint64_t layer = out * static_cast<std::uint64_t>(std::max(d.in_total(), 0)) + (d.has_bias ? out : 0);
+        n = layer > cap - n ? cap : n + layer;
+    });
+    return n;
+}
+
+std::optional<WeightsLimit> weights_limit(const Model* model, Diagnostics& diags) {
+    WeightsLimit limit;
+    if (const char* set = std::getenv(kWeightsLimitVariable)) {
+        const std::string_view text(set);
+        std::uint64_t mib = 0;
+        auto [end, ec] = std::from_chars(text.data(), text.data() + text.size(), mib);
+        if (ec != std::errc() || end != text.data() + text.size() || mib < 1 || mib > (std::uint64_t{1} << 20)) {
+            diags.error(kWeightsLimitVariable, fmt::format("the environment variable is '{}': expected a whole number of "
+                                                           "MiB from 1 to 1048576", text));
+            return std::nullopt;
+        }
+        limit.bytes = mib << 20;
+        limit.basis = fmt::format("{}={}", kWeightsLimitVariable, mib);
+        return limit;
+    }
+    if (!model) return limit;
+    const std::uint64_t values = bound_values(*model);
+    const std::uint64_t need = values * 8 * kWeightsSlack + kWeightsAllowance;
+    if (need >= limit.bytes) return limit;
+    limit.bytes = need;
+    limit.basis = fmt::format("what model '{}' binds: {} values, 8 bytes each, times {}, plus {} MiB; set {} to raise it",
+                              model->name, values, kWeightsSlack, kWeightsAllowance >> 20, kWeightsLimitVariable);
+    return limit;
+}
 
 namespace {
 
 namespace fs = std::filesystem;
 
-std::optional<TensorSet> read_npy_file(const std::string& path, Diagnostics& diags) {
-    auto bytes = read_file(path, diags);
-    if (!bytes) return std::nullopt;
-    return read_npy_bytes(*bytes, path, diags);
+// Bytes a file or a folder's .npy files hold, or 0 when that cannot be told
+// (the read that follows then says why).
+std::uint64_t size_on_disk(const std::string& path, const std::vector<std::string>* files = nullptr) {
+    std::error_code ec;
+    if (!files) {
+        const auto n = fs::file_size(path, ec);
+        return ec ? 0 : n;
+    }
+    std::uint64_t total = 0;
+    for (const auto& file : *files) {
+        const auto n = fs::file_size(fs::path(path) / file, ec);
+        if (!ec) total += n;
+    }
+    return total;
 }
 
-std::optional<TensorSet> read_npy_folder(const std::string& path, Diagnostics& diags) {
+// A file's bytes, refused unread when its size is past the limit; a file
+// whose size cannot be told beforehand (a pipe, a device) is read only up to it.
+std::optional<std::string> read_within(const std::string& path, const WeightsLimit& limit, Diagnostics& diags) {
+    if (!file_within_limit(size_on_disk(path), path, limit, diags)) return std::nullopt;
+    std::error_code ec;
+    if (fs::is_regular_file(path, ec) || fs::is_directory(path, ec)) return read_file(path, diags);
+    std::ifstream in(path, std::ios::binary);
+    if (!in) return read_file(path, diags);  // says why it cannot be opened
+    std::string out;
+    char buf[1 << 15];
+    while (in.read(buf, sizeof buf) || in.gcount() > 0) {
+        out.append(buf, static_cast<std::size_t>(in.gcount()));
+        if (out.size() > limit.bytes) {
+            diags.error(path, fmt::format("reading stopped after {} bytes{}", out.size(), beyond_limit(limit)));
+            return std::nullopt;
+        }
+    }
+    if (in.bad()) {
+        diags.error(path, "cannot read file: read failed");
+        return std::nullopt;
+    }
+    return out;
+}
+
+std::optional<TensorSet> read_npy_folder(const std::string& path, const WeightsLimit& limit, Diagnostics& diags) {
     auto names = npy_files_in(path, diags);
     if (!names) return std::nullopt;
+    if (!file_within_limit(size_on_disk(path, &*names), path, limit, diags)) return std::nullopt;
     std::vector<std::pair<std::string, std::string>> files;
     bool ok = true;
     for (const auto& file : *names) {
@@ -81,46 +168,37 @@ std::optional<TensorSet> read_npy_folder(const std::string& path, Diagnostics& d
         if (!bytes) { ok = false; continue; }
         files.emplace_back(file, std::move(*bytes));
     }
-    auto set = read_npy_folder_files(path, files, diags);
+    auto set = read_npy_folder_files(path, files, diags, limit);
     if (!ok) return std::nullopt;
     return set;
 }
 
-std::optional<TensorSet> read_npz(const std::string& path, Diagnostics& diags) {
-    auto bytes = read_file(path, diags);
-    if (!bytes) return std::nullopt;
-    return read_npz_bytes(*bytes, path, diags);
-}
-
-std::optional<TensorSet> read_listing(const std::string& path, Diagnostics& diags) {
-    auto text = read_file(path, diags);
-    if (!text) return std::nullopt;
-    return read_listing_bytes(std::move(*text), path, diags);
-}
-
 }  // namespace
 
-std::optional<TensorSet> read_weights(const std::string& path, Diagnostics& diags, const std::string& key_path) {
+std::optional<TensorSet> read_weights(const std::string& path, Diagnostics& diags, const std::string& key_path,
+                                      const Model* model) {
+    const auto limit = weights_limit(model, diags);
+    if (!limit) return std::nullopt;
     std::string ext = lower(fs::path(path).extension().string());
     if (ext == ".pt" || ext == ".pth") {
-        auto bytes = read_file(path, diags);
+        auto bytes = read_within(path, *limit, diags);
         if (!bytes) return std::nullopt;
-        return read_checkpoint_bytes(*bytes, path, key_path, diags);
+        return read_checkpoint_bytes(*bytes, path, key_path, diags, *limit);
     }
     if (!key_path.empty()) {
         diags.error(path, fmt::format("a key path ('{}') selects a dictionary in a PyTorch checkpoint (.pt, .pth); this file is not one", key_path));
         return std::nullopt;
     }
-    if (ext == ".safetensors") {
-        auto bytes = read_file(path, diags);
-        if (!bytes) return std::nullopt;
-        return read_safetensors_bytes(*bytes, path, diags);
-    }
     std::error_code ec;
-    if (fs::is_directory(path, ec)) return read_npy_folder(path, diags);
-    if (ext == ".npz") return read_npz(path, diags);
-    if (ext == ".npy") return read_npy_file(path, diags);
-    if (ext == ".mnw") return read_listing(path, diags);
+    if (ext != ".safetensors" && fs::is_directory(path, ec)) return read_npy_folder(path, *limit, diags);
+    if (ext == ".safetensors" || ext == ".npz" || ext == ".npy" || ext == ".mnw") {
+        auto bytes = read_within(path, *limit, diags);
+        if (!bytes) return std::nullopt;
+        if (ext == ".safetensors") return read_safetensors_bytes(*bytes, path, diags, *limit);
+        if (ext == ".npz") return read_npz_bytes(*bytes, path, diags, *limit);
+        if (ext == ".npy") return read_npy_bytes(*bytes, path, diags, *limit);
+        return read_listing_bytes(std::move(*bytes), path, diags, *limit);
+    }
     diags.error(path, fmt::format("unknown weights format '{}': expected .npz, .npy, .mnw, .pt, .pth, .safetensors or a folder of .npy files",
                                   ext.empty() ? "(no extension)" : ext));
     return std::nullopt;

@@ -32,11 +32,13 @@ bool as_size(const json& j, std::uint64_t& out) {
 
 }  // namespace
 
-std::optional<TensorSet> read_safetensors_bytes(std::string_view bytes, const std::string& path, Diagnostics& diags) {
+std::optional<TensorSet> read_safetensors_bytes(std::string_view bytes, const std::string& path, Diagnostics& diags,
+                                                const WeightsLimit& limit) {
     auto fail = [&](std::string message) {
         diags.error(path, std::move(message));
         return std::nullopt;
     };
+    if (!file_within_limit(bytes.size(), path, limit, diags)) return std::nullopt;
     if (bytes.size() < 8)
         return fail(fmt::format("not a safetensors file: {} bytes, shorter than the 8-byte header length", bytes.size()));
     const std::uint64_t header_len = read_le(bytes, 0, 8);

@@ -12,10 +12,6 @@ struct ZipFile {
     ~ZipFile() { if (zf) zip_fclose(zf); }
 };
 
-// Far beyond any weights a microcontroller can hold; a larger member is
-// refused before it is inflated into memory.
-constexpr zip_uint64_t kMaxMemberBytes = zip_uint64_t{256} << 20;
-
 }  // namespace
 
 std::string zip_problem(int code, zip_error_t* err) {
@@ -56,10 +52,12 @@ bool open_zip(std::string_view bytes, ZipArchive& ar, std::string& error) {
     return true;
 }
 
-// Reads member `index` whole; on failure sets `error`.
-std::optional<std::string> read_member(zip_t* za, zip_uint64_t index, const zip_stat_t& st, std::string& error) {
-    if ((st.valid & ZIP_STAT_SIZE) && st.size > kMaxMemberBytes) {
-        error = fmt::format("{} bytes, more than meander reads for one tensor ({} bytes)", st.size, kMaxMemberBytes);
+zip_uint64_t declared_size(const zip_stat_t& st) { return (st.valid & ZIP_STAT_SIZE) ? st.size : 0; }
+
+std::optional<std::string> read_member(zip_t* za, zip_uint64_t index, const zip_stat_t& st, zip_uint64_t max_bytes,
+                                       std::string& error) {
+    if ((st.valid & ZIP_STAT_SIZE) && st.size > max_bytes) {
+        error = fmt::format("it declares {} bytes, more than the {} left within the limit", st.size, max_bytes);
         return std::nullopt;
     }
     if ((st.valid & ZIP_STAT_SIZE) && (st.valid & ZIP_STAT_COMP_SIZE) && (st.valid & ZIP_STAT_COMP_METHOD)) {
@@ -79,6 +77,8 @@ std::optional<std::string> read_member(zip_t* za, zip_uint64_t index, const zip_
     }
     std::string data;
     char buf[1 << 15];
+    // The declared size is within the limit: one allocation, no doubling past it.
+    if (st.valid & ZIP_STAT_SIZE) data.reserve(static_cast<std::size_t>(st.size) + sizeof buf);
     while (true) {
         zip_int64_t n = zip_fread(f.zf, buf, sizeof buf);
         if (n < 0) {
@@ -88,8 +88,8 @@ std::optional<std::string> read_member(zip_t* za, zip_uint64_t index, const zip_
         }
         if (n == 0) break;
         data.append(buf, static_cast<std::size_t>(n));
-        if (data.size() > kMaxMemberBytes) {
-            error = fmt::format("more than meander reads for one tensor ({} bytes)", kMaxMemberBytes);
+        if (data.size() > max_bytes) {
+            error = fmt::format("it inflates to more than the {} bytes left within the limit", max_bytes);
             return std::nullopt;
         }
         if ((st.valid & ZIP_STAT_SIZE) && data.size() > st.size) break;

@@ -24,7 +24,13 @@ std::string zip_problem(int code, zip_error_t* err);
 // Opens `bytes` (which must outlive `ar`); on failure sets `error` to what is wrong.
 bool open_zip(std::string_view bytes, ZipArchive& ar, std::string& error);
 
-// Reads member `index` whole; on failure sets `error`.
-std::optional<std::string> read_member(zip_t* za, zip_uint64_t index, const zip_stat_t& st, std::string& error);
+// Reads member `index` whole, at most `max_bytes` of it (callers check the
+// declared size against their limit first; this stops a member whose size is
+// not declared); on failure sets `error`.
+std::optional<std::string> read_member(zip_t* za, zip_uint64_t index, const zip_stat_t& st, zip_uint64_t max_bytes,
+                                       std::string& error);
+
+// The inflated size a member declares (0 when it declares none).
+zip_uint64_t declared_size(const zip_stat_t& st);
 
 }  // namespace meander::weights

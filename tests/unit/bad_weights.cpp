@@ -337,12 +337,15 @@ const ReadCase read_cases[] = {
      },
      "DIR/w.mnw:4:1: error: tensor 'a' is incomplete: a new tensor starts after 1 of its 2 value lines\ntensor b float32 1\n^\n"},
     // A 256 MiB + 128 byte member (67108864 zero float32 values and the .npy header),
-    // 260 KiB deflated: refused before it is inflated.
+    // 260 KiB deflated: past the 256 MiB limit of any weights file (README, "Limits"),
+    // refused before it is inflated.
     {"npz_member_too_large", [](const fs::path& d) {
          fs::copy_file(fs::path(MEANDER_SOURCE_DIR) / "tests/data/weights/huge_member.npz", d / "w.npz");
          return d / "w.npz";
      },
-     "DIR/w.npz: error: member 'junk.npy': 268435584 bytes, more than meander reads for one tensor (268435456 bytes)\n"},
+     "DIR/w.npz: error: member 'junk.npy' would bring the archive's inflated size to 268435584 bytes, beyond the "
+     "limit of 268435456 bytes (256 MiB, meander's limit for a weights file; set MEANDER_WEIGHTS_LIMIT_MIB to raise "
+     "it); nothing was inflated\n"},
     {"listing_unterminated_quote", [](const fs::path& d) {
          return file(d, "w.mnw", "meander-weights 1\ntensor \"lift weight float32 1\n1\n");
      },
