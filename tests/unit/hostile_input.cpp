@@ -4,10 +4,14 @@
 // README and DEVELOPERS.md state.
 #include <gtest/gtest.h>
 
+#include <fcntl.h>
+#include <linux/fs.h>
+#include <sys/ioctl.h>
 #include <sys/wait.h>
 #include <unistd.h>
 
 #include <cerrno>
+#include <cstring>
 #include <chrono>
 #include <cstdio>
 #include <filesystem>
@@ -176,6 +180,8 @@ TEST(Limits, ParsingStopsPastTheLayerLimit) {
                                           kMaxLayersAndBlocks + 3));
 }
 
+// ---- 2. archives that inflate to gigabytes: tests/unit/weights_limits.cpp -------
+
 // ---- 3. temporary files: unique, created exclusively --------------------------
 
 TEST(Outputs, APlantedLinkAtTheOldTemporaryNameIsNotFollowed) {
@@ -238,6 +244,58 @@ TEST(Outputs, ASecondRenameThatFailsRemovesAFirstFileThatIsNew) {
     set_rename_for_tests(nullptr);
     EXPECT_FALSE(ok);
     EXPECT_TRUE(listing(d).empty());
+}
+
+// The same without the hook: the source is made immutable (FS_IMMUTABLE_FL, what
+// `chattr +i` sets), so rename(2) over it really fails with EPERM. Needs
+// CAP_LINUX_IMMUTABLE and a file system that keeps the flag (ext4, xfs, btrfs).
+struct Immutable {
+    fs::path path;
+    bool set = false;
+    std::string why_not;
+    explicit Immutable(fs::path p) : path(std::move(p)) { set = change(true); }
+    ~Immutable() {
+        if (set) change(false);
+    }
+    bool change(bool on) {
+        const int fd = ::open(path.c_str(), O_RDONLY | O_NONBLOCK);
+        if (fd < 0) return why_not = std::strerror(errno), false;
+        int flags = 0;
+        bool ok = ::ioctl(fd, FS_IOC_GETFLAGS, &flags) == 0;
+        if (ok) {
+            flags = on ? (flags | FS_IMMUTABLE_FL) : (flags & ~FS_IMMUTABLE_FL);
+            ok = ::ioctl(fd, FS_IOC_SETFLAGS, &flags) == 0;
+        }
+        if (!ok) why_not = std::strerror(errno);
+        ::close(fd);
+        return ok;
+    }
+};
+
+TEST(Outputs, AnImmutableSourcePutsTheHeaderBack) {
+    const fs::path d = scratch("immutable-source");
+    write_text(d / "m.hpp", "old header");
+    write_text(d / "m.cpp", "old source");
+    Immutable lock(d / "m.cpp");
+    if (!lock.set) GTEST_SKIP() << "cannot make a file immutable here (" << lock.why_not << "); the hook test above covers it";
+    Diagnostics diags;
+    const bool ok = write_files_atomic({{(d / "m.hpp").string(), "new header"}, {(d / "m.cpp").string(), "new source"}}, diags);
+    EXPECT_FALSE(ok);
+    EXPECT_EQ(diags.render(), (d / "m.cpp").string() + ": error: cannot write file: Operation not permitted\n");
+    EXPECT_EQ(read_text(d / "m.hpp"), "old header");
+    EXPECT_EQ(read_text(d / "m.cpp"), "old source");
+    EXPECT_EQ(listing(d), (std::vector<std::string>{"m.cpp", "m.hpp"}));
+}
+
+TEST(Outputs, AnImmutableSourceRemovesAHeaderThatIsNew) {
+    const fs::path d = scratch("immutable-source-new");
+    write_text(d / "m.cpp", "old source");
+    Immutable lock(d / "m.cpp");
+    if (!lock.set) GTEST_SKIP() << "cannot make a file immutable here (" << lock.why_not << "); the hook test above covers it";
+    Diagnostics diags;
+    EXPECT_FALSE(write_files_atomic({{(d / "m.hpp").string(), "new header"}, {(d / "m.cpp").string(), "new source"}}, diags));
+    EXPECT_EQ(read_text(d / "m.cpp"), "old source");
+    EXPECT_EQ(listing(d), (std::vector<std::string>{"m.cpp"}));
 }
 
 // ---- 7. concurrent compiles into one folder -------------------------------------
