@@ -57,7 +57,10 @@ std::optional<TensorSet> read_safetensors_bytes(std::string_view bytes, const st
     if (!root.is_object()) return fail("safetensors header is not a JSON object");
 
     std::vector<Entry> entries;
-    for (const auto& [name, v] : root.items()) {
+    for (const auto& item : root.items()) {
+        // Named, not a structured binding: C++17 lambdas cannot capture those (clang refuses).
+        const std::string& name = item.key();
+        const json& v = item.value();
         if (name == "__metadata__") continue;  // free-form strings: nothing to bind
         auto bad = [&](const std::string& what) { return fail(fmt::format("tensor '{}': {}", name, what)); };
         if (!v.is_object()) return bad("its header entry is not an object");
