@@ -9,6 +9,7 @@
 #include <cmath>
 #include <csignal>
 #include <cstdio>
+#include <functional>
 #include <filesystem>
 
 #include "compiler/cost.hpp"
@@ -311,8 +312,41 @@ int cmd_compile(const std::string& model_path, const std::string& outdir, const 
     return 0;
 }
 
+// The emitted code built for each `--board` and run on its emulator: values against eval
+// (the tolerance rule, or equal bits in float64) and output bits against the host build.
+int verify_on_boards(const std::vector<std::string>& boards, const VerifyReport& host, Precision p, bool show,
+                     const std::function<std::optional<VerifyReport>(const VerifyOptions&, Diagnostics&)>& run,
+                     const VerifyOptions& vo) {
+    int status = host.passed() ? 0 : kModelError;
+    for (const std::string& b : boards) {
+        Diagnostics bd;
+        VerifyOptions o = vo;
+        o.board = b;
+        if (!vo.keep_dir.empty()) o.keep_dir = vo.keep_dir + "/" + b;
+        auto rep = run(o, bd);
+        flush(bd);
+        std::printf("\non %s:\n", b.c_str());
+        if (!rep) {
+            status = kModelError;
+            continue;
+        }
+        if (show) std::fputs(render_verify_rows(*rep).c_str(), stdout);
+        std::fputs(render_verify(*rep, p).c_str(), stdout);
+        int row = -1, col = -1;
+        const int differ = differing_outputs(host, *rep, row, col);
+        const int total = rep->compared_rows * rep->outputs;
+        if (differ == 0)
+            std::printf("bits                 every output equal to the host build's\n");
+        else
+            std::printf("bits                 %d of %d outputs differ from the host build's (first: row %d, output %d)\n",
+                        differ, total, row + 1, col);
+        if (!rep->passed() || differ != 0) status = kModelError;
+    }
+    return status;
+}
+
 int cmd_verify(const std::string& model_path, const std::string& input, const std::string& precision, double tol,
-               const std::string& cxx, const std::string& keep, bool show) {
+               const std::string& cxx, const std::string& keep, bool show, const std::vector<std::string>& boards) {
     Diagnostics diags;
     Precision p = precision_of(precision);
     VerifyOptions vo;
@@ -338,7 +372,9 @@ int cmd_verify(const std::string& model_path, const std::string& input, const st
             if (!rep) return kModelError;
             if (show) std::fputs(render_verify_rows(*rep).c_str(), stdout);
             std::fputs(render_verify(*rep, p).c_str(), stdout);
-            return rep->passed() ? 0 : kModelError;
+            return verify_on_boards(boards, *rep, p, show, [&](const VerifyOptions& o, Diagnostics& d) {
+                return verify_stream(loaded->model, emit_options(*loaded, p, false), *rows, o, d);
+            }, vo);
         }
     }
     auto in = load_with_rows(model_path, p, input, diags, "verify", p == Precision::float32);
@@ -348,7 +384,9 @@ int cmd_verify(const std::string& model_path, const std::string& input, const st
     if (!rep) return kModelError;
     if (show) std::fputs(render_verify_rows(*rep).c_str(), stdout);
     std::fputs(render_verify(*rep, p).c_str(), stdout);
-    return rep->passed() ? 0 : kModelError;
+    return verify_on_boards(boards, *rep, p, show, [&](const VerifyOptions& o, Diagnostics& d) {
+        return verify_model(in->loaded.model, emit_options(in->loaded, p, false), in->rows, o, d);
+    }, vo);
 }
 
 int cmd_cost(const std::string& model_path, const std::string& input, const std::string& precision,
@@ -598,6 +636,7 @@ int main(int argc, char** argv) {
 
     const std::vector<std::string> precisions{"float32", "float64"};
     std::string model, input, output, outdir, precision = "float32", self_test, dump, cxx, keep, core = "cortex-m4f";
+    std::vector<std::string> boards;
     double tol = -1.0, cycles_per_mac = -1.0;
     bool stats = false, show = false, c_api = false, json = false, in_place = false, check_only = false, estimate_only = false;
 
@@ -634,6 +673,10 @@ int main(int argc, char** argv) {
         ->check(kFinitePositive);
     verify->add_option("--cxx", cxx, "host C++ compiler (default: $CXX, else c++)");
     verify->add_option("--keep", keep, "build in this folder and keep the files");
+    verify->add_option("--board", boards,
+                       "also build for this target and run it on its emulator (repeatable): cortex-m4f, cortex-m3, "
+                       "cortex-m7 (qemu-system-arm MPS2 boards), arm-linux (qemu-arm)")
+        ->check(CLI::IsMember(verify_boards()));
     verify->add_flag("--show", show, "print every output beside eval's");
 
     auto* cost = app.add_subcommand("cost", "flash, RAM, stack, multiply-accumulates and field evaluations");
@@ -762,7 +805,7 @@ int main(int argc, char** argv) {
         if (*check) return cmd_check(model, precision);
         if (*eval) return cmd_eval(model, input, output, stats, labels_path, keep_going);
         if (*compile) return cmd_compile(model, outdir, precision, c_api, self_test, dump);
-        if (*verify) return cmd_verify(model, input, precision, tol, cxx, keep, show);
+        if (*verify) return cmd_verify(model, input, precision, tol, cxx, keep, show, boards);
         if (*cost) return cmd_cost(model, input, precision, core, cycles_per_mac, json, estimate_only);
         if (*tune)
             return cmd_tune(model, input, precision, target, methods, sweep, json, labels_path,

@@ -12,12 +12,37 @@
 #include <sstream>
 
 #include "../runtime/evaluate.hpp"
+#include "board_files.hpp"
+#include "cost_object.hpp"
 
 namespace meander {
 
 namespace fs = std::filesystem;
 
 double default_tolerance(Precision p) { return p == Precision::float32 ? 1e-4 : 1e-10; }
+
+const std::vector<std::string>& verify_boards() {
+    static const std::vector<std::string> b{"cortex-m4f", "cortex-m3", "cortex-m7", "arm-linux"};
+    return b;
+}
+
+int differing_outputs(const VerifyReport& a, const VerifyReport& b, int& first_row, int& first_col) {
+    int n = 0;
+    first_row = first_col = -1;
+    for (std::size_t r = 0; r < a.emitted.size() && r < b.emitted.size(); ++r) {
+        const auto& x = a.emitted[r];
+        const auto& y = b.emitted[r];
+        for (std::size_t c = 0; c < std::max(x.size(), y.size()); ++c) {
+            const bool same = c < x.size() && c < y.size() && std::memcmp(&x[c], &y[c], sizeof(double)) == 0;
+            if (same) continue;
+            if (n++ == 0) {
+                first_row = static_cast<int>(r);
+                first_col = static_cast<int>(c);
+            }
+        }
+    }
+    return n;
+}
 
 namespace {
 
@@ -138,25 +163,89 @@ std::optional<VerifyReport> build_and_compare(const Model& model, const std::vec
         const char* env = std::getenv("CXX");
         cxx = env && *env ? env : "c++";
     }
-    // The flags users are told to build with: the emitted code must pass them.
-    std::string cmd = fmt::format(
-        "{} -std=c++17 -O2 -ffp-contract=off -Wall -Wextra -Wconversion -Wdouble-promotion -Wshadow -Wfloat-equal -Werror "
-        "-fno-exceptions -fno-rtti "
-        "-o {} {} {} > {} 2>&1",
-        cxx, shell_quote((dir / "verify_driver").string()), shell_quote((dir / "verify_driver.cpp").string()),
-        shell_quote((dir / (model.name + ".cpp")).string()), shell_quote((dir / "build.log").string()));
-    if (std::system(cmd.c_str()) != 0) {
-        std::string log;
-        Diagnostics quiet;
-        if (auto text = read_file((dir / "build.log").string(), quiet)) log = *text;
-        if (log.size() > 4000) log = log.substr(0, 4000) + "\n[...]";
-        diags.error(cxx, fmt::format("building the emitted code failed:\n{}", log));
-        return std::nullopt;
-    }
-    auto out = run_capture(shell_quote((dir / "verify_driver").string()));
-    if (!out) {
-        diags.error((dir / "verify_driver").string(), "the verify driver did not run to completion");
-        return std::nullopt;
+    std::optional<std::string> out;
+    if (opts.board.empty()) {
+        // A bare-metal compiler has no C library start-up or system calls to link the driver with.
+        if (cxx.find("none-eabi") != std::string::npos) {
+            diags.error(cxx, "a bare-metal cross compiler cannot build the verify driver for this machine; to run the "
+                             "emitted code on an emulated microcontroller use --board cortex-m4f, cortex-m3 or "
+                             "cortex-m7 (or --board arm-linux for 32-bit ARM Linux under qemu-arm)");
+            return std::nullopt;
+        }
+        // The flags users are told to build with: the emitted code must pass them.
+        std::string cmd = fmt::format(
+            "{} -std=c++17 -O2 -ffp-contract=off -Wall -Wextra -Wconversion -Wdouble-promotion -Wshadow -Wfloat-equal -Werror "
+            "-fno-exceptions -fno-rtti "
+            "-o {} {} {} > {} 2>&1",
+            cxx, shell_quote((dir / "verify_driver").string()), shell_quote((dir / "verify_driver.cpp").string()),
+            shell_quote((dir / (model.name + ".cpp")).string()), shell_quote((dir / "build.log").string()));
+        if (std::system(cmd.c_str()) != 0) {
+            std::string log;
+            Diagnostics quiet;
+            if (auto text = read_file((dir / "build.log").string(), quiet)) log = *text;
+            if (log.size() > 4000) log = log.substr(0, 4000) + "\n[...]";
+            diags.error(cxx, fmt::format("building the emitted code failed:\n{}", log));
+            return std::nullopt;
+        }
+        out = run_capture(shell_quote((dir / "verify_driver").string()));
+        if (!out) {
+            diags.error((dir / "verify_driver").string(), "the verify driver did not run to completion");
+            return std::nullopt;
+        }
+    } else {
+        // The board builds of tests/target/run_target.sh: the core's flags, -Os, the project's
+        // start-up code and linker script on bare metal; -O2 -static for ARM Linux.
+        const bool linux_user = opts.board == "arm-linux";
+        std::string flags, machine;
+        if (opts.board == "cortex-m4f") flags = "-mcpu=cortex-m4 -mthumb -mfpu=fpv4-sp-d16 -mfloat-abi=hard", machine = "mps2-an386";
+        else if (opts.board == "cortex-m3") flags = "-mcpu=cortex-m3 -mthumb -mfloat-abi=soft", machine = "mps2-an385";
+        else if (opts.board == "cortex-m7") flags = "-mcpu=cortex-m7 -mthumb -mfpu=fpv5-sp-d16 -mfloat-abi=hard", machine = "mps2-an500";
+        else if (!linux_user) {
+            diags.error("verify", fmt::format("unknown board '{}' (known: cortex-m4f, cortex-m3, cortex-m7, arm-linux)", opts.board));
+            return std::nullopt;
+        }
+        const std::string bcxx = linux_user ? "arm-linux-gnueabihf-g++" : "arm-none-eabi-g++";
+        const std::string emu = linux_user ? opts.qemu_user : opts.qemu_system;
+        for (const std::string& tool : {emu, bcxx, std::string("timeout")}) {
+            if (!on_path(tool)) {
+                diags.error("verify", fmt::format("--board {} needs {} on PATH, which is missing (scripts/install-target-tools "
+                                                  "installs the cross tool chains and qemu); nothing was run",
+                                                  opts.board, tool));
+                return std::nullopt;
+            }
+        }
+        std::string cmd;
+        if (linux_user) {
+            cmd = fmt::format("cd {} && {} -std=c++17 -O2 -ffp-contract=off -static -fno-exceptions -fno-rtti -o app "
+                              "verify_driver.cpp {}.cpp > build.log 2>&1",
+                              shell_quote(dir.string()), bcxx, shell_quote(model.name));
+        } else {
+            if (!write_file_atomic((dir / "startup.cpp").string(), kStartupText, diags) ||
+                !write_file_atomic((dir / "mps2.ld").string(), kLinkerScriptText, diags))
+                return std::nullopt;
+            cmd = fmt::format("cd {} && {} {} -std=c++17 -Os -ffp-contract=off -fno-exceptions -fno-rtti -ffunction-sections "
+                              "-fdata-sections startup.cpp verify_driver.cpp {}.cpp -T mps2.ld -nostartfiles "
+                              "--specs=rdimon.specs -Wl,--gc-sections -o app > build.log 2>&1",
+                              shell_quote(dir.string()), bcxx, flags, shell_quote(model.name));
+        }
+        if (std::system(cmd.c_str()) != 0) {
+            std::string log;
+            Diagnostics quiet;
+            if (auto text = read_file((dir / "build.log").string(), quiet)) log = *text;
+            if (log.size() > 4000) log = log.substr(0, 4000) + "\n[...]";
+            diags.error(bcxx, fmt::format("building the emitted code for {} failed:\n{}", opts.board, log));
+            return std::nullopt;
+        }
+        const std::string app = shell_quote((dir / "app").string());
+        const std::string run =
+            linux_user ? fmt::format("timeout 600 {} {}", emu, app)
+                       : fmt::format("timeout 600 {} -M {} -nographic -semihosting-config enable=on,target=native -kernel {}",
+                                     emu, machine, app);
+        out = run_capture(run + " < /dev/null");
+        if (!out) {
+            diags.error(emu, fmt::format("the verify driver did not run to completion on {}", opts.board));
+            return std::nullopt;
+        }
     }
 
     VerifyReport rep;

@@ -17,7 +17,15 @@ struct VerifyOptions {
     double tolerance = -1.0;        // < 0: the default for the precision (default_tolerance)
     std::string cxx;                // host compiler; empty: $CXX, else "c++"
     std::string keep_dir;           // non-empty: build there and keep the files
+    // Non-empty: build for this target and run there instead of on the host:
+    // "cortex-m4f", "cortex-m3", "cortex-m7" (arm-none-eabi-g++ with the project's
+    // bare-metal start-up code and linker script, run on qemu-system-arm's MPS2
+    // boards) or "arm-linux" (arm-linux-gnueabihf-g++ -static, run under qemu-arm).
+    std::string board;
+    std::string qemu_system = "qemu-system-arm";   // the emulators --board runs (names on PATH)
+    std::string qemu_user = "qemu-arm";
 };
+
 
 // The stated default: a deviation fails when |emitted - eval| > tol * max(1, |eval|).
 // float32: 1e-4 (float carries ~7 digits; errors grow through the layers and
@@ -56,6 +64,14 @@ struct VerifyReport {
                (!counters_must_match || counter_mismatches == 0) && (!bits_must_match || bit_mismatches == 0);
     }
 };
+
+// The targets `verify --board` knows.
+const std::vector<std::string>& verify_boards();
+
+// Outputs whose values differ between two reports of the same rows (the driver
+// prints 9 significant digits for float, 17 for double: equal values are equal
+// bits); `first_row`, `first_col` get the first (0-based).
+int differing_outputs(const VerifyReport& a, const VerifyReport& b, int& first_row, int& first_col);
 
 std::optional<VerifyReport> verify_model(const Model& model, const EmitOptions& emit_opts,
                                          const std::vector<std::vector<double>>& inputs,
