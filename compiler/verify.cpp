@@ -12,6 +12,9 @@
 #include <sstream>
 
 #include "../runtime/evaluate.hpp"
+#include "../runtime/gradient.hpp"
+#include "../runtime/integrate.hpp"
+#include "../runtime/tableau.hpp"
 #include "board_files.hpp"
 #include "cost_object.hpp"
 
@@ -133,8 +136,47 @@ std::optional<VerifyReport> verify_model(const Model& model, const EmitOptions& 
     std::vector<EvalResult> refs;
     for (const auto& row : inputs)
         refs.push_back(evaluate(model, Eigen::Map<const Eigen::VectorXd>(row.data(), static_cast<Eigen::Index>(row.size()))));
-    return build_and_compare(model, emit_model(model, emit_opts), driver_source(model, inputs, emit_opts.precision), refs,
-                             emit_opts.precision, opts, emit_opts.precision == Precision::float64, diags);
+    auto rep = build_and_compare(model, emit_model(model, emit_opts), driver_source(model, inputs, emit_opts.precision), refs,
+                                 emit_opts.precision, opts, emit_opts.precision == Precision::float64, diags);
+    if (!rep || emit_opts.precision != Precision::float32) return rep;
+    // Rows whose adaptive steps differ: the reference's step decisions again, with their
+    // error norms (the recorded forward pass gives each continuous block's input state).
+    for (int r : rep->counter_rows) {
+        const auto& row = inputs[static_cast<std::size_t>(r)];
+        const ForwardRecord fr = forward_record(model, Eigen::Map<const Eigen::VectorXd>(row.data(), static_cast<Eigen::Index>(row.size())),
+                                                GradientWay::discrete);
+        VerifyReport::Tipped best;
+        bool found = false;
+        for (std::size_t b = 0; b < model.blocks.size() && b < fr.blocks.size(); ++b) {
+            if (model.blocks[b].kind != Block::Kind::continuous) continue;
+            const Continuous& c = model.blocks[b].continuous;
+            const Tableau* tb = find_tableau(c.solver.method);
+            if (tb == nullptr || !tb->adaptive()) continue;
+            Eigen::VectorXd y = fr.blocks[b].x;
+            IntegrateStats st;
+            std::vector<StepRecord> trace;
+            const Field field = [&c](double t, const Eigen::VectorXd& s, Eigen::VectorXd& ds) { eval_field(c, t, s, ds); };
+            integrate(field, c.t0, c.t1, y, c.solver, st, &trace);
+            for (const StepRecord& a : trace) {
+                if (!(a.err > 0.0)) continue;
+                if (found && std::fabs(std::log(a.err)) >= std::fabs(std::log(best.err))) continue;
+                found = true;
+                best.errs.clear();
+                for (const StepRecord& e : trace) best.errs.push_back(e.err);
+                best.block = c.name;
+                best.t = a.t;
+                best.h = a.h;
+                best.err = a.err;
+                best.accepted = a.accepted;
+            }
+        }
+        if (!found) continue;
+        best.row = r;
+        best.emitted_evals = rep->row_field_evals[static_cast<std::size_t>(r)];
+        best.eval_evals = refs[static_cast<std::size_t>(r)].stats.field_evals;
+        rep->tipped.push_back(best);
+    }
+    return rep;
 }
 
 std::optional<VerifyReport> verify_stream(const Model& model, const EmitOptions& emit_opts, const std::vector<SequenceRow>& rows,
@@ -265,6 +307,7 @@ std::optional<VerifyReport> build_and_compare(const Model& model, const std::vec
         unsigned status = 0, evals = 0, taken = 0, rejected = 0;
         fields >> status >> evals >> taken >> rejected;
         rep.field_evals += evals;
+        rep.row_field_evals.push_back(static_cast<long>(evals));
         rep.steps_taken += taken;
         rep.steps_rejected += rejected;
         const EvalResult& ref = refs[r];
@@ -279,6 +322,7 @@ std::optional<VerifyReport> build_and_compare(const Model& model, const std::vec
                 std::copy(want, want + 3, rep.first_counter_eval);
             }
             ++rep.counter_mismatches;
+            rep.counter_rows.push_back(static_cast<int>(r));
         }
         rep.emitted.emplace_back();
         rep.reference.emplace_back();
@@ -358,6 +402,26 @@ std::string render_verify(const VerifyReport& r, Precision p) {
     if (r.counter_mismatches)
         s += fmt::format("counters             {} rows took other steps than eval{}\n", r.counter_mismatches,
                          r.counters_must_match ? "" : " (float rounding can change an accept/reject decision)");
+    bool near_one = false, far = false;
+    for (const VerifyReport::Tipped& t : r.tipped) {
+        std::vector<std::string> errs;
+        for (std::size_t i = 0; i < t.errs.size() && i < 12; ++i) errs.push_back(fmt::format("{:.4g}", t.errs[i]));
+        if (t.errs.size() > 12) errs.push_back("...");
+        const bool close = std::fabs(t.err - 1.0) < 0.05;
+        (close ? near_one : far) = true;
+        s += fmt::format("  row {}: emitted {} field evaluations, eval {}; eval's error norms in {}: {}; nearest 1: {:.6f} "
+                         "at t = {:.6g}, h = {:.3g} ({})\n",
+                         t.row + 1, t.emitted_evals, t.eval_evals, t.block, fmt::join(errs, ", "), t.err, t.t, t.h,
+                         t.accepted ? "accepted" : "rejected");
+    }
+    if (near_one)
+        s += "  a decision with an error norm this close to 1 can go the other way in float32\n";
+    if (far)
+        s += "  where no norm lies near 1, float32 rounding changed a step size (the controller's factor from a small "
+             "error norm) and the steps end elsewhere\n";
+    if (!r.tipped.empty())
+        s += "  what to do: emit with --precision float64 (the same steps and bits as eval), or give the block a "
+             "fixed-step solver (meander tune names the cheapest that meets an error target)\n";
     if (r.counter_mismatches && r.counters_must_match)
         s += fmt::format("first counters       row {}: emitted {} field evaluations, {} accepted, {} rejected; eval {}, {}, {}\n",
                          r.first_counter_row + 1, r.first_counter_emitted[0], r.first_counter_emitted[1],

@@ -58,6 +58,20 @@ struct VerifyReport {
     std::vector<std::vector<double>> emitted, reference;  // per row (empty where a row returned no result)
     std::vector<std::string> emitted_status, reference_status;  // per row: result names ("ok", "step_limit", ...)
     int compared_rows = 0;          // rows where both returned ok and every output was compared
+    std::vector<int> counter_rows;  // rows (0-based) whose counters differ from eval's
+    std::vector<long> row_field_evals;  // the emitted code's field evaluations per row
+    // float32 rows that took other steps than eval: per row, the reference's
+    // accept/reject decision whose error norm lay nearest 1 (what rounding in
+    // float can tip the other way).
+    struct Tipped {
+        int row = 0;
+        std::string block;                   // the adaptive block holding the attempt nearest 1
+        double t = 0.0, h = 0.0, err = 0.0;  // that attempt: start, step, scaled error norm
+        bool accepted = false;               // eval's decision (err < 1)
+        long emitted_evals = 0, eval_evals = 0;
+        std::vector<double> errs;            // every attempt's error norm in that block, in order
+    };
+    std::vector<Tipped> tipped;
     // Agreement needs something to agree on: at least one row compared.
     bool passed() const {
         return compared_rows > 0 && failures == 0 && status_mismatches == 0 &&

@@ -68,3 +68,19 @@ TEST(VerifyBoard, AMissingEmulatorIsNamed) {
     EXPECT_FALSE(verify_model(loaded->model, eo, rows, vo, diags));
     EXPECT_NE(diags.render().find("needs /nonexistent/qemu-system-arm on PATH"), std::string::npos) << diags.render();
 }
+
+TEST(VerifyTipped, ARowWithOtherStepsShowsEvalsErrorNorms) {
+    // boiler_ahead in float32: one row of its inputs takes other adaptive steps than eval
+    // (the counters differ). The report names the row, both evaluation counts, eval's
+    // error norms (each accepted attempt below 1, a rejected one at or above: the rule
+    // of DEVELOPERS.md "Integrator semantics") and what to do.
+    const fs::path s = fs::path(MEANDER_SOURCE_DIR) / "samples/boiler_ahead";
+    const Outcome r = run("verify " + (s / "boiler_ahead.mnd").string() + " --input " + (s / "inputs.csv").string());
+    const auto at = r.output.find("nearest 1: ");
+    ASSERT_NE(at, std::string::npos) << r.output;
+    const double err = std::strtod(r.output.c_str() + at + 11, nullptr);
+    const auto decision = r.output.find('(', r.output.find("h = ", at));
+    ASSERT_NE(decision, std::string::npos);
+    EXPECT_EQ(r.output.compare(decision + 1, 8, err < 1.0 ? "accepted" : "rejected"), 0) << r.output;
+    EXPECT_NE(r.output.find("what to do: emit with --precision float64"), std::string::npos) << r.output;
+}
