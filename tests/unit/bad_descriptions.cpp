@@ -10,6 +10,7 @@
 
 #include "compiler/check.hpp"
 #include "compiler/parse.hpp"
+#include "test_support.hpp"
 
 namespace meander {
 namespace {
@@ -22,6 +23,7 @@ struct Row {
 
 // Parses, then checks if the parse succeeded; returns every diagnostic.
 Diagnostics run(const std::string& text) {
+    test::save_fuzz_seed("description", text);
     Source src("bad.mnd", text);
     Diagnostics diags;
     auto model = parse_description(src, diags);

@@ -360,6 +360,7 @@ TEST_P(Read, ExactDiagnostic) {
     const ReadCase& c = GetParam();
     fs::path dir = scratch(c.name);
     fs::path p = c.setup(dir);
+    if (fs::is_regular_file(p)) test::save_fuzz_seed("weights", read_text(p));
     Diagnostics diags;
     auto set = read_weights(p.string(), diags);
     EXPECT_FALSE(set.has_value());

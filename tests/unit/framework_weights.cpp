@@ -67,6 +67,7 @@ std::string le64(std::uint64_t v) {
 std::string safetensors(const std::string& header, const std::string& data) { return le64(header.size()) + header + data; }
 
 std::string safetensors_error(const std::string& bytes) {
+    test::save_fuzz_seed("weights", bytes);
     Diagnostics diags;
     auto set = weights::read_safetensors_bytes(bytes, "m.safetensors", diags);
     EXPECT_FALSE(set);

@@ -51,6 +51,7 @@ const char* kBlend =
     "output y[4]\n";
 
 Diagnostics run(const std::string& text, std::optional<Model>* out = nullptr) {
+    test::save_fuzz_seed("description", text);
     Source src("s.mnd", text);
     Diagnostics diags;
     auto model = parse_description(src, diags);

@@ -8,6 +8,7 @@
 #include <sys/wait.h>
 
 #include <array>
+#include <cstdint>
 #include <cstdio>
 #include <cstdlib>
 #include <filesystem>
@@ -129,6 +130,21 @@ inline std::string read_text(const std::filesystem::path& p) {
     std::ostringstream s;
     s << f.rdbuf();
     return s.str();
+}
+
+// With MEANDER_FUZZ_SEEDS set (tests/fuzz/make_corpus.sh sets it), writes an
+// input a test feeds to a reader into $MEANDER_FUZZ_SEEDS/KIND, named by its
+// content, to seed the fuzz corpus; otherwise does nothing.
+inline void save_fuzz_seed(const std::string& kind, const std::string& bytes) {
+    const char* dir = std::getenv("MEANDER_FUZZ_SEEDS");
+    if (dir == nullptr || *dir == '\0' || bytes.size() > (64u << 10)) return;
+    std::uint64_t h = 14695981039346656037ull;  // FNV-1a, for a file name only
+    for (unsigned char c : bytes) h = (h ^ c) * 1099511628211ull;
+    const std::filesystem::path folder = std::filesystem::path(dir) / kind;
+    std::filesystem::create_directories(folder);
+    char name[32];
+    std::snprintf(name, sizeof name, "seed-%016llx", static_cast<unsigned long long>(h));
+    write_text(folder / name, bytes);
 }
 
 struct RunResult {
