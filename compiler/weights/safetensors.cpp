@@ -53,6 +53,9 @@ std::optional<TensorSet> read_safetensors_bytes(std::string_view bytes, const st
         root = json::parse(header.begin(), header.end());
     } catch (const json::parse_error& e) {
         return fail(fmt::format("safetensors header is not JSON (byte {} of the header)", e.byte));
+    } catch (const json::out_of_range&) {
+        // A number literal beyond double's range (1e999): valid JSON text, unreadable here.
+        return fail("safetensors header holds a number beyond the range of a double");
     }
     if (!root.is_object()) return fail("safetensors header is not a JSON object");
 

@@ -169,6 +169,9 @@ TEST(Safetensors, MalformedInputs) {
     EXPECT_EQ(safetensors_error("abc"), "m.safetensors: error: not a safetensors file: 3 bytes, shorter than the 8-byte header length\n");
     EXPECT_EQ(safetensors_error(safetensors("{\"w\": [1,", zeros8)),
               "m.safetensors: error: safetensors header is not JSON (byte 10 of the header)\n");
+    // Found by tests/fuzz/weights.cpp: a number past double's range ended the process (an uncaught exception).
+    EXPECT_EQ(safetensors_error(safetensors(R"({"w":{"dtype":"F32","shape":[1e999],"data_offsets":[0,8]}})", zeros8)),
+              "m.safetensors: error: safetensors header holds a number beyond the range of a double\n");
     EXPECT_EQ(safetensors_error(safetensors(R"({"w":{"dtype":"Q9","shape":[2],"data_offsets":[0,8]}})", zeros8)),
               "m.safetensors: error: tensor 'w': unknown dtype 'Q9' (meander reads F64, F32, F16, BF16, I64, I32, I16, I8, U8 and BOOL)\n");
     EXPECT_EQ(safetensors_error(safetensors(R"({"w":{"dtype":"F32","shape":[3],"data_offsets":[0,8]}})", zeros8)),

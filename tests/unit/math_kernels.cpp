@@ -110,6 +110,7 @@ std::vector<Kernel> kernels() {
                           mpfr_add(y, t, x, MPFR_RNDN);
                       else
                           mpfr_set(y, t, MPFR_RNDN);
+                      mpfr_clear(t);  // LeakSanitizer found it missing
                   }});
     ks.push_back({"silu", meander::float_kernel_bound("silu"), [](float x) { return k::act_silu(x); }, [](double x) { return x * sigmoid_d(x); },
                   [](mpfr_t y, const mpfr_t x) {
