@@ -137,7 +137,8 @@ std::string zip_of(const Deflated& m, const std::vector<std::string>& names) {
 // 128-byte header, 2 GiB in all, about 2 MB on disk (finding 2 of issue 7).
 const fs::path& zip_bomb() {
     static const fs::path p = [] {
-        const fs::path dir = scratch("bomb");
+        // One per test process: ctest runs the tests that use it in parallel.
+        const fs::path dir = scratch("bomb-" + std::to_string(getpid()));
         const Deflated m = deflated_zeros_npy((std::uint64_t{64} << 20) - 32);
         EXPECT_EQ(m.size, std::uint64_t{256} << 20);
         std::vector<std::string> names;
@@ -163,7 +164,8 @@ struct ChildRun {
 // Reads `path` in a child process (for `model`, if given) and reports its
 // diagnostics and its peak resident memory (getrusage through wait4).
 ChildRun read_in_child(const fs::path& path, const Model* model) {
-    const fs::path out = path.parent_path() / "child.txt";
+    // Named by this process: ctest runs the tests that share the archive in parallel.
+    const fs::path out = path.parent_path() / ("child-" + std::to_string(getpid()) + ".txt");
     fs::remove(out);
     const pid_t pid = fork();
     if (pid == 0) {
