@@ -3,7 +3,13 @@
 rows, from the sample's own invented generator (its train.py make_data); and
 samples/*/unlabelled.csv: 2000 further input rows from the same generator
 (numpy.random.default_rng(seed + 1), a stream neither training nor inputs.csv
-used), the unlabelled inputs `meander refit` learns on.
+used), the unlabelled inputs `meander refit` learns on; and
+samples/*/refit_labels.csv: the generator's labels of those same rows, for
+`meander refit --fit labels` (training on labels rather than on the reference).
+
+With `--held-out DIR` it also writes DIR/NAME_held_out.csv and
+DIR/NAME_held_out_labels.csv: the trainer's whole held-out set (not trained
+on), for figures over more rows than inputs.csv holds.
 
 Each trainer draws a training set and then a held-out set from
 numpy.random.default_rng(seed); inputs.csv holds 40 held-out rows. This script
@@ -14,6 +20,7 @@ fan_balance. No model output is involved.
 
 Run: /usr/bin/python3 samples/make_labels.py   (NumPy 1.24, SciPy 1.10)
 """
+import argparse
 import csv
 import importlib.util
 import os
@@ -36,7 +43,18 @@ def load(name):
     return mod
 
 
+def write_labels(path, header, ys):
+    with open(path, "w") as fh:
+        fh.write(",".join(header) + "\n")
+        for y in ys:
+            y = np.atleast_1d(y)
+            fh.write(",".join(repr(float(v)) if header[0] != "grade" else str(int(v)) for v in y) + "\n")
+
+
 def main():
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--held-out", metavar="DIR", help="also write each sample's whole held-out set here")
+    args = ap.parse_args()
     for name, seed, sizes, header in SAMPLES:
         mod = load(name)
         rng = np.random.default_rng(seed)
@@ -50,17 +68,23 @@ def main():
             i = int(np.argmin(d))
             assert d[i] < 1e-4, (name, r, d[i])
             out.append(y_te[i])
-        with open(os.path.join(HERE, name, "labels.csv"), "w") as fh:
-            fh.write(",".join(header) + "\n")
-            for y in out:
-                y = np.atleast_1d(y)
-                fh.write(",".join(repr(float(v)) if header[0] != "grade" else str(int(v)) for v in y) + "\n")
-        x_more, _ = mod.make_data(np.random.default_rng(seed + 1), 2000)
+        write_labels(os.path.join(HERE, name, "labels.csv"), header, out)
+        x_more, y_more = mod.make_data(np.random.default_rng(seed + 1), 2000)
         with open(os.path.join(HERE, name, "unlabelled.csv"), "w") as fh:
             with open(os.path.join(HERE, name, "inputs.csv")) as src:
                 fh.write(src.readline())  # the same header
             for r in x_more:
                 fh.write(",".join(f"{v:.6g}" for v in r) + "\n")
+        write_labels(os.path.join(HERE, name, "refit_labels.csv"), header, y_more)
+        if args.held_out:
+            os.makedirs(args.held_out, exist_ok=True)
+            with open(os.path.join(HERE, name, "inputs.csv")) as src:
+                head = src.readline()
+            with open(os.path.join(args.held_out, name + "_held_out.csv"), "w") as fh:
+                fh.write(head)
+                for r in x_te:
+                    fh.write(",".join(repr(float(v)) for v in r) + "\n")
+            write_labels(os.path.join(args.held_out, name + "_held_out_labels.csv"), header, y_te)
         print(f"{name}: {len(out)} labels, {len(x_more)} unlabelled rows")
 
 
