@@ -529,6 +529,12 @@ int cmd_refit(const std::string& model_path, const std::string& input, const std
     auto cheap = with_solver(model, a.blocks, sv, diags);
     if (!cheap) return flush(diags), kUsageError;
     const fs::path out_mnd(out_path);
+    // Refuse before training, not after minutes of it: the outputs go into an existing folder.
+    if (std::error_code ec; !fs::is_directory(out_mnd.parent_path().empty() ? fs::path(".") : out_mnd.parent_path(), ec)) {
+        std::fprintf(stderr, "meander refit: -o %s: the folder %s does not exist; nothing trained\n", out_path.c_str(),
+                     out_mnd.parent_path().string().c_str());
+        return kUsageError;
+    }
     const std::string stem = out_mnd.stem().string();
     const std::string npz_name = stem + ".npz";
     const std::string note = fmt::format("Refitted by meander refit from {} for solver {}", fs::path(model_path).filename().string(),

@@ -165,6 +165,12 @@ TEST(Refit, SolverTheBlockCannotTakeIsAUsageError) {
                             " --method rk4 --steps 2 --block lift -o " + (dir / "x.mnd").string());
     EXPECT_EQ(b.status, 2) << b.output;
     EXPECT_NE(b.output.find("no continuous block named 'lift'"), std::string::npos) << b.output;
+    // A missing output folder is found before any training.
+    const RunResult f = run(kBin + " refit " + kSample + "boiler_ahead.mnd --input " + train.string() +
+                            " --method rk4 --steps 2 -o " + (dir / "nowhere" / "x.mnd").string());
+    EXPECT_EQ(f.status, 2) << f.output;
+    EXPECT_NE(f.output.find("does not exist; nothing trained"), std::string::npos) << f.output;
+    EXPECT_FALSE(fs::exists(dir / "nowhere"));
 }
 
 TEST(Refit, LabelFitOnAClassifierBeatsTheDeployedHeldOutMetric) {
