@@ -1,5 +1,5 @@
 // Parse: description text -> Model (names, sizes, locations; no weights yet).
-// The grammar is grammar/meander.hpp; the actions live in parse.cpp.
+// The grammar is grammar/meander.hpp; the actions live in parse/ (driver: parse.cpp).
 #pragma once
 
 #include <optional>
