@@ -1,5 +1,5 @@
 # meander_generate(<target> DESCRIPTION <file.mnd>
-#                  [OUTPUT_DIR <dir>] [PRECISION float32|float64] [C_API]
+#                  [OUTPUT_DIR <dir>] [PRECISION float32|float64] [C_HEADER]
 #                  [SELF_TEST <inputs.csv>])
 #
 # Emits C++ for a description at build time and makes it a static library
@@ -7,6 +7,7 @@
 # regenerated whenever the description, its weights, the self-test inputs or
 # the meander binary change. SELF_TEST adds <model>_selftest.hpp/.cpp (the
 # inputs with eval's outputs, and self_test() to run them on the target).
+# C_HEADER adds <model>.h, a plain C header, for C callers.
 #
 # Which meander runs: inside this project, the freshly built `meander` target;
 # elsewhere the MEANDER_EXECUTABLE variable when set (a cache entry, so
@@ -14,10 +15,10 @@
 # first `meander` on PATH (find_program; configuring fails when there is none).
 # An unknown keyword or a keyword without its value stops the configure step.
 function(meander_generate target)
-  cmake_parse_arguments(MG "C_API" "DESCRIPTION;OUTPUT_DIR;PRECISION;SELF_TEST" "" ${ARGN})
+  cmake_parse_arguments(MG "C_HEADER" "DESCRIPTION;OUTPUT_DIR;PRECISION;SELF_TEST" "" ${ARGN})
   if(MG_UNPARSED_ARGUMENTS)
     message(FATAL_ERROR "meander_generate(${target}): unknown argument(s) ${MG_UNPARSED_ARGUMENTS} "
-                        "(known: DESCRIPTION, OUTPUT_DIR, PRECISION, C_API, SELF_TEST)")
+                        "(known: DESCRIPTION, OUTPUT_DIR, PRECISION, C_HEADER, SELF_TEST)")
   endif()
   if(MG_KEYWORDS_MISSING_VALUES)
     message(FATAL_ERROR "meander_generate(${target}): ${MG_KEYWORDS_MISSING_VALUES} needs a value")
@@ -69,10 +70,11 @@ function(meander_generate target)
   endif()
 
   set(extra)
-  if(MG_C_API)
-    list(APPEND extra --c-api)
-  endif()
   set(outputs "${MG_OUTPUT_DIR}/${model}.hpp" "${MG_OUTPUT_DIR}/${model}.cpp")
+  if(MG_C_HEADER)
+    list(APPEND extra --c-header)
+    list(APPEND outputs "${MG_OUTPUT_DIR}/${model}.h")
+  endif()
   set(sources "${MG_OUTPUT_DIR}/${model}.cpp")
   if(MG_SELF_TEST)
     get_filename_component(self_test "${MG_SELF_TEST}" ABSOLUTE)

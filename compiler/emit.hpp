@@ -10,7 +10,7 @@ namespace meander {
 
 struct EmitOptions {
     Precision precision = Precision::float32;
-    bool c_api = false;             // also an extern "C" entry point prefixed with the model name
+    bool c_header = false;          // also NAME.h, a plain C header, and extern "C" entry points in NAME.cpp
     std::string content_hash;       // hex, of description and weights; printed in the banner
     std::string meander_version;    // printed in the banner
     // Self-test vectors: inputs and the outputs eval gives for them (empty: no self-test source).
@@ -19,7 +19,7 @@ struct EmitOptions {
 };
 
 struct EmittedFile {
-    std::string name;               // file name only: "<model>.hpp", "<model>.cpp", ...
+    std::string name;               // file name only: "<model>.hpp", "<model>.cpp", "<model>.h", ...
     std::string text;
 };
 

@@ -184,7 +184,7 @@ int cmd_eval(const std::string& model_path, const std::string& input, const std:
     std::string csv = csv_header(model);
     if (keep_going) csv.insert(csv.size() - 1, ",result");
     std::string stat_text;
-    if (stats) stat_text = "row  field_evals  steps_taken  steps_rejected  h_min  h_max\n";
+    if (stats) stat_text = "row  field_evals  steps_accepted  steps_rejected  h_min  h_max\n";
     int row = 0, failed = 0;
     RowProblems problems;  // one diagnostic per distinct failure, with a count of the rows like it
     for (const EvalResult& r : results) {
@@ -206,7 +206,7 @@ int cmd_eval(const std::string& model_path, const std::string& input, const std:
         outputs.push_back(r.output);
         ok_rows.push_back(static_cast<std::size_t>(row - 1));
         if (stats)
-            stat_text += fmt::format("{}  {}  {}  {}  {}  {}\n", row, r.stats.field_evals, r.stats.steps_taken,
+            stat_text += fmt::format("{}  {}  {}  {}  {}  {}\n", row, r.stats.field_evals, r.stats.steps_accepted,
                                      r.stats.steps_rejected, format_double(r.stats.h_min), format_double(r.stats.h_max));
     }
     if (!problems.empty()) {
@@ -236,16 +236,16 @@ int cmd_eval(const std::string& model_path, const std::string& input, const std:
     return 0;
 }
 
-EmitOptions emit_options(const LoadedModel& l, Precision p, bool c_api) {
+EmitOptions emit_options(const LoadedModel& l, Precision p, bool c_header) {
     EmitOptions o;
     o.precision = p;
-    o.c_api = c_api;
+    o.c_header = c_header;
     o.content_hash = l.content_hash;
     o.meander_version = MEANDER_VERSION;
     return o;
 }
 
-int cmd_compile(const std::string& model_path, const std::string& outdir, const std::string& precision, bool c_api,
+int cmd_compile(const std::string& model_path, const std::string& outdir, const std::string& precision, bool c_header,
                 const std::string& self_test, const std::string& dump) {
     Diagnostics diags;
     Precision p = precision_of(precision);
@@ -254,11 +254,11 @@ int cmd_compile(const std::string& model_path, const std::string& outdir, const 
     if (loaded->model.stream) {
         const std::string why = stream_emit_unsupported(loaded->model);
         if (!why.empty()) diags.error(model_path, fmt::format("streaming model '{}' cannot be emitted: {}", loaded->model.name, why));
-        else if (c_api || !self_test.empty() || !dump.empty())
-            diags.error(model_path, "a streaming model is compiled without --c-api, --self-test and --dump (not emitted yet)");
+        else if (c_header || !self_test.empty() || !dump.empty())
+            diags.error(model_path, "a streaming model is compiled without --c-header, --self-test and --dump (not emitted yet)");
     }
     if (!diags.ok()) return flush(diags), kModelError;
-    EmitOptions opts = emit_options(*loaded, p, c_api);
+    EmitOptions opts = emit_options(*loaded, p, c_header);
     if (!self_test.empty()) {
         auto rows = read_csv_rows(self_test, loaded->model.input_size, diags, p == Precision::float32);
         if (!rows) return flush(diags), kModelError;
@@ -644,7 +644,7 @@ int main(int argc, char** argv) {
     std::string model, input, output, outdir, precision = "float32", self_test, dump, cxx, keep, core = "cortex-m4f";
     std::vector<std::string> boards;
     double tol = -1.0, cycles_per_mac = -1.0;
-    bool stats = false, show = false, c_api = false, json = false, in_place = false, check_only = false, estimate_only = false;
+    bool stats = false, show = false, c_header = false, json = false, in_place = false, check_only = false, estimate_only = false;
 
     auto* check = app.add_subcommand("check", "parse the description, check shapes, read and bind the weights");
     check->add_option("model", model, "description (.mnd)")->required();
@@ -665,7 +665,8 @@ int main(int argc, char** argv) {
     compile->add_option("model", model, "description (.mnd)")->required();
     compile->add_option("-o,--output-dir", outdir, "folder for the emitted files")->required()->check(kNonEmptyPath);
     compile->add_option("--precision", precision, "float32 (default) or float64")->check(CLI::IsMember(precisions));
-    compile->add_flag("--c-api", c_api, "also emit an extern \"C\" entry point");
+    compile->add_flag("--c-header", c_header,
+                      "also emit <model>.h, a plain C header (C99), with extern \"C\" entry points in <model>.cpp");
     compile->add_option("--self-test", self_test, "CSV of golden inputs: emit a self-test with eval's outputs for them");
     compile->add_option("--dump", dump, "print an intermediate form: parse, lower, emit")
         ->check(CLI::IsMember({"parse", "lower", "emit"}));
@@ -810,7 +811,7 @@ int main(int argc, char** argv) {
     try {
         if (*check) return cmd_check(model, precision);
         if (*eval) return cmd_eval(model, input, output, stats, labels_path, keep_going);
-        if (*compile) return cmd_compile(model, outdir, precision, c_api, self_test, dump);
+        if (*compile) return cmd_compile(model, outdir, precision, c_header, self_test, dump);
         if (*verify) return cmd_verify(model, input, precision, tol, cxx, keep, show, boards);
         if (*cost) return cmd_cost(model, input, precision, core, cycles_per_mac, json, estimate_only);
         if (*tune)

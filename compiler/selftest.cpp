@@ -22,7 +22,7 @@ std::vector<EmittedFile> emit_self_test(const Model& model, const EmitOptions& o
     h += fmt::format("namespace {} {{\n\n", name);
     h += "// Golden vectors: inputs, and the outputs the reference evaluator (meander eval, double)\n";
     h += "// gave for them, rounded to real.\n";
-    h += fmt::format("inline constexpr std::size_t self_test_vectors = {};\n\n", vectors);
+    h += fmt::format("constexpr std::size_t self_test_vectors = {};\n\n", vectors);
     h += R"(// A deviation |got - want| fails when it exceeds tolerance * max(1, |want|);
 // a NaN or infinite output fails, and so does a vector whose result is not ok.
 struct self_test_report {

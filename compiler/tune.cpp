@@ -139,7 +139,7 @@ void measure(const Split& sp, const std::vector<Eigen::VectorXd>& block_inputs,
     for (std::size_t row = 0; row < runs.size(); ++row) {
         const Run& r = runs[row];
         cand.measured_field_evals = std::max(cand.measured_field_evals, r.stats.field_evals);
-        cand.max_attempts = std::max(cand.max_attempts, r.stats.steps_taken + r.stats.steps_rejected);
+        cand.max_attempts = std::max(cand.max_attempts, r.stats.steps_accepted + r.stats.steps_rejected);
         if (r.status != EvalStatus::ok) {
             cand.ok = false;
             cand.failure = std::string(eval_status_name(r.status));

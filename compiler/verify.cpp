@@ -97,7 +97,7 @@ std::string driver_source(const Model& m, const std::vector<std::vector<double>>
         "    for (unsigned r = 0; r < {1}u; ++r) {{\n"
         "        {3}\n"
         "        std::printf(\"%u %u %u %u\", static_cast<unsigned>(res), static_cast<unsigned>(ctx.count.field_evals),\n"
-        "                    static_cast<unsigned>(ctx.count.steps_taken), static_cast<unsigned>(ctx.count.steps_rejected));\n"
+        "                    static_cast<unsigned>(ctx.count.steps_accepted), static_cast<unsigned>(ctx.count.steps_rejected));\n"
         "        for (unsigned i = 0; i < {0}::output_size; ++i) std::printf(\" %.{2}g\", static_cast<double>(out[i]));\n"
         "        std::printf(\"\\n\");\n"
         "    }}\n"
@@ -308,16 +308,16 @@ std::optional<VerifyReport> build_and_compare(const Model& model, const std::vec
         fields >> status >> evals >> taken >> rejected;
         rep.field_evals += evals;
         rep.row_field_evals.push_back(static_cast<long>(evals));
-        rep.steps_taken += taken;
+        rep.steps_accepted += taken;
         rep.steps_rejected += rejected;
         const EvalResult& ref = refs[r];
         rep.eval_field_evals += ref.stats.field_evals;
-        if (static_cast<long>(evals) != ref.stats.field_evals || static_cast<long>(taken) != ref.stats.steps_taken ||
+        if (static_cast<long>(evals) != ref.stats.field_evals || static_cast<long>(taken) != ref.stats.steps_accepted ||
             static_cast<long>(rejected) != ref.stats.steps_rejected) {
             if (rep.counter_mismatches == 0) {
                 rep.first_counter_row = static_cast<int>(r);
                 const long got[3] = {static_cast<long>(evals), static_cast<long>(taken), static_cast<long>(rejected)};
-                const long want[3] = {ref.stats.field_evals, ref.stats.steps_taken, ref.stats.steps_rejected};
+                const long want[3] = {ref.stats.field_evals, ref.stats.steps_accepted, ref.stats.steps_rejected};
                 std::copy(got, got + 3, rep.first_counter_emitted);
                 std::copy(want, want + 3, rep.first_counter_eval);
             }
@@ -398,7 +398,7 @@ std::string render_verify(const VerifyReport& r, Precision p) {
         s += fmt::format("tolerance            {:.3g} x max(1, |eval|){}\n", r.tolerance,
                          r.tolerance == default_tolerance(p) ? " (default for this precision)" : "");
     s += fmt::format("field evaluations    emitted {}, eval {}\n", r.field_evals, r.eval_field_evals);
-    s += fmt::format("steps                {} accepted, {} rejected\n", r.steps_taken, r.steps_rejected);
+    s += fmt::format("steps                {} accepted, {} rejected\n", r.steps_accepted, r.steps_rejected);
     if (r.counter_mismatches)
         s += fmt::format("counters             {} rows took other steps than eval{}\n", r.counter_mismatches,
                          r.counters_must_match ? "" : " (float rounding can change an accept/reject decision)");

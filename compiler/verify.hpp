@@ -53,7 +53,7 @@ struct VerifyReport {
     double first_bits_emitted = 0.0, first_bits_eval = 0.0;
     int first_counter_row = -1;     // the first row whose counters differ (0-based)
     long first_counter_emitted[3] = {0, 0, 0}, first_counter_eval[3] = {0, 0, 0};  // evals, taken, rejected
-    long field_evals = 0, steps_taken = 0, steps_rejected = 0;  // emitted code, summed over rows
+    long field_evals = 0, steps_accepted = 0, steps_rejected = 0;  // emitted code, summed over rows
     long eval_field_evals = 0;      // reference evaluator, summed over rows
     std::vector<std::vector<double>> emitted, reference;  // per row (empty where a row returned no result)
     std::vector<std::string> emitted_status, reference_status;  // per row: result names ("ok", "step_limit", ...)

@@ -81,12 +81,12 @@ EvalStatus eval_status_of(IntegrateStatus s) {
 }
 
 void add_stats(IntegrateStats& total, const IntegrateStats& s) {
-    if (s.steps_taken > 0) {
-        if (total.steps_taken == 0 || s.h_min < total.h_min) total.h_min = s.h_min;
-        if (total.steps_taken == 0 || s.h_max > total.h_max) total.h_max = s.h_max;
+    if (s.steps_accepted > 0) {
+        if (total.steps_accepted == 0 || s.h_min < total.h_min) total.h_min = s.h_min;
+        if (total.steps_accepted == 0 || s.h_max > total.h_max) total.h_max = s.h_max;
     }
     total.field_evals += s.field_evals;
-    total.steps_taken += s.steps_taken;
+    total.steps_accepted += s.steps_accepted;
     total.steps_rejected += s.steps_rejected;
 }
 

@@ -26,7 +26,7 @@ ForwardRecord forward_record(const Model& model, const Eigen::VectorXd& input, G
             const IntegrateStatus s =
                 integrate_recording(c, rec.y, way == GradientWay::discrete ? &rec.steps : nullptr, stats);
             r.stats.field_evals += stats.field_evals;
-            r.stats.steps_taken += stats.steps_taken;
+            r.stats.steps_accepted += stats.steps_accepted;
             r.stats.steps_rejected += stats.steps_rejected;
             if (s != IntegrateStatus::ok) {
                 r.status = eval_status_of(s);

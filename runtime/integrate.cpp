@@ -19,9 +19,9 @@ double rms(const Eigen::VectorXd& v) {
 
 void note_accepted(IntegrateStats& stats, double h) {
     const double a = std::fabs(h);
-    if (stats.steps_taken == 0 || a < stats.h_min) stats.h_min = a;
-    if (stats.steps_taken == 0 || a > stats.h_max) stats.h_max = a;
-    stats.steps_taken += 1;
+    if (stats.steps_accepted == 0 || a < stats.h_min) stats.h_min = a;
+    if (stats.steps_accepted == 0 || a > stats.h_max) stats.h_max = a;
+    stats.steps_accepted += 1;
 }
 
 // sum = w[a] k[a] + w[b] k[b] + ... over the non-zero weights in stage

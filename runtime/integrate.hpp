@@ -19,7 +19,7 @@ enum class IntegrateStatus { ok, state_not_finite, step_limit, step_too_small };
 
 struct IntegrateStats {
     long field_evals = 0;
-    long steps_taken = 0;           // accepted steps
+    long steps_accepted = 0;           // accepted steps
     long steps_rejected = 0;
     double h_min = 0.0;             // smallest and largest |h| of accepted steps (0 when none)
     double h_max = 0.0;

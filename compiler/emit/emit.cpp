@@ -14,7 +14,7 @@ namespace {
 
 // The source file: banner, stamp check, build guards, the section and hook
 // macros, then every part in the order the compiler needs them.
-std::string render_source(const Emission& e, const std::string& stamp) {
+std::string render_source(const Emission& e, const std::string& stamp, const std::string& c_stamp) {
     const std::string M_ = e.M();
     std::string o = banner(e.model, e.opts, e.model.name + ".cpp");
     o += fmt::format("#include \"{}.hpp\"\n\n#include <cmath>\n#include <cstddef>\n#include <cstdint>\n{}\n", e.model.name,
@@ -28,12 +28,6 @@ std::string render_source(const Emission& e, const std::string& stamp) {
     } else {
         o += "static_assert(sizeof(double) == 8, \"this code needs a 64-bit IEEE double\");\n";
         o += fmt::format("static_assert(sizeof({}::real) == 8, \"real must be double\");\n", e.model.name);
-    }
-    if (e.opts.c_api) {
-        o += fmt::format("static_assert(sizeof({}::context) == {}_CONTEXT_BYTES, \"context size\");\n",
-                         e.model.name, M_);
-        o += fmt::format("static_assert(alignof({}::context) <= {}_CONTEXT_ALIGN, \"context alignment\");\n",
-                         e.model.name, M_);
     }
     o += "\n";
     o += "// Weights are constant data: with no attribute the linker keeps them in flash. Define\n";
@@ -63,7 +57,7 @@ std::string render_source(const Emission& e, const std::string& stamp) {
     o += render_result_name();
     o += render_build_check(e.p);
     o += fmt::format("}}  // namespace {}\n", e.model.name);
-    if (e.opts.c_api) o += render_c_entry(e);
+    if (e.opts.c_header) o += render_c_entry(e, c_stamp);
     return o;
 }
 
@@ -75,9 +69,11 @@ std::vector<EmittedFile> emit_model(const Model& model, const EmitOptions& opts)
     using namespace emit_detail;
     const Emission e(model, opts);
     const std::string hpp = render_header(e);
+    const std::string h = opts.c_header ? render_c_header(e) : std::string();
     std::vector<EmittedFile> files;
     files.push_back({model.name + ".hpp", finish_header(hpp)});
-    files.push_back({model.name + ".cpp", render_source(e, stamp_of(hpp))});
+    files.push_back({model.name + ".cpp", render_source(e, stamp_of(hpp), opts.c_header ? stamp_of(h) : std::string())});
+    if (opts.c_header) files.push_back({model.name + ".h", finish_header(h)});
     if (!opts.self_test_inputs.empty()) {
         std::vector<EmittedFile> st = emit_self_test(model, opts);
         files.insert(files.end(), std::make_move_iterator(st.begin()), std::make_move_iterator(st.end()));

@@ -1,6 +1,7 @@
-// Emit, entry points: the chains of layers, infer, result_name and the C
-// entry point.
+// Emit, entry points: the chains of layers, infer and result_name.
 #include <fmt/format.h>
+
+#include <cmath>
 
 #include "render.hpp"
 
@@ -55,7 +56,8 @@ void render_chain(const Emission& e, std::string& o, const Chain& c, const std::
                              slot_at(op.dst, in, out), slot_at(op.src, in, out));
             break;
         case Block::Kind::continuous:
-            o += fmt::format("{}if (const result r = block_{}(work, {}, {}, ctx.count); r != result::ok) return r;\n",
+            // Braces, not an if with an initialiser: the code builds as C++11.
+            o += fmt::format("{}{{ const result r = block_{}(work, {}, {}, ctx.count); if (r != result::ok) return r; }}\n",
                              pad, b.continuous.name, src, dst);
             break;
         }
@@ -115,16 +117,12 @@ bool build_conditions_hold() noexcept {{
 }}
 
 )",
-                       f ? "2^-24" : "2^-54", f ? "0x1.001p+0f" : "0x1.0000002p+0", f ? "2^-12" : "2^-27",
-                       f ? "-0x1.002p+0f" : "-0x1.0000004p+0", f ? "0x3p-25f" : "0x3p-54", f ? "0x1p-126f" : "0x1p-1022",
+                       // Decimal literals that read back to exactly these values: hexadecimal
+                       // floating literals are C++17, and the code builds as C++11.
+                       f ? "2^-24" : "2^-54", L(1.0 + std::ldexp(1.0, f ? -12 : -27)), f ? "2^-12" : "2^-27",
+                       L(-(1.0 + std::ldexp(1.0, f ? -11 : -26))), L(3.0 * std::ldexp(1.0, f ? -25 : -54)),
+                       L(std::ldexp(1.0, f ? -126 : -1022)),
                        L(1), L(0.5), L(0), f ? "2^-11" : "2^-26");
-}
-
-std::string render_c_entry(const Emission& e) {
-    return fmt::format("\nextern \"C\" int {0}_infer(void* context, const {1}* input, {1}* output) noexcept {{\n"
-                       "    return static_cast<int>({0}::infer(*static_cast<{0}::context*>(context), input, "
-                       "output));\n}}\n",
-                       e.model.name, e.real_name());
 }
 
 }  // namespace meander::emit_detail

@@ -163,17 +163,6 @@ std::string finish_header(std::string hpp) {
     return hpp;
 }
 
-namespace {
-
-std::size_t context_bytes(const Emission& e) {
-    const std::size_t r = e.p == Precision::float32 ? 4 : 8;
-    const std::size_t work = std::max<std::size_t>(e.low.workspace_size, 1) * r;
-    const std::size_t raw = work + 3 * 4;  // counters: three uint32
-    return (raw + r - 1) / r * r;
-}
-
-}  // namespace
-
 std::string render_header(const Emission& e) {
     const std::string M_ = e.M();
     const std::string real = e.real_name();
@@ -182,31 +171,24 @@ std::string render_header(const Emission& e) {
     o += "// Shared by this header and its source from the same meander run; the source refuses\n";
     o += "// any other header.\n";
     o += fmt::format("#define {}_MEANDER_STAMP {}\n\n", M_, kStampHole);
-    if (e.opts.c_api) {
-        o += "// For C callers: the context is an opaque block of this many bytes, aligned to\n";
-        o += fmt::format("// {}_CONTEXT_ALIGN (the source checks both against sizeof/alignof(context)).\n", M_);
-        o += fmt::format("#define {}_CONTEXT_BYTES {}u\n", M_, context_bytes(e));
-        o += fmt::format("#define {}_CONTEXT_ALIGN {}u\n\n", M_, e.p == Precision::float32 ? 4 : 8);
-        o += "#ifdef __cplusplus\n";
-    }
     o += "#include <cstddef>\n#include <cstdint>\n\n";
     o += fmt::format("namespace {} {{\n\n", e.model.name);
     o += fmt::format("using real = {};\n\n", real);
     o += "// Sizes of one input and one output vector, in reals.\n";
-    o += fmt::format("inline constexpr std::size_t input_size = {};\n", e.model.input_size);
-    o += fmt::format("inline constexpr std::size_t output_size = {};\n\n", e.model.output_size);
+    o += fmt::format("constexpr std::size_t input_size = {};\n", e.model.input_size);
+    o += fmt::format("constexpr std::size_t output_size = {};\n\n", e.model.output_size);
     o += "// Resources, as compile-time constants for static_assert in firmware.\n";
     o += "// workspace: reals in context::work (RAM); parameters: weights and biases (constant\n";
     o += "// data, flash); MACs: multiply-accumulates of the dense layers only; field evaluations:\n";
     o += "// over all continuous blocks, for the worst case the step limits allow.\n";
-    o += fmt::format("inline constexpr std::size_t workspace_size = {};\n", e.low.workspace_size);
-    o += "inline constexpr std::size_t workspace_bytes = workspace_size * sizeof(real);\n";
-    o += fmt::format("inline constexpr std::uint32_t parameter_count = {}u;\n", e.low.parameter_count);
-    o += "inline constexpr std::size_t parameter_bytes = parameter_count * sizeof(real);\n";
-    o += fmt::format("inline constexpr std::uint32_t macs_per_field_eval = {}u;  // one evaluation of every field\n",
+    o += fmt::format("constexpr std::size_t workspace_size = {};\n", e.low.workspace_size);
+    o += "constexpr std::size_t workspace_bytes = workspace_size * sizeof(real);\n";
+    o += fmt::format("constexpr std::uint32_t parameter_count = {}u;\n", e.low.parameter_count);
+    o += "constexpr std::size_t parameter_bytes = parameter_count * sizeof(real);\n";
+    o += fmt::format("constexpr std::uint32_t macs_per_field_eval = {}u;  // one evaluation of every field\n",
                      e.low.macs_per_field_eval);
-    o += fmt::format("inline constexpr std::uint32_t worst_field_evals = {}u;\n", e.low.worst_field_evals);
-    o += fmt::format("inline constexpr std::uint64_t worst_macs = {}u;  // one inference, worst case\n\n",
+    o += fmt::format("constexpr std::uint32_t worst_field_evals = {}u;\n", e.low.worst_field_evals);
+    o += fmt::format("constexpr std::uint64_t worst_macs = {}u;  // one inference, worst case\n\n",
                      e.low.worst_macs);
     o += R"(// What infer returns. Only with ok does the output hold the model's result;
 // with any other code its contents are unspecified (it may be partly written).
@@ -226,11 +208,11 @@ enum class result : std::uint8_t { ok = 0, input_not_finite = 1, state_not_finit
 // (reset at the start of every call; valid whatever the result).
 //   field_evals     evaluations of a field f(h, t), including the evaluation at the
 //                   start and, for an automatic first step, the one that chooses it.
-//   steps_taken     accepted steps (for a fixed-step block: every step).
+//   steps_accepted  accepted steps (for a fixed-step block: every step).
 //   steps_rejected  attempted adaptive steps whose error norm was not below 1.
 struct counters {
     std::uint32_t field_evals;
-    std::uint32_t steps_taken;
+    std::uint32_t steps_accepted;
     std::uint32_t steps_rejected;
 };
 
@@ -260,19 +242,6 @@ bool build_conditions_hold() noexcept;
 
 )";
     o += fmt::format("}}  // namespace {}\n", e.model.name);
-    if (e.opts.c_api) {
-        o += "\nextern \"C\" {\n";
-        o += "#define " + M_ + "_NOEXCEPT noexcept\n";
-        o += "#else\n";
-        o += "#define " + M_ + "_NOEXCEPT\n";
-        o += "#endif\n\n";
-        o += fmt::format("// C entry point: `context` points to {0}_CONTEXT_BYTES bytes aligned to\n", M_);
-        o += fmt::format("// {}_CONTEXT_ALIGN, owned by the caller. Returns the result code as an int\n", M_);
-        o += "// (0 ok, 1 input_not_finite, 2 state_not_finite, 3 step_limit, 4 step_too_small).\n";
-        o += fmt::format("int {}_infer(void* context, const {}* input, {}* output) {}_NOEXCEPT;\n", e.model.name,
-                         real, real, M_);
-        o += "\n#ifdef __cplusplus\n}  // extern \"C\"\n#endif\n";
-    }
     o += fmt::format("\n#endif  // MEANDER_GENERATED_{}_HPP\n", M_);
     return o;
 }

@@ -145,7 +145,7 @@ void adaptive_body(const Emission& e, std::string& o, const ContinuousPlan& cp, 
     }
     o += fmt::format("            if (rejected && !(factor < {0})) factor = {0};\n", e.L(1));
     o += "            h_abs *= factor;\n";
-    o += "            ++count.steps_taken;\n";
+    o += "            ++count.steps_accepted;\n";
     o += "            t = t_new;\n";
     o += "            for (std::size_t j = 0; j < n; ++j) y[j] = y_new[j];\n";
     o += "            if (!all_finite(y, n)) return result::state_not_finite;\n";
@@ -282,7 +282,7 @@ std::string render_continuous(const Emission& e, const ContinuousPlan& cp) {
         else
             o += fmt::format("        for (std::size_t j = 0; j < n; ++j) y[j] = y[j] + h * ({});\n",
                              weighted_sum(bnames, bnz));
-        o += "        ++count.steps_taken;\n";
+        o += "        ++count.steps_accepted;\n";
         o += "        if (!all_finite(y, n)) return result::state_not_finite;\n";
         o += "    }\n";
     } else {

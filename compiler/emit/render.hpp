@@ -5,7 +5,8 @@
 //   activations.cpp  math and activation kernels
 //   dense.cpp        dense layer kernels
 //   integrators.cpp  fields and continuous blocks (the unrolled Runge-Kutta loops)
-//   entry.cpp        chains of layers, infer, result_name and the C entry point
+//   entry.cpp        chains of layers, infer, result_name
+//   c_header.cpp     NAME.h for C callers and the extern "C" entry points
 #pragma once
 
 #include <set>
@@ -78,6 +79,10 @@ std::string render_infer(const Emission& e);
 // `streaming`: with the gap_out_of_range case of streaming models.
 std::string render_result_name(bool streaming = false);
 std::string render_build_check(Precision p);  // also the streaming emitter's
-std::string render_c_entry(const Emission& e);
+
+// c_header.cpp: NAME.h with kStampHole where its stamp goes (finish_header puts it
+// in), and the end of NAME.cpp that checks that stamp and defines the entry points.
+std::string render_c_header(const Emission& e);
+std::string render_c_entry(const Emission& e, const std::string& c_stamp);
 
 }  // namespace meander::emit_detail

@@ -103,21 +103,21 @@ private:
         o += "#include <cstddef>\n#include <cstdint>\n\n";
         o += fmt::format("namespace {} {{\n\n", m_.name);
         o += fmt::format("using real = {};\n\n", real());
-        o += fmt::format("inline constexpr std::size_t input_size = {};   // one observation\n", m_.input_size);
-        o += fmt::format("inline constexpr std::size_t output_size = {};\n", m_.output_size);
-        o += fmt::format("inline constexpr std::size_t state_size = {};   // carried between observations\n",
+        o += fmt::format("constexpr std::size_t input_size = {};   // one observation\n", m_.input_size);
+        o += fmt::format("constexpr std::size_t output_size = {};\n", m_.output_size);
+        o += fmt::format("constexpr std::size_t state_size = {};   // carried between observations\n",
                          st_.state_size);
-        o += fmt::format("inline constexpr real largest_gap = {};   // a gap outside [0, largest_gap] is refused\n\n",
+        o += fmt::format("constexpr real largest_gap = {};   // a gap outside [0, largest_gap] is refused\n\n",
                          L(st_.largest_gap));
         o += "// Resources per observation, at the largest gap (the worst case), for static_assert in firmware.\n";
-        o += fmt::format("inline constexpr std::size_t workspace_size = {};   // reals in context::work\n", work_);
-        o += "inline constexpr std::size_t context_bytes_at_least = (state_size + workspace_size) * sizeof(real);\n";
-        o += fmt::format("inline constexpr std::uint32_t parameter_count = {}u;\n", parameters());
-        o += fmt::format("inline constexpr std::uint32_t macs_per_field_eval = {}u;\n",
+        o += fmt::format("constexpr std::size_t workspace_size = {};   // reals in context::work\n", work_);
+        o += "constexpr std::size_t context_bytes_at_least = (state_size + workspace_size) * sizeof(real);\n";
+        o += fmt::format("constexpr std::uint32_t parameter_count = {}u;\n", parameters());
+        o += fmt::format("constexpr std::uint32_t macs_per_field_eval = {}u;\n",
                          st_.evolve.blend ? 0 : field_macs(st_.evolve));
-        o += fmt::format("inline constexpr std::uint32_t worst_field_evals = {}u;   // per observation\n",
+        o += fmt::format("constexpr std::uint32_t worst_field_evals = {}u;   // per observation\n",
                          worst_evolve_field_evals(st_));
-        o += fmt::format("inline constexpr std::uint64_t worst_macs = {}u;   // per observation\n\n",
+        o += fmt::format("constexpr std::uint64_t worst_macs = {}u;   // per observation\n\n",
                          static_cast<unsigned long long>(worst_observation_macs(m_)));
         o += R"(// What observe returns. Only with ok does the output hold the model's result and the
 // state move on; with any other code the state is exactly as before the call.
@@ -132,7 +132,7 @@ enum class result : std::uint8_t { ok = 0, input_not_finite = 1, state_not_finit
 // Work done by the last call of observe (reset at the start of every call).
 struct counters {
     std::uint32_t field_evals;
-    std::uint32_t steps_taken;
+    std::uint32_t steps_accepted;
     std::uint32_t steps_rejected;
 };
 
@@ -346,7 +346,7 @@ bool build_conditions_hold() noexcept;
             sum += fmt::format("{}{} * k[{} + j]", sum.empty() ? "" : " + ", L(b), jj * S);
         }
         o += fmt::format("        for (std::size_t j = 0; j < {}u; ++j) h[j] = h[j] + step * ({});\n", S, sum);
-        o += fmt::format("        count.field_evals += {}u;\n        count.steps_taken += 1u;\n", st);
+        o += fmt::format("        count.field_evals += {}u;\n        count.steps_accepted += 1u;\n", st);
         o += fmt::format("        if (!all_finite(h, {}u)) return result::state_not_finite;\n", S);
         o += "    }\n    return result::ok;\n}\n\n";
         return o;

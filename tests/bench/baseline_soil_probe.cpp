@@ -6,7 +6,7 @@
 // (rtol 1e-3, atol 1e-4, at most 40 attempts, first step 0.1, integral
 // controller, safety 0.9, factors 0.2 to 10) written out in
 // baseline_stepping.hpp, float32 like the emitted float32 code. The weights
-// come from the sample's .npz through the compiler's reader.
+// come from the sample's weights file through the compiler's reader.
 //
 // The generic stepper is not first-same-as-last: it evaluates the fourth stage
 // at (t + h, y_new) but does not hand it back. The field keeps its last

@@ -53,7 +53,7 @@ const SampleEntry kSamples[] = {
 };
 
 // The hand-written baselines (baseline_<sample>.cpp), by sample folder; each
-// reads <sample>.npz from that folder.
+// reads the weights file the sample's description names (.npz, .safetensors).
 struct BaselineEntry {
     const char* sample;
     void (*register_fn)(const meander_bench::Sample&, const meander_bench::baseline::Weights&);
@@ -71,8 +71,10 @@ bool register_baseline(const meander_bench::Sample& s, const std::string& descri
     for (const BaselineEntry& b : kBaselines) {
         if (!b.sample || s.name != b.sample) continue;
         Diagnostics diags;
-        const fs::path npz = fs::path(description).parent_path() / (s.name + ".npz");
-        auto set = read_weights(npz.string(), diags);
+        fs::path file = fs::path(description).parent_path() / (s.name + ".npz");
+        for (const char* ext : {".safetensors", ".pt"})
+            if (!fs::exists(file)) file.replace_extension(ext);
+        auto set = read_weights(file.string(), diags);
         if (!set) {
             std::fputs(diags.render().c_str(), stderr);
             return false;
@@ -243,7 +245,7 @@ void register_methods(const FieldCase& fc, const std::string& sample) {
             }
             state.SetLabel(setting);
             state.counters["field_evals"] = static_cast<double>(stats.field_evals);
-            state.counters["steps_taken"] = static_cast<double>(stats.steps_taken);
+            state.counters["steps_accepted"] = static_cast<double>(stats.steps_accepted);
             state.counters["steps_rejected"] = static_cast<double>(stats.steps_rejected);
             state.counters["max_abs_error"] = err;
             state.counters["target_error"] = kTargetError;

@@ -88,7 +88,7 @@ extern "C" int LLVMFuzzerTestOneInput(const std::uint8_t* data, std::size_t size
             if (stream_emit_unsupported(*model).empty()) (void)emit_stream(*model, opts);
         } else {
             // The C entry point in one precision, a self-test of one vector in the other.
-            opts.c_api = p == Precision::float64;
+            opts.c_header = p == Precision::float64;
             if (p == Precision::float32) {
                 opts.self_test_inputs.assign(1, std::vector<double>(static_cast<std::size_t>(model->input_size), 0.25));
                 opts.self_test_outputs.assign(1, std::vector<double>(static_cast<std::size_t>(model->output_size), 0.5));

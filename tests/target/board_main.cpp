@@ -67,7 +67,7 @@ int main() {
         MEANDER_MARK(row_end);
         std::printf("row %u %s %lu %lu %lu", r, model::result_name(res),
                     static_cast<unsigned long>(ctx.count.field_evals),
-                    static_cast<unsigned long>(ctx.count.steps_taken),
+                    static_cast<unsigned long>(ctx.count.steps_accepted),
                     static_cast<unsigned long>(ctx.count.steps_rejected));
 #if defined(MEANDER_CYCLE_MARKS)
         std::printf("\n");

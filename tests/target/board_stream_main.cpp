@@ -41,7 +41,7 @@ int main() {
         const model::result res = model::observe(ctx, in, static_cast<model::real>(kRows[r][1]), out);
         std::printf("row %u %s %lu %lu %lu", r, model::result_name(res),
                     static_cast<unsigned long>(ctx.count.field_evals),
-                    static_cast<unsigned long>(ctx.count.steps_taken),
+                    static_cast<unsigned long>(ctx.count.steps_accepted),
                     static_cast<unsigned long>(ctx.count.steps_rejected));
         if (res == model::result::ok)
             for (unsigned i = 0; i < model::output_size; ++i) std::printf(" %.*g", kDigits, static_cast<double>(out[i]));

@@ -209,10 +209,10 @@ compare() {
             k = 0
             while ((getline line < stats_file) > 0) {
                 m = split(line, v, /[ \t]+/)
-                if (!cols) { for (i = 1; i <= m; ++i) col[v[i]] = i; cols = ("field_evals" in col) && ("steps_taken" in col) && ("steps_rejected" in col); continue }
-                counts[k++] = v[col["field_evals"]] " " v[col["steps_taken"]] " " v[col["steps_rejected"]]
+                if (!cols) { for (i = 1; i <= m; ++i) col[v[i]] = i; cols = ("field_evals" in col) && ("steps_accepted" in col) && ("steps_rejected" in col); continue }
+                counts[k++] = v[col["field_evals"]] " " v[col["steps_accepted"]] " " v[col["steps_rejected"]]
             }
-            if (!cols) { print "meander eval --stats printed no field_evals / steps_taken / steps_rejected columns"; exit 1 }
+            if (!cols) { print "meander eval --stats printed no field_evals / steps_accepted / steps_rejected columns"; exit 1 }
             bad = 0; seen = 0; max_abs = 0; max_scaled = 0; selftest = 0; counter_rows = 0
         }
         $1 == "row" {

@@ -111,7 +111,7 @@ TEST(BitExact, EveryAdaptiveMethodAndControllerEqualsEval) {
             const std::string what = fmt::format("{} row {}", models[m].name, i);
             ASSERT_EQ(row.result, status_code(ref.status)) << what;
             ASSERT_EQ(row.field_evals, ref.stats.field_evals) << what;
-            ASSERT_EQ(row.steps_taken, ref.stats.steps_taken) << what;
+            ASSERT_EQ(row.steps_accepted, ref.stats.steps_accepted) << what;
             ASSERT_EQ(row.steps_rejected, ref.stats.steps_rejected) << what;
             evals += row.field_evals;
             rejected += row.steps_rejected;

@@ -105,7 +105,7 @@ void compare_with_eval(const std::vector<Case>& cases, const Built& b, double to
             if (ref.status == EvalStatus::ok) expect_close(row.out, ref.output, t, what);
             if (counters) {
                 EXPECT_EQ(row.field_evals, ref.stats.field_evals) << what;
-                EXPECT_EQ(row.steps_taken, ref.stats.steps_taken) << what;
+                EXPECT_EQ(row.steps_accepted, ref.stats.steps_accepted) << what;
                 EXPECT_EQ(row.steps_rejected, ref.stats.steps_rejected) << what;
             }
         }
@@ -312,7 +312,7 @@ TEST(Emit, ResultCodesMatchEval) {
     // At the step limit every attempt was made: 1 + 1 + 3*(7 - 1) evaluations
     // (FSAL Dormand-Prince, automatic first step: DEVELOPERS.md).
     EXPECT_EQ(b.rows[0][0].field_evals, 20);
-    EXPECT_EQ(b.rows[0][0].steps_taken + b.rows[0][0].steps_rejected, 3);
+    EXPECT_EQ(b.rows[0][0].steps_accepted + b.rows[0][0].steps_rejected, 3);
 }
 
 // y' = lambda*y as a model: one continuous block whose field is a 1 x 1
@@ -349,11 +349,11 @@ TEST(Emit, MatchesSciPyCheckValues) {
         ASSERT_EQ(r.result, 0);
         EXPECT_NEAR(r.out[0], 4.5723138338e-5, 1e-15) << cases[static_cast<std::size_t>(c)].m.name;
         EXPECT_EQ(r.field_evals, 74);
-        EXPECT_EQ(r.steps_taken + r.steps_rejected, 12);
+        EXPECT_EQ(r.steps_accepted + r.steps_rejected, 12);
     }
     const Row& r23 = b.rows[2][0];
     EXPECT_EQ(r23.field_evals, 74);
-    EXPECT_EQ(r23.steps_taken + r23.steps_rejected, 24);
+    EXPECT_EQ(r23.steps_accepted + r23.steps_rejected, 24);
 }
 
 // ---------------------------------------------------------------------------
@@ -365,12 +365,12 @@ TEST(Emit, SameModelSameBytes) {
     for (Precision p : {Precision::float32, Precision::float64}) {
         EmitOptions eo;
         eo.precision = p;
-        eo.c_api = true;
+        eo.c_header = true;
         eo.self_test_inputs = random_inputs(3, 2, 3);
         eo.self_test_outputs = {{0.5, 0.25}, {1.0, -2.0}};
         const auto a = emit_model(m, eo);
         const auto b = emit_model(copy, eo);
-        ASSERT_EQ(a.size(), 4u);
+        ASSERT_EQ(a.size(), 5u);
         ASSERT_EQ(a.size(), b.size());
         for (std::size_t i = 0; i < a.size(); ++i) {
             EXPECT_EQ(a[i].name, b[i].name);
@@ -459,7 +459,7 @@ TEST(Emit, NoUnsuffixedFloatingLiteralInFloatCode) {
     int files = 0;
     for (const Case& c : variants()) {
         EmitOptions eo;
-        eo.c_api = true;
+        eo.c_header = true;
         eo.self_test_inputs = {{0.5, 1.0, -2.0}};
         eo.self_test_outputs = {std::vector<double>(static_cast<std::size_t>(c.m.output_size), 0.25)};
         for (const EmittedFile& f : emit_model(c.m, eo)) {
@@ -506,7 +506,7 @@ TEST(Emit, BannerStatesSolverAndCaution) {
         EXPECT_EQ(head.find(MEANDER_SOURCE_DIR), std::string::npos);
     }
     const std::string& hpp = files[0].text;
-    EXPECT_NE(hpp.find("inline constexpr std::uint32_t worst_field_evals = 386u;"), std::string::npos);
+    EXPECT_NE(hpp.find("constexpr std::uint32_t worst_field_evals = 386u;"), std::string::npos);
     EXPECT_NE(files[1].text.find("static_assert(sizeof(float) == 4"), std::string::npos);
 }
 
@@ -627,27 +627,35 @@ TEST(SelfTest, ReportsAResultCode) {
     EXPECT_EQ(s.bad, 3);
 }
 
-TEST(Emit, CApiFromCAndCxxWithWeightsSection) {
+// The plain C header: a C99 (and C11) program, built with gcc's pedantic
+// warnings as errors, calls the emitted C++ through NAME.h; its outputs and
+// counters are the C++ entry's (the reference evaluator's counters, and its
+// outputs to float32's accuracy).
+TEST(Emit, CHeaderFromC99AndC11WithWeightsSection) {
+    if (run("gcc --version").status != 0) GTEST_SKIP() << "gcc (a C compiler) not installed";
     const Model m = ode_model("c_side", fixed_solver("heun", 6), 51);
     EmitOptions eo;
-    eo.c_api = true;
+    eo.c_header = true;
     const fs::path dir = temp_dir("capi");
-    write_files(dir, emit_model(m, eo));
-    // A C translation unit sees only the C declarations of the header.
-    write_text(dir / "use.c", R"(#include "c_side.hpp"
+    const auto files = emit_model(m, eo);
+    ASSERT_EQ(files.size(), 3u);
+    EXPECT_EQ(files[2].name, "c_side.h");
+    write_files(dir, files);
+    write_text(dir / "use.c", R"(#include "c_side.h"
 #include <stdio.h>
-static union { unsigned char bytes[C_SIDE_CONTEXT_BYTES]; double align; } ctx;
+static c_side_context ctx;
 int main(void) {
-    const float in[3] = {0.25f, -0.5f, 1.0f};
-    float out[2] = {0.0f, 0.0f};
+    const c_side_real in[C_SIDE_INPUT_SIZE] = {0.25f, -0.5f, 1.0f};
+    c_side_real out[C_SIDE_OUTPUT_SIZE] = {0.0f, 0.0f};
+    c_side_counters n;
     const int r = c_side_infer(&ctx, in, out);
-    printf("%d %a %a\n", r, (double)out[0], (double)out[1]);
+    n = c_side_counters_of(&ctx);
+    printf("%d %s %a %a %u %u %u %d %s %s\n", r, c_side_result_name(r), (double)out[0], (double)out[1],
+           (unsigned)n.field_evals, (unsigned)n.steps_accepted, (unsigned)n.steps_rejected,
+           c_side_build_conditions_hold(), c_side_result_name(C_SIDE_STEP_LIMIT), c_side_result_name(9));
     return 0;
 }
 )");
-    const RunResult cc = run(fmt::format("cd '{}' && '{}' -x c -std=c11 -Wall -Wextra -Werror -c use.c -o use.o",
-                                         dir.string(), MEANDER_CXX));
-    ASSERT_EQ(cc.status, 0) << cc.output;
     const RunResult obj =
         run(fmt::format("cd '{}' && '{}' {} -D'C_SIDE_WEIGHTS_ATTR=__attribute__((section(\".rodata.c_side_w\")))' "
                         "-c c_side.cpp -o c_side.o",
@@ -656,17 +664,37 @@ int main(void) {
     // The weights went to the named section (the linker later merges it into .rodata).
     const RunResult sec = run(fmt::format("objdump -h '{}'", (dir / "c_side.o").string()));
     if (sec.status == 0) EXPECT_NE(sec.output.find(".rodata.c_side_w"), std::string::npos) << sec.output;
-    const std::string err = build(dir, {"c_side.o", "use.o"}, "capi");
-    ASSERT_TRUE(err.empty()) << err;
-    const RunResult r = run((dir / "capi").string());
-    ASSERT_EQ(r.status, 0) << r.output;
-    std::istringstream in(r.output);
-    int code = -1;
-    std::string a, b;
-    in >> code >> a >> b;
-    EXPECT_EQ(code, 0);
     const EvalResult ref = evaluate(m, Eigen::Vector3d(0.25, -0.5, 1.0));
-    expect_close({std::strtod(a.c_str(), nullptr), std::strtod(b.c_str(), nullptr)}, ref.output, 1e-4, "C API");
+    for (const char* standard : {"c99", "c11"}) {
+        const RunResult cc = run(fmt::format("cd '{}' && gcc -std={} -Wall -Wextra -pedantic -Werror -c use.c -o use.o",
+                                             dir.string(), standard));
+        ASSERT_EQ(cc.status, 0) << standard << ": " << cc.output;
+        const std::string err = build(dir, {"c_side.o", "use.o"}, "capi");
+        ASSERT_TRUE(err.empty()) << err;
+        const RunResult r = run((dir / "capi").string());
+        ASSERT_EQ(r.status, 0) << r.output;
+        std::istringstream in(r.output);
+        int code = -1, conditions = -1;
+        unsigned evals = 0, accepted = 0, rejected = 0;
+        std::string name, a, b, limit, unknown;
+        in >> code >> name >> a >> b >> evals >> accepted >> rejected >> conditions >> limit >> unknown;
+        EXPECT_EQ(code, 0) << standard;
+        EXPECT_EQ(name, "ok");
+        EXPECT_EQ(limit, "step_limit");
+        EXPECT_EQ(unknown, "unknown");
+        EXPECT_EQ(conditions, 1);
+        EXPECT_EQ(static_cast<long>(evals), ref.stats.field_evals);
+        EXPECT_EQ(static_cast<long>(accepted), ref.stats.steps_accepted);
+        EXPECT_EQ(static_cast<long>(rejected), ref.stats.steps_rejected);
+        EXPECT_EQ(accepted, 6u);  // heun, 6 fixed steps
+        expect_close({std::strtod(a.c_str(), nullptr), std::strtod(b.c_str(), nullptr)}, ref.output, 1e-4, "C header");
+    }
+    // A C header from another run is refused by the source.
+    const Model other = ode_model("c_side", fixed_solver("heun", 7), 51);
+    write_files(dir, {emit_model(other, eo)[2]});
+    const RunResult mixed = run(fmt::format("cd '{}' && '{}' -std=c++17 -c c_side.cpp -o mixed.o", dir.string(), MEANDER_CXX));
+    EXPECT_NE(mixed.status, 0);
+    EXPECT_NE(mixed.output.find("c_side.h is not the C header generated with this source"), std::string::npos) << mixed.output;
     fs::remove_all(dir);
 }
 
@@ -677,7 +705,7 @@ TEST(Emit, Float32CodeCallsOnlyFloatFunctionsOnCortexM4F) {
     if (run("arm-none-eabi-g++ --version").status != 0) GTEST_SKIP() << "arm-none-eabi-g++ not installed";
     const fs::path dir = temp_dir("m4f");
     EmitOptions eo;
-    eo.c_api = true;
+    eo.c_header = true;
     std::vector<std::string> objects;
     for (const Case& c : variants()) {
         write_files(dir, emit_model(c.m, eo));

@@ -104,10 +104,10 @@ inline std::string build(const std::filesystem::path& dir, const std::vector<std
 // Exact text of a double for a C++ source (hex float).
 inline std::string hex_literal(double v) { return fmt::format("{:a}", v); }
 
-// Driver lines: per vector "R <result> <field_evals> <steps_taken> <steps_rejected> <outputs in %a>".
+// Driver lines: per vector "R <result> <field_evals> <steps_accepted> <steps_rejected> <outputs in %a>".
 struct Row {
     int result = -1;
-    long field_evals = 0, steps_taken = 0, steps_rejected = 0;
+    long field_evals = 0, steps_accepted = 0, steps_rejected = 0;
     std::vector<double> out;
 };
 
@@ -132,7 +132,7 @@ inline std::string driver_source(const std::vector<std::string>& names, const st
         for (std::size_t i = 0; i < {0}::input_size; ++i) in[i] = static_cast<{0}::real>(row[i]);
         const {0}::result r = {0}::infer(ctx, in, out);
         std::printf("R %d %lu %lu %lu", static_cast<int>(r), static_cast<unsigned long>(ctx.count.field_evals),
-                    static_cast<unsigned long>(ctx.count.steps_taken), static_cast<unsigned long>(ctx.count.steps_rejected));
+                    static_cast<unsigned long>(ctx.count.steps_accepted), static_cast<unsigned long>(ctx.count.steps_rejected));
         for (std::size_t i = 0; i < {0}::output_size; ++i) std::printf(" %a", static_cast<double>(out[i]));
         std::printf("\n");
     }}
@@ -159,7 +159,7 @@ inline std::vector<std::vector<Row>> parse_driver(const std::string& text) {
         if (line.rfind("R ", 0) != 0 || models.empty()) continue;
         std::istringstream ls(line.substr(2));
         Row r;
-        ls >> r.result >> r.field_evals >> r.steps_taken >> r.steps_rejected;
+        ls >> r.result >> r.field_evals >> r.steps_accepted >> r.steps_rejected;
         std::string tok;
         while (ls >> tok) r.out.push_back(std::strtod(tok.c_str(), nullptr));
         models.back().push_back(r);

@@ -266,7 +266,7 @@ TEST(Evaluate, HandBuiltModelMatchesPlainLoops) {
         EXPECT_NEAR(sum, 1.0, 1e-15);  // softmax output
         // rk4, 8 steps: 8 * 4 field evaluations (DEVELOPERS.md).
         EXPECT_EQ(r.stats.field_evals, 32);
-        EXPECT_EQ(r.stats.steps_taken, 8);
+        EXPECT_EQ(r.stats.steps_accepted, 8);
         EXPECT_EQ(r.stats.steps_rejected, 0);
         EXPECT_DOUBLE_EQ(r.stats.h_min, 1.5 / 8);
     }
@@ -342,7 +342,7 @@ TEST(Evaluate, LinearBlockMatchesMatrixExponential) {
             // times that (measured here: 2 to 100 times below the bound).
             const double bound = 10.0 * (atol + rtol * exact.cwiseAbs().maxCoeff());
             EXPECT_LT((r.output - exact).cwiseAbs().maxCoeff(), bound);
-            EXPECT_GT(r.stats.steps_taken, 1);
+            EXPECT_GT(r.stats.steps_accepted, 1);
         }
         // Fixed-step RK4, 60 steps: error O(h^4) with h = 0.025.
         const EvalResult r = evaluate(linear_model(a, 2, t0, t1, rk4_steps(60)), x);
@@ -388,7 +388,7 @@ TEST(Evaluate, StatusesAndFailingBlock) {
     const EvalResult r2 = evaluate(limited, in);
     EXPECT_EQ(r2.status, EvalStatus::step_limit);
     EXPECT_EQ(r2.block, "settle");
-    EXPECT_EQ(r2.stats.steps_taken + r2.stats.steps_rejected, 2);
+    EXPECT_EQ(r2.stats.steps_accepted + r2.stats.steps_rejected, 2);
     EXPECT_EQ(r2.stats.field_evals, 2 + 2 * 6);
 
     // A field that overflows: y' = 1e4 y with RK4 at h = 1 multiplies y by
@@ -421,7 +421,7 @@ TEST(Evaluate, StatsSumOverContinuousBlocks) {
     const EvalResult r = evaluate(m, x);
     ASSERT_EQ(r.status, EvalStatus::ok);
     EXPECT_EQ(r.stats.field_evals, 32 + 5);
-    EXPECT_EQ(r.stats.steps_taken, 13);
+    EXPECT_EQ(r.stats.steps_accepted, 13);
     EXPECT_DOUBLE_EQ(r.stats.h_min, 0.125);
     EXPECT_DOUBLE_EQ(r.stats.h_max, 0.4);
     // exp(A) then (I + 0.4 A)^5 (Euler's stability function R(z) = 1 + z per step).

@@ -38,7 +38,7 @@ std::vector<GoldenCase> golden_cases() {
         blocks.push_back(residual("tidy", 3, {dense(rng, "r1", 3, 3, Activation::silu)}));
         blocks.push_back(dense(rng, "head", 3, 2, Activation::softmax));
         GoldenCase c{model("tiny_fixed", 2, 2, std::move(blocks)), golden_options(Precision::float32)};
-        c.eo.c_api = true;
+        c.eo.c_header = true;
         cases.push_back(std::move(c));
     }
     {
@@ -108,7 +108,7 @@ TEST(golden_emit, EmittedFilesMatch) {
             ++compared;
         }
     }
-    if (!update) EXPECT_EQ(compared, 8);  // 2 + (2 + 2 self-test) + 2 files
+    if (!update) EXPECT_EQ(compared, 9);  // (2 + the C header) + (2 + 2 self-test) + 2 files
 }
 
 // The golden files themselves build with the strict flags and run.

@@ -168,7 +168,7 @@ TEST(Integrate, HarmonicOscillatorEnergyFactor) {
         IntegrateStats stats;
         ASSERT_EQ(integrate(oscillator(), 0.0, 10.0, y, fixed(row.method, 100), stats), IntegrateStatus::ok);
         EXPECT_NEAR(y.squaredNorm(), row.energy, 1e-13 * row.energy);
-        EXPECT_EQ(stats.steps_taken, 100);
+        EXPECT_EQ(stats.steps_accepted, 100);
         EXPECT_EQ(stats.steps_rejected, 0);
         EXPECT_EQ(stats.field_evals, 100L * find_tableau(row.method)->stages);
         EXPECT_DOUBLE_EQ(stats.h_min, 0.1);
@@ -232,7 +232,7 @@ TEST(Integrate, DecayRunMatchesSciPy) {
             EXPECT_EQ(integrate(decay(), 0.0, 10.0, y, adaptive(r.method, 1e-3, 1e-6, 1), stats),
                       IntegrateStatus::step_limit);
             EXPECT_NEAR(y[0], r.y1, 2e-16);
-            EXPECT_EQ(stats.steps_taken, 1);
+            EXPECT_EQ(stats.steps_accepted, 1);
         }
         Eigen::VectorXd y(1);
         y << 1.0;
@@ -244,8 +244,8 @@ TEST(Integrate, DecayRunMatchesSciPy) {
         EXPECT_NEAR(trace[0].h, r.first_h, 1e-16);
         EXPECT_NEAR(trace[1].h, r.next_h, 1e-15);
         EXPECT_EQ(stats.field_evals, r.nfev);
-        EXPECT_EQ(stats.steps_taken, r.accepted);
-        EXPECT_EQ(stats.steps_taken + stats.steps_rejected, static_cast<long>(trace.size()));
+        EXPECT_EQ(stats.steps_accepted, r.accepted);
+        EXPECT_EQ(stats.steps_accepted + stats.steps_rejected, static_cast<long>(trace.size()));
         EXPECT_NEAR(y[0], r.y10, 1e-12 * r.y10);
         // nfev = 2 + (stages - 1) * attempts for these FSAL pairs (reference sheet).
         EXPECT_EQ(stats.field_evals, 2 + (find_tableau(r.method)->stages - 1) * static_cast<long>(trace.size()));
@@ -268,7 +268,7 @@ TEST(Integrate, StepTooSmallNearBlowUpLikeSciPy) {
         EXPECT_EQ(integrate(f, 0.0, 2.0, y, adaptive(r.method, 1e-6, 1e-9, 100000), stats),
                   IntegrateStatus::step_too_small);
         const double accepted = static_cast<double>(r.accepted), nfev = static_cast<double>(r.nfev);
-        EXPECT_NEAR(static_cast<double>(stats.steps_taken), accepted, 0.03 * accepted);
+        EXPECT_NEAR(static_cast<double>(stats.steps_accepted), accepted, 0.03 * accepted);
         EXPECT_NEAR(static_cast<double>(stats.field_evals), nfev, 0.03 * nfev);
     }
 }
@@ -282,7 +282,7 @@ TEST(Integrate, StepLimitCountsAttempts) {
     EXPECT_EQ(integrate(decay(), 0.0, 10.0, y, adaptive("dormand-prince", 1e-3, 1e-6, 3), stats, &trace),
               IntegrateStatus::step_limit);
     EXPECT_EQ(trace.size(), 3u);
-    EXPECT_EQ(stats.steps_taken + stats.steps_rejected, 3);
+    EXPECT_EQ(stats.steps_accepted + stats.steps_rejected, 3);
     // FSAL: 1 + 1 + attempts*(stages-1) (DEVELOPERS.md).
     EXPECT_EQ(stats.field_evals, 2 + 3 * 6);
 
@@ -297,9 +297,9 @@ TEST(Integrate, StepLimitCountsAttempts) {
     ASSERT_EQ(ztrace.size(), 4u);
     EXPECT_FALSE(ztrace[0].accepted);
     EXPECT_GT(zs.steps_rejected, 0);
-    EXPECT_EQ(zs.steps_taken + zs.steps_rejected, 4);
+    EXPECT_EQ(zs.steps_accepted + zs.steps_rejected, 4);
     // Non-FSAL, no automatic first step: 1 + attempts*(stages-1) + accepted.
-    EXPECT_EQ(zs.field_evals, 1 + 4 * 5 + zs.steps_taken);
+    EXPECT_EQ(zs.field_evals, 1 + 4 * 5 + zs.steps_accepted);
 }
 
 TEST(Integrate, WorstFieldEvalsFollowsTheRule) {
@@ -340,7 +340,7 @@ TEST(Integrate, FieldEvalsOfACompletedRunFollowTheRule) {
         std::vector<StepRecord> trace;
         ASSERT_EQ(integrate(decay(), 0.0, 10.0, y, adaptive(m, 1e-4, 1e-7, 1000), stats, &trace), IntegrateStatus::ok);
         const long attempts = static_cast<long>(trace.size());
-        const long expected = 2 + attempts * (tb->stages - 1) + (tb->fsal ? 0 : stats.steps_taken - 1);
+        const long expected = 2 + attempts * (tb->stages - 1) + (tb->fsal ? 0 : stats.steps_accepted - 1);
         EXPECT_EQ(stats.field_evals, expected);
     }
 }
@@ -404,7 +404,7 @@ TEST(Integrate, BackwardInterval) {
     IntegrateStats stats;
     ASSERT_EQ(integrate(decay(), 10.0, 0.0, y, adaptive("dormand-prince", 1e-6, 1e-12, 1000), stats),
               IntegrateStatus::ok);
-    EXPECT_EQ(stats.steps_taken, 41);
+    EXPECT_EQ(stats.steps_accepted, 41);
     EXPECT_EQ(stats.field_evals, 248);
     EXPECT_NEAR(y[0], 1.0000017988450742, 1e-13);
 }
@@ -417,8 +417,8 @@ TEST(Integrate, NonFiniteStateIsReported) {
     y << 1.0;
     IntegrateStats stats;
     EXPECT_EQ(integrate(f, 0.0, 40.0, y, fixed("euler", 40), stats), IntegrateStatus::state_not_finite);
-    EXPECT_LT(stats.steps_taken, 40);
-    EXPECT_GE(stats.steps_taken, 9);
+    EXPECT_LT(stats.steps_accepted, 40);
+    EXPECT_GE(stats.steps_accepted, 9);
 }
 
 TEST(Integrate, NaNFieldEndsInStepTooSmallOrStepLimit) {
@@ -462,7 +462,7 @@ TEST(Integrate, StatsMatchTrace) {
         hi = std::max(hi, std::fabs(r.h));
         t_end = r.t + r.h;
     }
-    EXPECT_EQ(acc, stats.steps_taken);
+    EXPECT_EQ(acc, stats.steps_accepted);
     EXPECT_EQ(stats.h_min, lo);
     EXPECT_EQ(stats.h_max, hi);
     EXPECT_DOUBLE_EQ(t_end, 20.0);

@@ -85,7 +85,8 @@ TEST_P(SampleLineEndings, CompileOutputIgnoresLineEndings) {
         const fs::path dir = root / v.name;
         fs::create_directories(dir);
         for (const auto& f : fs::directory_iterator(mnd.parent_path()))
-            if (f.path().extension() == ".npz") fs::copy_file(f.path(), dir / f.path().filename());
+            if (f.path().extension() == ".npz" || f.path().extension() == ".pt" || f.path().extension() == ".safetensors")
+                fs::copy_file(f.path(), dir / f.path().filename());
         write_text(dir / mnd.filename(), v.text);
         const auto r = run("compile " + (dir / mnd.filename()).string() + " -o " + (dir / "out").string());
         ASSERT_EQ(r.status, 0) << v.name << ": " << r.output;

@@ -159,7 +159,7 @@ std::vector<std::string> mismatches(const meander::Continuous& block, const Eige
     for (const auto& r : o.trace)
         if (r.accepted) accepted.push_back(r);
     const json& steps = run["steps"];
-    if (accepted.size() != steps.size() || o.stats.steps_taken != static_cast<long>(steps.size()))
+    if (accepted.size() != steps.size() || o.stats.steps_accepted != static_cast<long>(steps.size()))
         out.push_back(fmt::format("{} accepted steps vs SciPy {}", accepted.size(), steps.size()));
     for (std::size_t i = 0; i < std::min(accepted.size(), steps.size()); ++i) {
         const double ts = steps[i][0].get<double>(), hs = steps[i][1].get<double>();
@@ -278,7 +278,7 @@ TEST(ScipyAgreement, EvaluatorGivesTheIntegratorsResult) {
     const meander::EvalResult r = meander::evaluate(m, vec_of(doc["y0"]));
     ASSERT_EQ(r.status, meander::EvalStatus::ok);
     EXPECT_EQ(r.stats.field_evals, (*run)["nfev"].get<long>()) << describe(*run);
-    EXPECT_EQ(r.stats.steps_taken, (*run)["accepted"].get<long>()) << describe(*run);
+    EXPECT_EQ(r.stats.steps_accepted, (*run)["accepted"].get<long>()) << describe(*run);
     const Eigen::VectorXd ys = vec_of((*run)["y_final"]);
     for (Eigen::Index i = 0; i < ys.size(); ++i) EXPECT_NEAR(r.output[i], ys[i], kFinalRel * std::fabs(ys[i]));
 }
@@ -351,7 +351,7 @@ TEST(ScipyAgreement, BlowUpEndsInStepTooSmallLikeScipy) {
         const auto status = meander::integrate(square, run["t0"].get<double>(), run["t1"].get<double>(), y, spec, stats, &trace);
         EXPECT_EQ(status, meander::IntegrateStatus::step_too_small) << describe(run);
         EXPECT_EQ(stats.field_evals, run["nfev"].get<long>()) << describe(run);
-        EXPECT_EQ(stats.steps_taken, run["accepted"].get<long>()) << describe(run);
+        EXPECT_EQ(stats.steps_accepted, run["accepted"].get<long>()) << describe(run);
         double t_last = run["t0"].get<double>();
         for (const auto& r : trace)
             if (r.accepted) t_last = r.t + r.h;
@@ -383,13 +383,13 @@ TEST(ScipyAgreement, DecayCheckValuesOfTheReferenceSheet) {
     EXPECT_TRUE(trace[0].accepted);
     EXPECT_DOUBLE_EQ(trace[1].h, 0.93184487592135667);  // the step after the first
     EXPECT_EQ(stats.field_evals, 74);
-    EXPECT_EQ(stats.steps_taken, 12);
+    EXPECT_EQ(stats.steps_accepted, 12);
     EXPECT_NEAR(y[0], 4.5723138338181306e-05, 1e-17);
     // After exactly one step (to t = h1): y = 0.90481932900051421 with 8 evaluations.
     y.setConstant(1.0);
     meander::IntegrateStats one;
     ASSERT_EQ(meander::integrate(decay, 0.0, 0.10001999200479661, y, spec("dormand-prince"), one), meander::IntegrateStatus::ok);
-    EXPECT_EQ(one.steps_taken, 1);
+    EXPECT_EQ(one.steps_accepted, 1);
     EXPECT_EQ(one.field_evals, 8);
     EXPECT_DOUBLE_EQ(y[0], 0.90481932900051421);
 
@@ -399,7 +399,7 @@ TEST(ScipyAgreement, DecayCheckValuesOfTheReferenceSheet) {
     ASSERT_EQ(meander::integrate(decay, 0.0, 10.0, y, spec("bogacki-shampine"), bs, &trace), meander::IntegrateStatus::ok);
     EXPECT_DOUBLE_EQ(std::fabs(trace[0].h), 0.021551525956798299);
     EXPECT_EQ(bs.field_evals, 74);
-    EXPECT_EQ(bs.steps_taken, 24);
+    EXPECT_EQ(bs.steps_accepted, 24);
     EXPECT_NEAR(y[0], 4.1254238032726717e-05, 1e-17);
 }
 
@@ -423,7 +423,7 @@ Eigen::VectorXd fixed_steps(const meander::Field& f, const std::string& method, 
     spec.first_step = 2 * std::fabs(h);
     for (int i = 0; i < n; ++i)
         EXPECT_EQ(meander::integrate(f, t0 + i * h, t0 + (i + 1) * h, y, spec, stats), meander::IntegrateStatus::ok);
-    EXPECT_EQ(stats.steps_taken, n);
+    EXPECT_EQ(stats.steps_accepted, n);
     return y;
 }
 

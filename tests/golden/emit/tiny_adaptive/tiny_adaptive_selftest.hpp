@@ -31,7 +31,7 @@ namespace tiny_adaptive {
 
 // Golden vectors: inputs, and the outputs the reference evaluator (meander eval, double)
 // gave for them, rounded to real.
-inline constexpr std::size_t self_test_vectors = 2;
+constexpr std::size_t self_test_vectors = 2;
 
 // A deviation |got - want| fails when it exceeds tolerance * max(1, |want|);
 // a NaN or infinite output fails, and so does a vector whose result is not ok.

@@ -27,7 +27,7 @@
 #include <cstddef>
 #include <cstdint>
 
-#if !defined(TINY_BACKWARD_MEANDER_STAMP) || TINY_BACKWARD_MEANDER_STAMP != 0xf631752eecc82f06ULL
+#if !defined(TINY_BACKWARD_MEANDER_STAMP) || TINY_BACKWARD_MEANDER_STAMP != 0xb3555e708b62f25dULL
 #error "tiny_backward.hpp is not the header generated with this source: regenerate both"
 #endif
 
@@ -222,7 +222,7 @@ result block_rewind(real* work, const real* in, real* out, counters& count) noex
             }
             if (rejected && !(factor < 1.0)) factor = 1.0;
             h_abs *= factor;
-            ++count.steps_taken;
+            ++count.steps_accepted;
             t = t_new;
             for (std::size_t j = 0; j < n; ++j) y[j] = y_new[j];
             if (!all_finite(y, n)) return result::state_not_finite;
@@ -242,7 +242,7 @@ result infer(context& ctx, const real* input, real* output) noexcept {
         if (!std::isfinite(input[i])) return result::input_not_finite;
     real* const work = ctx.work;
     TINY_BACKWARD_BLOCK_HOOK("rewind", 0);
-    if (const result r = block_rewind(work, input, output, ctx.count); r != result::ok) return r;
+    { const result r = block_rewind(work, input, output, ctx.count); if (r != result::ok) return r; }
     TINY_BACKWARD_BLOCK_HOOK("rewind", 1);
     return result::ok;
 }
@@ -263,10 +263,10 @@ const char* result_name(result r) noexcept {
 // fused into an FMA); 1 + 0.75 ulp rounds up only to nearest; half the least
 // normal number is 0 when subnormals are flushed.
 bool build_conditions_hold() noexcept {
-    volatile real a = 0x1.0000002p+0;  // 1 + 2^-27
-    volatile real c = -0x1.0000004p+0;  // -(1 + 2^-26)
-    volatile real b = 0x3p-54;  // 0.75 ulp of 1
-    volatile real tiny = 0x1p-1022;  // the least normal number
+    volatile real a = 1.0000000074505806;  // 1 + 2^-27
+    volatile real c = -1.0000000149011612;  // -(1 + 2^-26)
+    volatile real b = 1.6653345369377348e-16;  // 0.75 ulp of 1
+    volatile real tiny = 2.2250738585072014e-308;  // the least normal number
     const real x = a;
     const real fused = x * x + c;
     const real up = 1.0 + b;
