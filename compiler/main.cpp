@@ -16,6 +16,7 @@
 #include "compiler/diff.hpp"
 #include "compiler/dump.hpp"
 #include "compiler/emit.hpp"
+#include "compiler/expect.hpp"
 #include "compiler/format.hpp"
 #include "compiler/labels.hpp"
 #include "compiler/load.hpp"
@@ -146,12 +147,19 @@ int cmd_tensors(const std::string& file, const std::string& under) {
     return 0;
 }
 
-int cmd_check(const std::string& model_path, const std::string& precision) {
+// With `expect`: the reference evaluation over `input` against the training
+// framework's outputs for the same rows (compiler/expect.hpp).
+int cmd_check(const std::string& model_path, const std::string& precision, const std::string& input,
+              const std::string& expect, double tolerance) {
     Diagnostics diags;
     auto loaded = load_model(model_path, precision_of(precision), diags);
+    if (!loaded) return flush(diags), kModelError;
+    std::string summary;
+    if (!expect.empty() && !check_expected(*loaded, input, expect, tolerance, diags, summary))
+        return flush(diags), kModelError;
     flush(diags);
-    if (!loaded) return kModelError;
     std::printf("%s: ok (%s, content %s)\n", model_path.c_str(), loaded->model.name.c_str(), loaded->content_hash.c_str());
+    std::fputs(summary.c_str(), stdout);
     return 0;
 }
 
@@ -649,6 +657,20 @@ int main(int argc, char** argv) {
     auto* check = app.add_subcommand("check", "parse the description, check shapes, read and bind the weights");
     check->add_option("model", model, "description (.mnd)")->required();
     check->add_option("--precision", precision, "precision the code will be emitted in")->check(CLI::IsMember(precisions));
+    std::string expect;
+    double expect_tol = kExpectTolerance;
+    auto* check_input = check->add_option("--input", input, "CSV of input rows (a sequence file for a streaming model), with --expect");
+    auto* check_expect =
+        check->add_option("--expect", expect,
+                          "CSV of the outputs the training framework gave for the --input rows: compare with the reference "
+                          "evaluation, and name the export mistake that explains a disagreement");
+    check_expect->needs(check_input);
+    check_input->needs(check_expect);
+    check->add_option("--tolerance", expect_tol,
+                      fmt::format("with --expect: agree when |meander - expected| <= tolerance * max(1, |expected|) (default {:g})",
+                                  kExpectTolerance))
+        ->check(kFinitePositive)
+        ->needs(check_expect);
 
     auto* eval = app.add_subcommand("eval", "evaluate the model in double precision; CSV in, CSV out");
     eval->add_option("model", model, "description (.mnd)")->required();
@@ -809,7 +831,7 @@ int main(int argc, char** argv) {
     }
 
     try {
-        if (*check) return cmd_check(model, precision);
+        if (*check) return cmd_check(model, precision, input, expect, expect_tol);
         if (*eval) return cmd_eval(model, input, output, stats, labels_path, keep_going);
         if (*compile) return cmd_compile(model, outdir, precision, c_header, self_test, dump);
         if (*verify) return cmd_verify(model, input, precision, tol, cxx, keep, show, boards);

@@ -24,9 +24,11 @@ expected.csv.
 
 Exit status 0 when every comparison is within tolerance, 1 otherwise.
 """
+import json
 import math
 import os
 import re
+import struct
 import subprocess
 import sys
 from fractions import Fraction
@@ -251,13 +253,39 @@ FIXED = {
 SCIPY = {"dormand-prince": ("RK45", 6), "bogacki-shampine": ("RK23", 3)}
 
 
+def read_tensors(path):
+    """The weights file's tensors as float64 arrays: .npz through NumPy, a
+    torch.save checkpoint through torch.load, safetensors by its published
+    layout (8-byte little-endian header length, JSON header, raw data)."""
+    if path.endswith(".npz"):
+        with np.load(path) as z:
+            return {k: z[k].astype(np.float64) for k in z.files}
+    if path.endswith((".pt", ".pth")):
+        import torch
+        return {k: v.double().numpy() for k, v in torch.load(path).items()}
+    if path.endswith(".safetensors"):
+        with open(path, "rb") as fh:
+            raw = fh.read()
+        n = struct.unpack("<Q", raw[:8])[0]
+        header = json.loads(raw[8:8 + n])
+        types = {"F32": "<f4", "F64": "<f8"}
+        out = {}
+        for k, t in header.items():
+            if k == "__metadata__":
+                continue
+            b, e = t["data_offsets"]
+            a = np.frombuffer(raw[8 + n + b:8 + n + e], dtype=types[t["dtype"]])
+            out[k] = a.reshape(t["shape"]).astype(np.float64)
+        return out
+    raise ValueError(f"{path}: no reader for this weights file here")
+
+
 class Model:
     def __init__(self, mnd_path):
         with open(mnd_path) as fh:
             self.m = Parser(fh.read()).model()
         wpath = os.path.join(os.path.dirname(mnd_path), self.m["weights"])
-        with np.load(wpath) as z:
-            self.tensors = {k: z[k].astype(np.float64) for k in z.files}
+        self.tensors = read_tensors(wpath)
         self.used = set()
         self.attempts = {}
 

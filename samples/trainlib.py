@@ -4,7 +4,8 @@ A small reverse-mode autodiff over NumPy float64 arrays, the three kinds of
 block of a meander description (dense, residual, continuous), Runge-Kutta
 integration that follows DEVELOPERS.md "Integrator semantics", Adam, the
 training loop and the run of an adaptive regression sample, and the
-writers of the sample files (<name>.npz, inputs.csv, expected.csv).
+writers of the sample files (<name>.npz or <name>.safetensors, inputs.csv,
+expected.csv).
 
 Gradients through a continuous block:
 - fixed step: exact reverse-mode through every stage of the N steps;
@@ -14,7 +15,9 @@ Gradients through a continuous block:
   so the gradient is that of the discrete solution with frozen step sizes.
 """
 
+import json
 import os
+import struct
 from fractions import Fraction as Fr
 
 import numpy as np
@@ -434,10 +437,31 @@ def pick_rows(n, attempts, accepted, margin, min_margin=0.05):
     return np.concatenate([rej[:n // 2], plain])[:n]
 
 
-def save_sample(name, blocks, P, x_rows, in_names, out_names, folder):
-    """Writes <name>.npz, inputs.csv and expected.csv into `folder`."""
+def write_safetensors(path, arrays):
+    """A safetensors file by its published layout (huggingface/safetensors,
+    README "Format"): an 8-byte little-endian header length, a JSON header of
+    name -> dtype, shape and [begin, end) data offsets (padded with spaces to a
+    multiple of 8 bytes), then the tensors' little-endian bytes, in name order."""
+    header, data, at = {}, [], 0
+    for k in sorted(arrays):
+        a = np.ascontiguousarray(arrays[k], dtype="<f4")
+        header[k] = {"dtype": "F32", "shape": list(a.shape), "data_offsets": [at, at + a.nbytes]}
+        data.append(a.tobytes())
+        at += a.nbytes
+    text = json.dumps(header, separators=(",", ":")).encode()
+    text += b" " * (-len(text) % 8)
+    with open(path, "wb") as fh:
+        fh.write(struct.pack("<Q", len(text)) + text + b"".join(data))
+
+
+def save_sample(name, blocks, P, x_rows, in_names, out_names, folder, weights="npz"):
+    """Writes <name>.npz (or <name>.safetensors with weights="safetensors"),
+    inputs.csv and expected.csv into `folder`."""
     arrays = {k: P[k].v.astype(np.float32) for k in sorted(P)}
-    np.savez(os.path.join(folder, name + ".npz"), **arrays)
+    if weights == "safetensors":
+        write_safetensors(os.path.join(folder, name + ".safetensors"), arrays)
+    else:
+        np.savez(os.path.join(folder, name + ".npz"), **arrays)
     x_rows = np.array([[float(f"{v:.6g}") for v in r] for r in x_rows])
     y = predict(blocks, P, x_rows)
     with open(os.path.join(folder, "inputs.csv"), "w") as fh:
@@ -488,7 +512,7 @@ def fit(blocks, P, rng, z, target, loss_fn, epochs, lr0, report, batch=128, bloc
 
 
 def adaptive_regression_sample(name, blocks, block, seed, make_data, sizes, epochs, lr0,
-                               rmse_text, held_out, in_names, out_names, folder):
+                               rmse_text, held_out, in_names, out_names, folder, weights="npz"):
     """The whole run of a regression sample with one adaptive continuous block
     named `block`: data from make_data(rng, n) for sizes = (train, held out),
     standardised inputs and targets, mean squared error, scaling folded into
@@ -521,7 +545,7 @@ def adaptive_regression_sample(name, blocks, block, seed, make_data, sizes, epoc
           f" max {attempts.max()}, mean {attempts.mean():.2f},"
           f" rejected in total {int(np.sum(attempts - accepted))} (max-steps {max_steps})")
     order = pick_rows(40, attempts, accepted, margin)
-    save_sample(name, blocks, P, x_te[order[:40]], in_names, out_names, folder)
+    save_sample(name, blocks, P, x_te[order[:40]], in_names, out_names, folder, weights)
     status, attempts, accepted, margin = STATS[block]
     print(f"inputs.csv rows: attempts min {attempts.min()}, max {attempts.max()},"
           f" rows with a rejection {int(np.sum(attempts > accepted))},"

@@ -21,7 +21,7 @@ row's steps are chosen by the controller exactly as deployed (DEVELOPERS.md
 with their step sizes held constant. Input and output scaling are folded into
 the first and last layers afterwards.
 
-Writes boiler_ahead.npz, inputs.csv and expected.csv as described at
+Writes boiler_ahead.safetensors, inputs.csv and expected.csv as described at
 trainlib.adaptive_regression_sample, which runs all of the above.
 """
 import os
@@ -89,7 +89,8 @@ def main():
     tl.adaptive_regression_sample(
         "boiler_ahead", BLOCKS, "heat", seed=7031, make_data=make_data, sizes=(6000, 1500),
         epochs=100, lr0=4e-3, rmse_text=lambda r: f"water {r[0]:.3f} C, wall {r[1]:.3f} C",
-        held_out=held_out, in_names=IN_NAMES, out_names=OUT_NAMES, folder=HERE)
+        held_out=held_out, in_names=IN_NAMES, out_names=OUT_NAMES, folder=HERE,
+        weights="safetensors")
 
 
 if __name__ == "__main__":

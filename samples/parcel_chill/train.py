@@ -1,7 +1,8 @@
 #!/usr/bin/python3
 """Trains the parcel_chill sample (an ODE-RNN); run with /usr/bin/python3 (PyTorch).
 
-Writes parcel_chill.npz, inputs.csv (a sequence file of held-out trips) and
+Writes parcel_chill.pt (torch.save of the float32 state dict, which the
+description's `weights` line reads as it is), inputs.csv (a sequence file of held-out trips) and
 expected.csv (this script's own float64 forward pass over inputs.csv), and
 prints the held-out error. The data are invented; see README.md.
 """
@@ -123,7 +124,7 @@ def main():
     sd["cell.weight_ih"] = sd["cell.weight_ih"] / T_SCALE
     sd["head.weight"] = sd["head.weight"] * T_SCALE
     sd["head.bias"] = sd["head.bias"] * T_SCALE + T_SHIFT
-    np.savez(os.path.join(HERE, "parcel_chill.npz"), **{k: v.numpy().astype(np.float32) for k, v in sd.items()})
+    torch.save({k: v.to(torch.float32) for k, v in sd.items()}, os.path.join(HERE, "parcel_chill.pt"))
 
     # inputs.csv: three held-out trips; expected.csv: the saved float32 weights in float64 arithmetic.
     model32 = OdeRnn().double()

@@ -4,7 +4,7 @@
 // under the description's step rules (rtol 1e-3, atol 1e-4, at most 24
 // attempts, integral controller, safety 0.9, factors 0.2 to 10, initial step
 // selected) written out in baseline_stepping.hpp, float32 like the emitted
-// float32 code. The weights come from the sample's .npz through the
+// float32 code. The weights come from the sample's weights file through the
 // compiler's reader.
 #include <Eigen/Core>
 #include <boost/numeric/odeint.hpp>
