@@ -704,6 +704,7 @@ bool check_model(const Model& model, const Source& src, const CheckOptions& opts
     const int before = diags.error_count();
     Checker c{model, src, opts, diags, {}, nullptr};
     c.run();
+    check_vectors(model, src, diags);
     return diags.error_count() == before;
 }
 

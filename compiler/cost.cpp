@@ -16,6 +16,7 @@
 
 #include "../runtime/evaluate.hpp"
 #include "../runtime/integrate.hpp"
+#include "../runtime/standardise.hpp"
 #include "../runtime/tableau.hpp"
 #include "cost_cycles.hpp"
 #include "cost_object.hpp"
@@ -208,6 +209,7 @@ Measured measure_evals(const Model& model, const std::vector<std::vector<double>
         Model p = model;
         p.blocks.resize(i + 1);
         p.output_size = block_out_width(p.blocks.back());
+        drop_output_standardisation(p);  // a prefix ends inside the model
         prefixes.push_back(std::move(p));
     }
     for (const auto& row : rows) {

@@ -3,6 +3,7 @@
 #include <fmt/format.h>
 
 #include "../runtime/tableau.hpp"
+#include "source.hpp"
 
 namespace meander {
 
@@ -57,13 +58,42 @@ void dump_blocks(const std::vector<Block>& blocks, int depth, std::string& out) 
     }
 }
 
+std::string values_text(const Eigen::VectorXd& v) {
+    std::string out;
+    for (Eigen::Index i = 0; i < v.size(); ++i) out += fmt::format("{}{}", i ? ", " : "", format_double(v[i]));
+    return out;
+}
+
 }  // namespace
+
+std::string describe_vector(const VectorInfo& info, const std::string& vector, int size) {
+    std::string out;
+    const bool named = !info.names.empty() || !info.classes.empty();
+    if (named) {
+        out += info.classes.empty() ? "names " : "classes ";
+        for (int i = 0; i < size; ++i) {
+            const auto k = static_cast<std::size_t>(i);
+            out += fmt::format("{}{}", i ? ", " : "", value_name(info, vector, i));
+            if (k < info.units.size() && !info.units[k].empty()) out += fmt::format(" ({})", info.units[k]);
+        }
+    }
+    if (const auto& s = info.standardised) {
+        if (named) out += "; ";
+        out += "standardised, mean ";
+        out += s->mean_tensor.empty() ? fmt::format("[{}]", values_text(s->mean)) : fmt::format("'{}'", s->mean_tensor);
+        out += ", scale ";
+        out += s->scale_tensor.empty() ? fmt::format("[{}]", values_text(s->scale)) : fmt::format("'{}'", s->scale_tensor);
+    }
+    return out;
+}
 
 std::string dump_model(const Model& m) {
     std::string out = fmt::format("model {}\nweights \"{}\"\ninput {}[{}]\n", m.name, m.weights_path, m.input_name,
                                   m.input_size);
+    if (const std::string v = describe_vector(m.input_info, m.input_name, m.input_size); !v.empty()) out += "  " + v + "\n";
     dump_blocks(m.blocks, 0, out);
     out += fmt::format("output {}[{}]\n", m.output_name, m.output_size);
+    if (const std::string v = describe_vector(m.output_info, m.output_name, m.output_size); !v.empty()) out += "  " + v + "\n";
     return out;
 }
 

@@ -150,6 +150,35 @@ template <> struct layout_action<g::comment> {
 
 std::string quoted(const std::string& s) { return quote_string(s); }
 
+// The options of an input or output statement, in the canonical order: names (or
+// classes), then the standardisation.
+std::string vector_options(const VectorInfo& info) {
+    std::string out;
+    if (!info.names.empty()) {
+        out += ", names [";
+        for (std::size_t i = 0; i < info.names.size(); ++i) {
+            out += (i ? ", " : "") + info.names[i];
+            if (i < info.units.size() && !info.units[i].empty()) out += " in " + quoted(info.units[i]);
+        }
+        out += "]";
+    }
+    if (!info.classes.empty()) {
+        out += ", classes [";
+        for (std::size_t i = 0; i < info.classes.size(); ++i) out += (i ? ", " : "") + info.classes[i];
+        out += "]";
+    }
+    if (const auto& st = info.standardised) {
+        auto part = [&](const std::string& tensor, const Eigen::VectorXd& v) {
+            if (!tensor.empty()) return quoted(tensor);
+            std::string list = "[";
+            for (Eigen::Index i = 0; i < v.size(); ++i) list += (i ? ", " : "") + format_number(v[i]);
+            return list + "]";
+        };
+        out += ", standardised mean " + part(st->mean_tensor, st->mean) + " scale " + part(st->scale_tensor, st->scale);
+    }
+    return out;
+}
+
 // A layer's options after its widths: activation, tensor names, layout (less what its
 // blocks' layout statements already say).
 std::string dense_options(const Dense& d, bool block_transposed = false, bool block_time_first = false);
@@ -189,7 +218,7 @@ class Printer {
 public:
     Printer(const Source& src, const Model& model, const Layout& layout) : src_(src), model_(model), layout_(layout) {
         comment_ = layout_.comments.begin();
-        cursors_.push_back(Cursor{&model_.blocks, 0, nullptr});
+        cursors_.push_back(Cursor{&model_.blocks, 0, nullptr, &model_.tensors});
     }
 
     std::string run() {
@@ -273,8 +302,10 @@ private:
                 if (c.tensors->time_first) out += ", time-first";
                 return "layout " + out.substr(2);
             }
-            case Kind::input: return fmt::format("input {}[{}]", model_.input_name, model_.input_size);
-            case Kind::output: return fmt::format("output {}[{}]", model_.output_name, model_.output_size);
+            case Kind::input:
+                return fmt::format("input {}[{}]", model_.input_name, model_.input_size) + vector_options(model_.input_info);
+            case Kind::output:
+                return fmt::format("output {}[{}]", model_.output_name, model_.output_size) + vector_options(model_.output_info);
             case Kind::dense: {
                 bool transposed = false, time_first = false;
                 for (const Cursor& k : cursors_)
@@ -297,13 +328,15 @@ private:
                 const Stream& st = *model_.stream;
                 const std::string& w = st.update_layers.front().dense.weight_tensor;
                 const std::string prefix = w.substr(0, w.size() - std::string_view(".weight_ih").size());
+                const bool transposed = st.update_layers.front().dense.transposed && !model_.tensors.transposed;
                 return fmt::format("gated {}: {} -> {}", st.update_name, st.update_in, st.update_out) +
-                       (prefix == st.update_name ? "" : ", from " + quoted(prefix));
+                       (prefix == st.update_name ? "" : ", from " + quoted(prefix)) + (transposed ? ", transposed" : "");
             }
             case Kind::merge: {
                 const Stream& st = *model_.stream;
                 const Dense& d = st.update_layers.front().dense;
-                return fmt::format("merge {}: {} + {} -> {}", d.name, st.update_in, st.update_obs, d.out) + dense_options(d);
+                return fmt::format("merge {}: {} + {} -> {}", d.name, st.update_in, st.update_obs, d.out) +
+                       dense_options(d, model_.tensors.transposed);
             }
             case Kind::header: {
                 if (cursors_.size() == 1 && model_.stream && !evolve_done_) {

@@ -115,7 +115,13 @@ std::vector<Eigen::VectorXd> to_vectors(const std::vector<std::vector<double>>& 
 
 std::string csv_header(const Model& m) {
     std::string h;
-    for (int i = 0; i < m.output_size; ++i) h += fmt::format("{}{}.{}", i ? "," : "", m.output_name, i);
+    // The values' names (or "output.i"), a unit in parentheses after its name.
+    for (int i = 0; i < m.output_size; ++i) {
+        const auto k = static_cast<std::size_t>(i);
+        const std::string unit = k < m.output_info.units.size() ? m.output_info.units[k] : std::string();
+        h += fmt::format("{}{}{}", i ? "," : "", value_name(m.output_info, m.output_name, i),
+                         unit.empty() ? "" : " (" + unit + ")");
+    }
     return h + "\n";
 }
 
@@ -159,6 +165,11 @@ int cmd_check(const std::string& model_path, const std::string& precision, const
         return flush(diags), kModelError;
     flush(diags);
     std::printf("%s: ok (%s, content %s)\n", model_path.c_str(), loaded->model.name.c_str(), loaded->content_hash.c_str());
+    const Model& m = loaded->model;
+    if (const std::string v = describe_vector(m.input_info, m.input_name, m.input_size); !v.empty())
+        std::printf("  input %s: %s\n", m.input_name.c_str(), v.c_str());
+    if (const std::string v = describe_vector(m.output_info, m.output_name, m.output_size); !v.empty())
+        std::printf("  output %s: %s\n", m.output_name.c_str(), v.c_str());
     std::fputs(summary.c_str(), stdout);
     return 0;
 }

@@ -25,6 +25,7 @@
 #include "parse/actions_solver.hpp"
 #include "parse/actions_stream.hpp"
 #include "parse/actions_top.hpp"
+#include "parse/actions_vectors.hpp"
 #include "parse/state.hpp"
 
 namespace meander {

@@ -401,6 +401,14 @@ std::string refit_description(const Source& src, const Model& original, const Mo
     }
     if (original.weights_loc.line > 0)
         at(original.weights_loc.line) = replace_statement(at(original.weights_loc.line), "weights \"" + weights_file + "\"");
+    // The new weights file holds only what the model binds: an ignore statement would match nothing (and warn).
+    if (!original.ignore_locs.empty()) {
+        int first = original.ignore_locs.front().line;
+        while (first > 1 && at(first).find("ignore") == std::string::npos) --first;
+        for (int l = first; l <= original.ignore_locs.back().line; ++l) at(l) = "# " + at(l);
+        inserts.emplace_back(first - 1, fmt::format("# {} holds only the tensors the model binds; no tensor is left to ignore:",
+                                                    weights_file));
+    }
     std::sort(inserts.begin(), inserts.end(), [](const auto& a, const auto& b) { return a.first > b.first; });
     for (const auto& [after, text] : inserts) lines.insert(lines.begin() + after, text);
     std::string out = "# " + note + "\n";
@@ -430,6 +438,24 @@ TensorSet refit_tensors(const Model& refitted) {
             set.tensors.push_back(std::move(b));
         }
     });
+    // The standardisation tensors the description names, as they were read (refit does not change them).
+    auto vector = [&](const VectorInfo& info) {
+        if (!info.standardised) return;
+        const std::pair<const std::string*, const Eigen::VectorXd*> parts[] = {
+            {&info.standardised->mean_tensor, &info.standardised->mean},
+            {&info.standardised->scale_tensor, &info.standardised->scale}};
+        for (const auto& [name, v] : parts) {
+            if (name->empty()) continue;
+            Tensor t;
+            t.name = *name;
+            t.shape = {static_cast<std::size_t>(v->size())};
+            t.values.assign(v->data(), v->data() + v->size());
+            t.dtype = "float32";
+            set.tensors.push_back(std::move(t));
+        }
+    };
+    vector(refitted.input_info);
+    vector(refitted.output_info);
     return set;
 }
 

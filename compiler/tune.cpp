@@ -11,6 +11,7 @@
 
 #include "../runtime/evaluate.hpp"
 #include "../runtime/integrate.hpp"
+#include "../runtime/standardise.hpp"
 #include "../runtime/tableau.hpp"
 #include "format.hpp"
 #include "parallel.hpp"
@@ -86,6 +87,8 @@ Split split_at(const Model& model, std::size_t index) {
     s.after = model;
     s.after.blocks.assign(model.blocks.begin() + static_cast<std::ptrdiff_t>(index) + 1, model.blocks.end());
     s.after.input_size = s.block->state();
+    drop_output_standardisation(s.before);  // the split's parts: the input's scaling before, the output's after
+    drop_input_standardisation(s.after);
     return s;
 }
 

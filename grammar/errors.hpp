@@ -32,7 +32,18 @@ template<> inline constexpr const char* error_message< state_name > = "expected 
 template<> inline constexpr const char* error_message< blend_name > = "expected the blend block's name";
 template<> inline constexpr const char* error_message< kw_largest_gap > = "expected 'largest-gap' and the largest gap between two observations";
 template<> inline constexpr const char* error_message< merge_plus > = "expected '+' and the observation width (a merge reads the state, then the observation)";
-template<> inline constexpr const char* error_message< gated_option > = "expected a gated-layer option: 'from' and a quoted tensor name prefix";
+template<> inline constexpr const char* error_message< gated_option > = "expected a gated-layer option: 'from' and a quoted tensor name prefix, 'transposed' or 'time-first'";
+template<> inline constexpr const char* error_message< vector_option > = "expected an option of the vector's values: 'names [...]', 'classes [...]' or 'standardised mean ... scale ...'";
+template<> inline constexpr const char* error_message< vector_end > = "expected ',' before another option of the vector, or the end of the statement";
+template<> inline constexpr const char* error_message< named_value > = "expected a value's name (a letter or '_', then letters, digits or '_')";
+template<> inline constexpr const char* error_message< value_unit > = "expected the unit as a quoted string, as in 'in \"degC\"'";
+template<> inline constexpr const char* error_message< class_name > = "expected a class name (a letter or '_', then letters, digits or '_')";
+template<> inline constexpr const char* error_message< mean_part > = "expected 'mean' and a quoted tensor name or '[' and the values";
+template<> inline constexpr const char* error_message< scale_part > = "expected 'scale' and a quoted tensor name or '[' and the values";
+template<> inline constexpr const char* error_message< mean_source > = "expected a quoted tensor name or '[' and one mean per value";
+template<> inline constexpr const char* error_message< scale_source > = "expected a quoted tensor name or '[' and one scale per value";
+template<> inline constexpr const char* error_message< mean_value > = "expected a number (one mean per value)";
+template<> inline constexpr const char* error_message< scale_value > = "expected a number (one scale per value)";
 
 // Punctuation
 template<> inline constexpr const char* error_message< colon > = "expected ':'";

@@ -94,6 +94,12 @@ struct kw_steps_per_unit : seq< TAO_PEGTL_STRING( "steps-per-unit" ), word_end >
 struct kw_gated : seq< TAO_PEGTL_STRING( "gated" ), word_end > {};
 struct kw_merge : seq< TAO_PEGTL_STRING( "merge" ), word_end > {};
 struct kw_blend : seq< TAO_PEGTL_STRING( "blend" ), word_end > {};
+// The values of the input and output vectors
+struct kw_names : seq< TAO_PEGTL_STRING( "names" ), word_end > {};
+struct kw_classes : seq< TAO_PEGTL_STRING( "classes" ), word_end > {};
+struct kw_standardised : seq< TAO_PEGTL_STRING( "standardised" ), word_end > {};
+struct kw_mean : seq< TAO_PEGTL_STRING( "mean" ), word_end > {};
+struct kw_scale : seq< TAO_PEGTL_STRING( "scale" ), word_end > {};
 
 // Words that begin a statement; skipping after an error stops before them.
 struct statement_keyword : sor< kw_model, kw_weights, kw_ignore, kw_input, kw_output, kw_dense, kw_residual, kw_continuous, kw_augment, kw_numbered, kw_layout, kw_solver, kw_trained_with, kw_state, kw_gated, kw_merge, kw_blend > {};
@@ -108,6 +114,34 @@ struct dense_end : at< sor< line_rest, seq< sep, statement_boundary > > > {};
 struct solver_end : at< sor< line_rest, seq< sep, statement_boundary > > > {};
 struct ignore_end : at< sor< line_rest, seq< sep, statement_boundary > > > {};
 struct layout_end : at< sor< line_rest, seq< sep, statement_boundary > > > {};
+
+// ---- the values of the input and output vectors: names, units, classes, standardisation ----
+struct value_name : identifier {};
+struct value_unit_text : string_chars {};
+struct value_unit : seq< string_open, value_unit_text, must< string_close > > {};
+struct named_value : seq< value_name, opt< sep, kw_in, sep, must< value_unit > > > {};
+struct names_list : seq< must< open_bracket >, sep, must< named_value >, star< sep, comma, sep, must< named_value > >, sep, must< close_bracket > > {};
+struct names_option : seq< kw_names, sep, names_list > {};
+struct class_name : identifier {};
+struct classes_list : seq< must< open_bracket >, sep, must< class_name >, star< sep, comma, sep, must< class_name > >, sep, must< close_bracket > > {};
+struct classes_option : seq< kw_classes, sep, classes_list > {};
+struct mean_tensor_text : string_chars {};
+struct mean_tensor : seq< string_open, mean_tensor_text, must< string_close > > {};
+struct mean_open : open_bracket {};
+struct mean_value : real {};
+struct mean_values : seq< mean_open, sep, must< mean_value >, star< sep, comma, sep, must< mean_value > >, sep, must< close_bracket > > {};
+struct mean_source : sor< mean_tensor, mean_values > {};
+struct scale_tensor_text : string_chars {};
+struct scale_tensor : seq< string_open, scale_tensor_text, must< string_close > > {};
+struct scale_open : open_bracket {};
+struct scale_value : real {};
+struct scale_values : seq< scale_open, sep, must< scale_value >, star< sep, comma, sep, must< scale_value > >, sep, must< close_bracket > > {};
+struct scale_source : sor< scale_tensor, scale_values > {};
+struct mean_part : seq< kw_mean, sep, must< mean_source > > {};
+struct scale_part : seq< kw_scale, sep, must< scale_source > > {};
+struct standardised_option : seq< kw_standardised, sep, must< mean_part >, sep, must< scale_part > > {};
+struct vector_option : sor< names_option, classes_option, standardised_option > {};
+struct vector_end : at< sor< line_rest, seq< sep, statement_boundary > > > {};
 
 // ---- model, weights, input, output -------------------------------------------
 struct model_first : at< kw_model > {};
@@ -124,10 +158,10 @@ struct ignore_pattern : seq< string_open, ignore_pattern_text, must< string_clos
 struct ignore_line : seq< kw_ignore, sep, must< ignore_pattern >, star< sep, comma, sep, must< ignore_pattern > >, must< ignore_end > > {};
 struct input_name : identifier {};
 struct input_size : integer {};
-struct input_line : seq< kw_input, sep, must< input_name >, sep, must< open_bracket >, sep, must< input_size >, sep, must< close_bracket >, must< statement_end > > {};
+struct input_line : seq< kw_input, sep, must< input_name >, sep, must< open_bracket >, sep, must< input_size >, sep, must< close_bracket >, star< sep, comma, sep, must< vector_option > >, must< vector_end > > {};
 struct output_name : identifier {};
 struct output_size : integer {};
-struct output_line : seq< kw_output, sep, must< output_name >, sep, must< open_bracket >, sep, must< output_size >, sep, must< close_bracket >, must< statement_end > > {};
+struct output_line : seq< kw_output, sep, must< output_name >, sep, must< open_bracket >, sep, must< output_size >, sep, must< close_bracket >, star< sep, comma, sep, must< vector_option > >, must< vector_end > > {};
 
 // ---- dense layers ---------------------------------------------------------------
 struct layer_name : identifier {};
@@ -222,7 +256,7 @@ struct state_name : identifier {};
 struct state_size : integer {};
 struct gap_value : real {};
 struct state_line : seq< kw_state, sep, must< state_name >, sep, must< open_bracket >, sep, must< state_size >, sep, must< close_bracket >, sep, must< comma >, sep, must< kw_largest_gap >, sep, must< gap_value >, must< statement_end > > {};
-struct gated_option : from_option {};
+struct gated_option : sor< from_option, transposed_option, time_first_option > {};
 struct gated_line : seq< kw_gated, sep, must< layer_name >, sep, must< colon >, sep, must< in_width >, sep, must< arrow >, sep, must< out_width >, star< sep, comma, sep, must< gated_option > >, must< dense_end > > {};
 struct merge_plus : one< '+' > {};
 struct obs_width : integer {};

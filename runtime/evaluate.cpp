@@ -1,6 +1,7 @@
 #include "evaluate.hpp"
 
 #include "activation.hpp"
+#include "standardise.hpp"
 
 #include <cmath>
 
@@ -125,7 +126,25 @@ EvalResult evaluate(const Model& model, const Eigen::VectorXd& input) {
         r.status = EvalStatus::input_not_finite;
         return r;
     }
-    return evaluate_blocks(model.blocks, input);
+    if (!model.input_info.standardised && !model.output_info.standardised) return evaluate_blocks(model.blocks, input);
+    // Standardised values are checked like a layer's result: a huge input over a
+    // tiny scale can overflow.
+    Eigen::VectorXd x = input;
+    standardise_input(model, x);
+    if (!x.allFinite()) {
+        EvalResult r;
+        r.status = EvalStatus::state_not_finite;
+        r.block = model.input_name;
+        return r;
+    }
+    EvalResult r = evaluate_blocks(model.blocks, x);
+    if (r.status != EvalStatus::ok) return r;
+    unstandardise_output(model, r.output);
+    if (!r.output.allFinite()) {
+        r.status = EvalStatus::state_not_finite;
+        r.block = model.output_name;
+    }
+    return r;
 }
 
 EvalResult evaluate_blocks(const std::vector<Block>& blocks, const Eigen::VectorXd& input) {

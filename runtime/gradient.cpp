@@ -2,6 +2,7 @@
 
 #include "adjoint.hpp"
 #include "parameters.hpp"
+#include "standardise.hpp"
 
 namespace meander {
 
@@ -12,7 +13,14 @@ ForwardRecord forward_record(const Model& model, const Eigen::VectorXd& input, G
         return r;
     }
     r.blocks.resize(model.blocks.size());
-    const Eigen::VectorXd* x = &input;
+    Eigen::VectorXd standardised = input;
+    standardise_input(model, standardised);
+    if (!standardised.allFinite()) {
+        r.status = EvalStatus::state_not_finite;
+        r.block = model.input_name;
+        return r;
+    }
+    const Eigen::VectorXd* x = &standardised;
     for (std::size_t i = 0; i < model.blocks.size(); ++i) {
         const Block& b = model.blocks[i];
         BlockRecord& rec = r.blocks[i];
@@ -46,6 +54,11 @@ ForwardRecord forward_record(const Model& model, const Eigen::VectorXd& input, G
         x = &rec.y;
     }
     r.output = *x;
+    unstandardise_output(model, r.output);
+    if (!r.output.allFinite()) {
+        r.status = EvalStatus::state_not_finite;
+        r.block = model.output_name;
+    }
     return r;
 }
 
@@ -55,7 +68,9 @@ Gradient backward(const Model& model, const ForwardRecord& record, const Eigen::
     std::vector<Eigen::Index> offset(model.blocks.size() + 1, 0);
     for (std::size_t i = 0; i < model.blocks.size(); ++i)
         offset[i + 1] = offset[i] + block_param_count(model.blocks[i]);
+    // Through y * scale + mean and (x - mean) / scale: constants, so only the chain rule.
     Eigen::VectorXd bar = output_bar;
+    if (const auto& s = model.output_info.standardised) bar = bar.cwiseProduct(s->scale);
     Eigen::VectorXd prev;
     for (std::size_t i = model.blocks.size(); i-- > 0;) {
         const Block& b = model.blocks[i];
@@ -77,6 +92,7 @@ Gradient backward(const Model& model, const ForwardRecord& record, const Eigen::
         if (b.kind == Block::Kind::continuous) prev.conservativeResize(b.continuous.width);  // augmented inputs are constants
         bar.swap(prev);
     }
+    if (const auto& s = model.input_info.standardised) bar = bar.cwiseQuotient(s->scale);
     g.input = bar;
     return g;
 }

@@ -140,6 +140,42 @@ struct Stream {
     std::vector<Block> update_layers;
 };
 
+// What the description says about the values of the input or the output vector
+// (options of its `input` or `output` statement).
+// `standardised`: the network works on standardised values. An input value x reaches the
+// first layer as (x - mean) / scale; an output y of the last layer leaves as y * scale + mean.
+// mean and scale come from tensors of the weights file (names given) or from the description.
+struct Standardised {
+    Loc loc;                        // the keyword
+    std::string mean_tensor;        // empty: written in the description
+    std::string scale_tensor;
+    Loc mean_loc;                   // the tensor name's quote or the '[' of the written values
+    Loc scale_loc;
+    std::vector<Loc> mean_value_locs;   // each written value (empty for a tensor)
+    std::vector<Loc> scale_value_locs;
+    Eigen::VectorXd mean;           // written ones: filled by the parser; tensors: by bind_weights
+    Eigen::VectorXd scale;
+};
+
+struct VectorInfo {
+    std::vector<std::string> names;     // `names [a, b in "unit", ...]`: one per value, or empty
+    std::vector<std::string> units;     // "" where no unit is given
+    std::vector<Loc> name_locs;
+    Loc names_loc;                      // the keyword
+    std::vector<std::string> classes;   // output only: `classes [a, b, ...]`, one per value of a classifier
+    std::vector<Loc> class_locs;
+    Loc classes_loc;
+    std::optional<Standardised> standardised;
+};
+
+// The name of value i of a vector: its given name, or "vec.i".
+inline std::string value_name(const VectorInfo& info, const std::string& vector, int i) {
+    const auto k = static_cast<std::size_t>(i);
+    if (k < info.classes.size()) return info.classes[k];
+    if (k < info.names.size()) return info.names[k];
+    return vector + "." + std::to_string(i);
+}
+
 struct Model {
     std::string name;               // becomes the C++ namespace
     Loc loc;
@@ -148,12 +184,15 @@ struct Model {
     std::string weights_key;        // `under "KEY/PATH"`: a nested dictionary of a checkpoint; empty for none
     std::vector<std::string> ignore;  // `ignore "PATTERN", ...`: tensors the model leaves unused (globs: * and ?)
     std::vector<Loc> ignore_locs;     // each pattern's opening quote
+    BodyTensors tensors;            // a top-level `layout` statement: for every layer of the model
     std::string input_name;
     int input_size = 0;
     Loc input_loc;
     std::string output_name;
     int output_size = 0;
     Loc output_loc;
+    VectorInfo input_info;          // names, units and standardisation of the input's values
+    VectorInfo output_info;         // of the output's values, and class labels
     std::vector<Block> blocks;
     std::optional<Stream> stream;   // set for a streaming model; `blocks` is then its readout
 };

@@ -43,8 +43,9 @@ std::string render_source(const Emission& e, const std::string& stamp, const std
                      M_);
     o += fmt::format("namespace {} {{\n\nnamespace {{\n\n", e.model.name);
     o += render_weights(e);
+    o += render_standardisation_tables(e);
     o += render_activations(e);
-    if (!e.model.blocks.empty())
+    if (!e.model.blocks.empty() || e.model.input_info.standardised || e.model.output_info.standardised)
         o += "bool all_finite(const real* v, std::size_t n) noexcept {\n"
              "    for (std::size_t i = 0; i < n; ++i)\n"
              "        if (!std::isfinite(v[i])) return false;\n"
@@ -53,6 +54,7 @@ std::string render_source(const Emission& e, const std::string& stamp, const std
     o += render_dense_layers(e);
     for (const ContinuousPlan* cp : continuous_plans(e.low)) o += render_continuous(e, *cp);
     o += "}  // namespace\n\n";
+    o += render_vector_definitions(e);
     o += render_infer(e);
     o += render_result_name();
     o += render_build_check(e.p);

@@ -74,8 +74,21 @@ std::string render_infer(const Emission& e) {
     o += "    for (std::size_t i = 0; i < input_size; ++i)\n";
     o += "        if (!std::isfinite(input[i])) return result::input_not_finite;\n";
     if (chain_uses_work(e.low.top)) o += "    real* const work = ctx.work;\n";
-    if (e.low.top.ops.empty()) o += "    for (std::size_t i = 0; i < output_size; ++i) output[i] = input[i];\n";
-    render_chain(e, o, e.low.top, "input", "output", "    ", true);
+    // Standardisation as DEVELOPERS.md "Operation order" states it: a subtraction and a
+    // division per input value, a multiplication and an addition per output value.
+    std::string in = "input";
+    if (e.model.input_info.standardised) {
+        in = "standardised";
+        o += "    real standardised[input_size];\n";
+        o += "    for (std::size_t i = 0; i < input_size; ++i) standardised[i] = (input[i] - input_mean[i]) / input_scale[i];\n";
+        o += "    if (!all_finite(standardised, input_size)) return result::state_not_finite;\n";
+    }
+    if (e.low.top.ops.empty()) o += fmt::format("    for (std::size_t i = 0; i < output_size; ++i) output[i] = {}[i];\n", in);
+    render_chain(e, o, e.low.top, in, "output", "    ", true);
+    if (e.model.output_info.standardised) {
+        o += "    for (std::size_t i = 0; i < output_size; ++i) output[i] = output[i] * output_scale[i] + output_mean[i];\n";
+        o += "    if (!all_finite(output, output_size)) return result::state_not_finite;\n";
+    }
     o += "    return result::ok;\n}\n\n";
     return o;
 }

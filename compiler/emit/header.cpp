@@ -241,6 +241,7 @@ const char* result_name(result r) noexcept;
 bool build_conditions_hold() noexcept;
 
 )";
+    o += render_vector_declarations(e);
     o += fmt::format("}}  // namespace {}\n", e.model.name);
     o += fmt::format("\n#endif  // MEANDER_GENERATED_{}_HPP\n", M_);
     return o;

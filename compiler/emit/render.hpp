@@ -7,6 +7,8 @@
 //   integrators.cpp  fields and continuous blocks (the unrolled Runge-Kutta loops)
 //   entry.cpp        chains of layers, infer, result_name
 //   c_header.cpp     NAME.h for C callers and the extern "C" entry points
+//   vectors.cpp      names, units and classes of the input's and output's values,
+//                    standardisation tables, most_probable
 #pragma once
 
 #include <set>
@@ -84,5 +86,13 @@ std::string render_build_check(Precision p);  // also the streaming emitter's
 // in), and the end of NAME.cpp that checks that stamp and defines the entry points.
 std::string render_c_header(const Emission& e);
 std::string render_c_entry(const Emission& e, const std::string& c_stamp);
+
+// vectors.cpp. Declarations for the header (inside the namespace), the
+// standardisation tables (in the source's anonymous namespace, beside the
+// weights) and the definitions of the name tables and most_probable.
+bool emits_most_probable(const Model& model);  // a softmax head, or classes given
+std::string render_vector_declarations(const Emission& e);
+std::string render_standardisation_tables(const Emission& e);
+std::string render_vector_definitions(const Emission& e);
 
 }  // namespace meander::emit_detail

@@ -125,6 +125,24 @@ template <> struct action<g::layout_line> {
     template <typename Input>
     static void apply(const Input& in, State& s) {
         Loc stmt = loc_of(in, s);
+        if (s.open.empty()) {
+            // Model-wide: every layer of the model, the streaming parts' too.
+            top_level_statement(s, stmt);
+            BodyTensors& t = s.model.tensors;
+            if (t.layout_loc.line > 0) {
+                s.error(stmt, fmt::format("model '{}' already has a 'layout' statement (line {})", s.model.name,
+                                          t.layout_loc.line));
+                return;
+            }
+            if (s.have_blocks || s.model.stream) {
+                s.error(stmt, "a model-wide 'layout' must come before the 'state' statement and the first layer or block");
+                return;
+            }
+            t.transposed = s.layout_transposed;
+            t.time_first = s.layout_time_first;
+            t.layout_loc = stmt;
+            return;
+        }
         Frame* f = naming_frame(s, stmt, "layout");
         if (!f) return;
         BodyTensors& t = body_tensors(f->block);

@@ -62,6 +62,7 @@ template <> struct action<g::gated_line> {
             d.loc = s.dense.loc;
             d.in = in_width;
             d.out = s.dense.out > 0 && s.dense.out <= (1 << 20) ? 3 * s.dense.out : 0;
+            d.transposed = s.transposed_given || s.model.tensors.transposed;  // both halves stored (in, 3H)
             d.weight_tensor = fmt::format("{}.weight_{}", prefix, part);
             d.bias_tensor = fmt::format("{}.bias_{}", prefix, part);
             return Block{Block::Kind::dense, std::move(d), {}, {}};
@@ -76,7 +77,7 @@ template <> struct action<g::merge_line> {
         Dense& d = s.dense;
         const int state_width = d.in;
         d.in = state_width > 0 && s.size > 0 && state_width <= (1 << 20) && s.size <= (1 << 20) ? state_width + s.size : 0;
-        d.transposed = s.transposed_given;
+        d.transposed = s.transposed_given || s.model.tensors.transposed;
         resolve_tensors(s);
         Stream* st = place_update(in, s, "merge");
         if (!st) return;

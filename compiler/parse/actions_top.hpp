@@ -94,6 +94,7 @@ template <> struct action<g::input_line> {
         }
         if (s.have_blocks) s.error(stmt, "'input' must come before the first layer or block");
         s.input_stmt = stmt;
+        s.model.input_info = std::move(s.vector);
         s.model.input_name = s.name;
         s.model.input_loc = s.name_loc;
         s.model.input_size = s.size;
@@ -111,6 +112,7 @@ template <> struct action<g::output_line> {
         }
         top_level_statement(s, stmt);
         s.output_stmt = stmt;
+        s.model.output_info = std::move(s.vector);
         s.model.output_name = s.name;
         s.model.output_loc = s.name_loc;
         s.model.output_size = s.size;

@@ -30,8 +30,8 @@ void resolve_tensors(State& s) {
 // layouts of the blocks around it.
 void body_naming(State& s) {
     Dense& d = s.dense;
-    d.transposed = s.transposed_given;
-    d.time_first = s.time_first_given;
+    d.transposed = s.transposed_given || s.model.tensors.transposed;
+    d.time_first = s.time_first_given || (s.model.tensors.time_first && d.time_input);
     for (Frame& f : s.open) {
         const BodyTensors& t = body_tensors(f.block);
         d.transposed = d.transposed || t.transposed;

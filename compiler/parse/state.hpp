@@ -76,6 +76,9 @@ struct State {
     bool act_accepted = false;      // the activation just read was taken (not a second one)
     SolverSpec spec;
     double gap = 0.0;               // the largest gap of the state statement
+    VectorInfo vector;              // options of the input or output statement being read
+    std::vector<double> values;     // a bracketed list of numbers being read, and where each is
+    std::vector<Loc> value_locs;
 
     State(const Source& s, Diagnostics& d) : src(s), diags(d) {}
 

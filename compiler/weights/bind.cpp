@@ -62,6 +62,22 @@ public:
 
     const std::vector<std::string>& binding() const { return binding_; }
 
+    // The tensors a standardised input or output names: shape (N,) or (1, N),
+    // finite, and for the scale no zero.
+    void collect_vector(const VectorInfo& info) {
+        if (!info.standardised) return;
+        if (!info.standardised->mean_tensor.empty()) wanted_.push_back(info.standardised->mean_tensor);
+        if (!info.standardised->scale_tensor.empty()) wanted_.push_back(info.standardised->scale_tensor);
+    }
+
+    void vector(VectorInfo& info, const char* kind, const std::string& vec, int size) {
+        if (!info.standardised) return;
+        Standardised& st = *info.standardised;
+        const std::string who = fmt::format("{} '{}'", kind, vec);
+        if (!st.mean_tensor.empty()) vector_tensor(who, st.mean_tensor, st.mean_loc, "mean", size, st.mean);
+        if (!st.scale_tensor.empty()) vector_tensor(who, st.scale_tensor, st.scale_loc, "scale", size, st.scale);
+    }
+
     void unused(const Model& model) {
         std::vector<std::string> names;
         std::vector<bool> pattern_hit(model.ignore.size(), false);
@@ -108,6 +124,45 @@ private:
     std::vector<const Dense*> no_bias_;
     std::vector<std::string> wanted_;
     std::vector<std::string> offered_;   // tensors named as close names of a missing one
+
+    void vector_tensor(const std::string& who, const std::string& name, Loc loc, const char* role, int size,
+                       Eigen::VectorXd& out) {
+        const Tensor* t = nullptr;
+        for (std::size_t i = 0; i < set_.tensors.size() && !t; ++i)
+            if (set_.tensors[i].name == name) {
+                t = &set_.tensors[i];
+                used_[i] = true;
+                binding_[i] = fmt::format("{} {}", who, role);
+            }
+        if (!t) {
+            std::vector<std::string> close;
+            for (const auto& c : set_.tensors)
+                if (std::find(wanted_.begin(), wanted_.end(), c.name) == wanted_.end() && edit_distance(name, c.name) <= 2)
+                    close.push_back(c.name);
+            offered_.insert(offered_.end(), close.begin(), close.end());
+            diags_.error(src_, loc, fmt::format("{}: no tensor '{}' in {}{}", who, name, set_.path,
+                                                close.empty() ? fmt::format(" (it holds {})", count_text(set_.tensors.size(), "tensor"))
+                                                              : "; close names: " + quoted_list(close, 5)));
+            return;
+        }
+        const std::size_t n = static_cast<std::size_t>(std::max(size, 0));
+        const bool flat = t->shape == std::vector<std::size_t>{n} || t->shape == std::vector<std::size_t>{1, n};
+        if (!flat || t->values.size() != n) {
+            diags_.error(src_, loc, fmt::format("{}: tensor '{}' has shape {}, expected ({},) for its {} values", who, name,
+                                                shape_text(t->shape), n, n));
+            return;
+        }
+        for (std::size_t i = 0; i < n; ++i) {
+            const double v = t->values[i];
+            const bool bad = !std::isfinite(v) || (std::string_view(role) == "scale" && v == 0.0);
+            if (!bad) continue;
+            diags_.error(src_, loc, fmt::format("{}: tensor '{}' holds {} at index {}; a {} must be finite{}", who, name,
+                                                format_double(v), i, role,
+                                                std::string_view(role) == "scale" ? " and not zero" : ""));
+            return;
+        }
+        out = Eigen::Map<const Eigen::VectorXd>(t->values.data(), static_cast<Eigen::Index>(n));
+    }
 
     static std::string weight_name(const Dense& d) { return d.weight_tensor.empty() ? d.name + ".weight" : d.weight_tensor; }
     static std::string bias_name(const Dense& d) { return d.bias_tensor.empty() ? d.name + ".bias" : d.bias_tensor; }
@@ -250,11 +305,15 @@ bool bind_weights(Model& model, const Source& src, const TensorSet& set, Diagnos
     int before = diags.error_count();
     Binder binder(src, set, diags);
     binder.collect(model.blocks);
+    binder.collect_vector(model.input_info);
+    binder.collect_vector(model.output_info);
     if (model.stream) {
         binder.collect(model.stream->evolve.field);
         binder.collect(model.stream->update_layers);
     }
+    binder.vector(model.input_info, "input", model.input_name, model.input_size);
     binder.blocks(model.blocks);
+    binder.vector(model.output_info, "output", model.output_name, model.output_size);
     if (model.stream) {
         binder.blocks(model.stream->evolve.field);
         binder.blocks(model.stream->update_layers);
@@ -292,6 +351,27 @@ bool check_weight_range(const Model& model, const Source& src, Precision precisi
         scan(d, d.weight_tensor, w.data(), w.size());
         if (d.has_bias) scan(d, d.bias_tensor, d.bias.data(), d.bias.size());
     });
+    // The emitted code holds mean and scale as float too: a scale that rounds to zero or overflows divides by
+    // zero or infinity there.
+    auto scan_vector = [&](const VectorInfo& info, const char* kind, const std::string& vec) {
+        if (!info.standardised) return;
+        const Standardised& st = *info.standardised;
+        const std::pair<const Eigen::VectorXd*, Loc> parts[] = {{&st.mean, st.mean_loc}, {&st.scale, st.scale_loc}};
+        for (const auto& [v, loc] : parts)
+            for (Eigen::Index i = 0; i < v->size(); ++i) {
+                const double a = std::fabs((*v)[i]);
+                const bool scale = v == &st.scale;
+                if (a > static_cast<double>(std::numeric_limits<float>::max()) || (scale && static_cast<float>(a) == 0.0f)) {
+                    diags.error(src, loc, fmt::format("{} '{}': {} {} at index {} is {} in float32; emit with --precision "
+                                                      "float64",
+                                                      kind, vec, scale ? "scale" : "mean", format_double((*v)[i]), i,
+                                                      a > 1.0 ? "beyond the range" : "zero"));
+                    return;
+                }
+            }
+    };
+    scan_vector(model.input_info, "input", model.input_name);
+    scan_vector(model.output_info, "output", model.output_name);
     return diags.error_count() == before;
 }
 

@@ -48,6 +48,14 @@ TensorSet made_up_weights(const Model& m) {
         add(d.weight_tensor.empty() ? d.name + ".weight" : d.weight_tensor, {out, in});
         if (d.has_bias) add(d.bias_tensor.empty() ? d.name + ".bias" : d.bias_tensor, {out});
     });
+    // Standardisation tensors named in the description (a made-up scale may be 0: binding refuses it).
+    auto vector = [&](const VectorInfo& info, int size) {
+        if (!info.standardised) return;
+        if (!info.standardised->mean_tensor.empty()) add(info.standardised->mean_tensor, {static_cast<std::size_t>(size)});
+        if (!info.standardised->scale_tensor.empty()) add(info.standardised->scale_tensor, {static_cast<std::size_t>(size)});
+    };
+    vector(m.input_info, m.input_size);
+    vector(m.output_info, m.output_size);
     return set;
 }
 

@@ -297,7 +297,7 @@ const std::vector<Row> kSyntaxRows = {
      "input x[4] extra\n"
      "dense a: 4 -> 2\n"
      "output y[2]\n",
-     "bad.mnd:2:12: error: expected the end of the statement\n"
+     "bad.mnd:2:12: error: expected ',' before another option of the vector, or the end of the statement\n"
      "input x[4] extra\n"
      "           ^\n"},
     {"missing comma between layer options",
@@ -695,14 +695,24 @@ const std::vector<Row> kSyntaxRows = {
      "bad.mnd:5:3: error: residual 'r' already has a 'layout' statement (line 4)\n"
      "  layout time-first\n"
      "  ^\n"},
-    {"layout at the top level",
+    {"model-wide layout after a layer",
      "model m\n"
      "input x[4]\n"
+     "dense a: 4 -> 2\n"
      "layout transposed\n"
+     "output y[2]\n",
+     "bad.mnd:4:1: error: a model-wide 'layout' must come before the 'state' statement and the first layer or block\n"
+     "layout transposed\n"
+     "^\n"},
+    {"second model-wide layout",
+     "model m\n"
+     "layout transposed\n"
+     "layout time-first\n"
+     "input x[4]\n"
      "dense a: 4 -> 2\n"
      "output y[2]\n",
-     "bad.mnd:3:1: error: 'layout' is allowed only inside a residual or continuous block (it applies to the block's layers)\n"
-     "layout transposed\n"
+     "bad.mnd:3:1: error: model 'm' already has a 'layout' statement (line 2)\n"
+     "layout time-first\n"
      "^\n"},
     {"time-first on a layer without time",
      "model m\n"
