@@ -5,7 +5,9 @@
 For each samples/<name>/ it reads <name>.mnd with its own small parser, loads
 the tensors the description names from its weights file (.npz), runs an
 independent float64 forward pass on inputs.csv and compares with
-expected.csv. It shares no code with the trainers (samples/trainlib.py):
+expected.csv (a standardised input is (x - mean) / scale before the first
+layer, a standardised output y * scale + mean after the last). It shares no
+code with the trainers (samples/trainlib.py):
 continuous blocks with an adaptive method are integrated by SciPy 1.10's
 solve_ivp (RK45 = dormand-prince, RK23 = bogacki-shampine), whose step
 control is the one DEVELOPERS.md "Integrator semantics" specifies; fixed-step
@@ -89,6 +91,7 @@ class Parser:
         m["weights"] = self.take()
         self.take("input")
         m["input"] = (self.take(), self.size())
+        m["input_options"] = self.vector_options()
         m["state"] = None
         if self.peek() == "state":
             self.take()
@@ -101,7 +104,46 @@ class Parser:
             m["blocks"].append(self.block())
         self.take("output")
         m["output"] = (self.take(), self.size())
+        m["output_options"] = self.vector_options()
         return m
+
+    def vector_options(self):
+        """The options of an input or output statement: names [a in "unit", ...],
+        classes [...], standardised mean M scale S (M, S: a tensor name or [numbers])."""
+        o = {}
+        while self.peek() == ",":
+            self.take(",")
+            kw = self.take()
+            if kw in ("names", "classes"):
+                self.take("[")
+                items = []
+                while True:
+                    item = [self.take(), ""]
+                    if self.peek() == "in":
+                        self.take("in")
+                        item[1] = self.take()
+                    items.append(item)
+                    if self.peek() != ",":
+                        break
+                    self.take(",")
+                self.take("]")
+                o[kw] = items
+            elif kw == "standardised":
+                for part in ("mean", "scale"):
+                    self.take(part)
+                    if self.peek() == "[":
+                        self.take("[")
+                        vals = [self.number()]
+                        while self.peek() == ",":
+                            self.take(",")
+                            vals.append(self.number())
+                        self.take("]")
+                        o[part] = np.array(vals)
+                    else:
+                        o[part] = self.take()       # a tensor name
+            else:
+                raise SyntaxError(f"unknown option {kw!r} of input or output")
+        return o
 
     def size(self):
         self.take("[")
@@ -381,12 +423,26 @@ class Model:
         self.attempts.setdefault(c["name"], []).append(attempts)
         return sol.y[:, -1]
 
+    def scaling(self, options, n):
+        """(mean, scale) of a standardised input or output, or None."""
+        if "mean" not in options:
+            return None
+        return tuple(self.tensor(options[k], (n,)) if isinstance(options[k], str) else options[k]
+                     for k in ("mean", "scale"))
+
     def __call__(self, x):
-        y = self.seq(self.m["blocks"], np.asarray(x, dtype=np.float64))
+        x = np.asarray(x, dtype=np.float64)
+        sx = self.scaling(self.m["input_options"], self.m["input"][1])
+        if sx is not None:
+            x = (x - sx[0]) / sx[1]
+        y = self.seq(self.m["blocks"], x)
         last = self.m["blocks"][-1]
         if last["kind"] == "dense" and last["act"] == "softmax":
             e = np.exp(y - np.max(y))
             y = e / np.sum(e)
+        sy = self.scaling(self.m["output_options"], self.m["output"][1])
+        if sy is not None:
+            y = y * sy[1] + sy[0]
         return y
 
 # ---------------------------------------------------------------- comparison

@@ -402,6 +402,14 @@ def predict(blocks, P, x):
     return softmax(out.v) if isinstance(last, Dense) and last.act == "softmax" else out.v
 
 
+def predict_scaled(blocks, P, x, scaling):
+    """predict on raw values: standardised first and restored after when `scaling` is given."""
+    if scaling is None:
+        return predict(blocks, P, x)
+    sc = {k: v.astype(np.float64) for k, v in scaling.items()}
+    return predict(blocks, P, (np.asarray(x, dtype=np.float64) - sc["x_mean"]) / sc["x_std"]) * sc["y_std"] + sc["y_mean"]
+
+
 def fold_input_scaling(blocks, P, mu, sigma):
     """The trainer sees (x - mu) / sigma; fold that into the first dense layer
     so the deployed model reads the sensor values as they are."""
@@ -454,16 +462,21 @@ def write_safetensors(path, arrays):
         fh.write(struct.pack("<Q", len(text)) + text + b"".join(data))
 
 
-def save_sample(name, blocks, P, x_rows, in_names, out_names, folder, weights="npz"):
+def save_sample(name, blocks, P, x_rows, in_names, out_names, folder, weights="npz", scaling=None):
     """Writes <name>.npz (or <name>.safetensors with weights="safetensors"),
-    inputs.csv and expected.csv into `folder`."""
+    inputs.csv and expected.csv into `folder`. With `scaling` (a dict of
+    float32 arrays x_mean, x_std, y_mean, y_std) the network works on
+    standardised values: they go into the weights file beside the weights, and
+    expected.csv is (network((x - x_mean) / x_std)) * y_std + y_mean."""
     arrays = {k: P[k].v.astype(np.float32) for k in sorted(P)}
+    if scaling is not None:
+        arrays.update({k: v.astype(np.float32) for k, v in scaling.items()})
     if weights == "safetensors":
         write_safetensors(os.path.join(folder, name + ".safetensors"), arrays)
     else:
         np.savez(os.path.join(folder, name + ".npz"), **arrays)
     x_rows = np.array([[float(f"{v:.6g}") for v in r] for r in x_rows])
-    y = predict(blocks, P, x_rows)
+    y = predict_scaled(blocks, P, x_rows, scaling)
     with open(os.path.join(folder, "inputs.csv"), "w") as fh:
         fh.write(",".join(in_names) + "\n")
         for r in x_rows:
@@ -512,11 +525,13 @@ def fit(blocks, P, rng, z, target, loss_fn, epochs, lr0, report, batch=128, bloc
 
 
 def adaptive_regression_sample(name, blocks, block, seed, make_data, sizes, epochs, lr0,
-                               rmse_text, held_out, in_names, out_names, folder, weights="npz"):
+                               rmse_text, held_out, in_names, out_names, folder, weights="npz", fold=True):
     """The whole run of a regression sample with one adaptive continuous block
     named `block`: data from make_data(rng, n) for sizes = (train, held out),
     standardised inputs and targets, mean squared error, scaling folded into
-    the first and last layers, float32 weights, then 40 held-out rows whose
+    the first and last layers (or, with fold=False, stored in the weights
+    file as x_mean, x_std, y_mean, y_std for the description's 'standardised'),
+    float32 weights, then 40 held-out rows whose
     every solver decision has |err - 1| >= 0.05 written out with save_sample.
     rmse_text(rmse) words the per-output RMSE of the epoch lines;
     held_out(err, rmse, y) prints the sample's own summary of the final weights
@@ -534,10 +549,16 @@ def adaptive_regression_sample(name, blocks, block, seed, make_data, sizes, epoc
         print(f"epoch {ep + 1:3d}  train loss {loss:.5f}  most attempts {most}"
               f"  held-out RMSE {rmse_text(rmse)}")
     fit(blocks, P, rng, z_tr, t_tr, mse_loss, epochs, lr0, report, block=block)
-    fold_input_scaling(blocks, P, mu, sd)
-    fold_output_scaling(blocks, P, ymu, ysd)
+    scaling = None
+    if fold:
+        fold_input_scaling(blocks, P, mu, sd)
+        fold_output_scaling(blocks, P, ymu, ysd)
+    else:
+        # The description states the standardisation ('standardised' on input and output).
+        scaling = {"x_mean": mu.astype(np.float32), "x_std": sd.astype(np.float32),
+                   "y_mean": ymu.astype(np.float32), "y_std": ysd.astype(np.float32)}
     to_float32(P)
-    err = predict(blocks, P, x_te) - y_te
+    err = predict_scaled(blocks, P, x_te, scaling) - y_te
     held_out(err, np.sqrt(np.mean(err ** 2, axis=0)), y_te)
     status, attempts, accepted, margin = STATS[block]
     max_steps = next(b for b in blocks if isinstance(b, Continuous) and b.name == block).solver["max_steps"]
@@ -545,7 +566,7 @@ def adaptive_regression_sample(name, blocks, block, seed, make_data, sizes, epoc
           f" max {attempts.max()}, mean {attempts.mean():.2f},"
           f" rejected in total {int(np.sum(attempts - accepted))} (max-steps {max_steps})")
     order = pick_rows(40, attempts, accepted, margin)
-    save_sample(name, blocks, P, x_te[order[:40]], in_names, out_names, folder, weights)
+    save_sample(name, blocks, P, x_te[order[:40]], in_names, out_names, folder, weights, scaling)
     status, attempts, accepted, margin = STATS[block]
     print(f"inputs.csv rows: attempts min {attempts.min()}, max {attempts.max()},"
           f" rows with a rejection {int(np.sum(attempts > accepted))},"

@@ -21,8 +21,10 @@ Training: mean squared error on standardised targets, Adam, mini-batches of
 bogacki-shampine, rtol 1e-3, atol 1e-4, first step 0.1; each row's steps
 are chosen by the controller exactly as deployed (DEVELOPERS.md "Integrator
 semantics"), then the gradient flows through the accepted steps with their
-step sizes held constant. Input and output scaling are folded into the first
-and last layers afterwards.
+step sizes held constant. The input and output standardisation (the training
+set's column means and standard deviations) are stored in soil_probe.npz as
+x_mean, x_std, y_mean, y_std, and the description applies them ('standardised'
+on its input and output): the deployed model reads the probe's raw values.
 
 Writes soil_probe.npz, inputs.csv and expected.csv as described at
 trainlib.adaptive_regression_sample, which runs all of the above.
@@ -90,7 +92,7 @@ def main():
     tl.adaptive_regression_sample(
         "soil_probe", BLOCKS, "soak", seed=4417, make_data=make_data, sizes=(6000, 1500),
         epochs=80, lr0=4e-3, rmse_text=lambda r: f"water {r[0]:.3f} %, pore EC {r[1]:.3f} dS/m",
-        held_out=held_out, in_names=IN_NAMES, out_names=OUT_NAMES, folder=HERE)
+        held_out=held_out, in_names=IN_NAMES, out_names=OUT_NAMES, folder=HERE, fold=False)
 
 
 if __name__ == "__main__":

@@ -6,7 +6,9 @@
 // (rtol 1e-3, atol 1e-4, at most 40 attempts, first step 0.1, integral
 // controller, safety 0.9, factors 0.2 to 10) written out in
 // baseline_stepping.hpp, float32 like the emitted float32 code. The weights
-// come from the sample's weights file through the compiler's reader.
+// come from the sample's weights file through the compiler's reader, with the
+// standardisation the description states: (x - x_mean) / x_std in,
+// y * y_std + y_mean out.
 //
 // The generic stepper is not first-same-as-last: it evaluates the fourth stage
 // at (t + h, y_new) but does not hand it back. The field keeps its last
@@ -44,6 +46,8 @@ BogackiShampine bogacki_shampine() {
 }
 
 struct SoilProbe {
+    Eigen::Matrix<float, 5, 1> x_mean, x_std;
+    Eigen::Matrix<float, 2, 1> y_mean, y_std;
     Eigen::Matrix<float, 10, 5> lift_w;
     Lifted lift_b;
     Eigen::Matrix<float, 10, 10> p1_w, p2_w;
@@ -57,6 +61,10 @@ struct SoilProbe {
     mutable BogackiShampine stepper = bogacki_shampine();  // scratch stages only
 
     explicit SoilProbe(const Weights& w) {
+        w.get("x_mean", x_mean);
+        w.get("x_std", x_std);
+        w.get("y_mean", y_mean);
+        w.get("y_std", y_std);
         w.get("lift.weight", lift_w);
         w.get("lift.bias", lift_b);
         w.get("p1.weight", p1_w);
@@ -82,7 +90,8 @@ struct SoilProbe {
     }
 
     bool infer(const float* input, float* output, std::uint32_t& field_evals) const {
-        const Eigen::Map<const Eigen::Matrix<float, 5, 1>> x(input);
+        const Eigen::Matrix<float, 5, 1> x =
+            ((Eigen::Map<const Eigen::Matrix<float, 5, 1>>(input) - x_mean).array() / x_std.array()).matrix();
         const Lifted lifted = (lift_w * x + lift_b).array().tanh().matrix();
         // silu(z) = z / (1 + exp(-z))
         const Eigen::Array<float, 10, 1> z = (p1_w * lifted + p1_b).array();
@@ -107,7 +116,7 @@ struct SoilProbe {
         field_evals = evals;
 
         Eigen::Map<Eigen::Matrix<float, 2, 1>> y(output);
-        y = head_w * h + head_b;
+        y = ((head_w * h + head_b).array() * y_std.array()).matrix() + y_mean;
         return ok;
     }
 };

@@ -162,7 +162,7 @@ TEST(EvalKeepGoing, WritesAResultColumn) {
     std::istringstream got(test::read_text(dir / "out.csv"));
     std::istringstream want(test::read_text(sample / "expected.csv"));
     std::getline(got, line);
-    EXPECT_EQ(line, "estimate.0,estimate.1,result");
+    EXPECT_EQ(line, "water_pct (%),pore_ec_dsm (dS/m),result");  // the description's names and units
     std::getline(want, line);  // its own header
     for (int row = 1; row <= 5; ++row) {
         std::string g, w;
