@@ -410,8 +410,12 @@ TEST(Layout, ModelWideLayoutBindsNumpyInOutWeights) {
 // PyTorch trainer's outputs (expected.csv) again.
 TEST(Layout, TransposedGatedLayerGivesTheTrainersOutputs) {
     const fs::path sample = fs::path(MEANDER_SOURCE_DIR) / "samples" / "parcel_chill";
+    // The sample's own weights file, whatever its format (the description names it).
+    std::string text = read_text(sample / "parcel_chill.mnd");
+    const std::size_t first = text.find("weights \"") + 9, last = text.find('"', first);
+    const std::string weights = text.substr(first, last - first);
     Diagnostics diags;
-    auto set = read_weights((sample / "parcel_chill.npz").string(), diags);
+    auto set = read_weights((sample / weights).string(), diags);
     ASSERT_TRUE(set) << diags.render();
     for (Tensor& t : set->tensors) {
         if (t.name != "cell.weight_ih" && t.name != "cell.weight_hh") continue;
@@ -424,8 +428,7 @@ TEST(Layout, TransposedGatedLayerGivesTheTrainersOutputs) {
     }
     const fs::path dir = scratch_dir("test_standardise", "gated");
     write_text(dir / "p.mnw", write_listing(*set));
-    std::string text = read_text(sample / "parcel_chill.mnd");
-    text.replace(text.find("parcel_chill.npz"), std::string("parcel_chill.npz").size(), "p.mnw");
+    text.replace(first, last - first, "p.mnw");
     text.replace(text.find("gated cell: 1 -> 8"), std::string("gated cell: 1 -> 8").size(), "gated cell: 1 -> 8, transposed");
     write_text(dir / "p.mnd", text);
     const LoadedModel l = load(dir / "p.mnd");
