@@ -27,7 +27,7 @@
 
 // Shared by this header and its source from the same meander run; the source refuses
 // any other header.
-#define TINY_ADAPTIVE_MEANDER_STAMP 0x2197cf099c6961eaULL
+#define TINY_ADAPTIVE_MEANDER_STAMP 0x41eab9b390569b96ULL
 
 #include <cstddef>
 #include <cstdint>
@@ -101,6 +101,11 @@ const char* result_name(result r) noexcept;
 // bits (no FMA contraction, rounding to nearest, subnormals kept); the
 // self-test reports it.
 bool build_conditions_hold() noexcept;
+
+// The values' names (from the description's `names`, else "vector.index") and units
+// ("" where none is given), in the order of input and output.
+extern const char* const input_names[input_size];
+extern const char* const output_names[output_size];
 
 }  // namespace tiny_adaptive
 

@@ -26,7 +26,7 @@
 
 // Shared by this header and its source from the same meander run; the source refuses
 // any other header.
-#define TINY_BACKWARD_MEANDER_STAMP 0xb3555e708b62f25dULL
+#define TINY_BACKWARD_MEANDER_STAMP 0xf07f74f9e2ce7a8fULL
 
 #include <cstddef>
 #include <cstdint>
@@ -100,6 +100,11 @@ const char* result_name(result r) noexcept;
 // bits (no FMA contraction, rounding to nearest, subnormals kept); the
 // self-test reports it.
 bool build_conditions_hold() noexcept;
+
+// The values' names (from the description's `names`, else "vector.index") and units
+// ("" where none is given), in the order of input and output.
+extern const char* const input_names[input_size];
+extern const char* const output_names[output_size];
 
 }  // namespace tiny_backward
 

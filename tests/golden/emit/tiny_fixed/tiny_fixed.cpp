@@ -22,7 +22,7 @@
 #include <cstdint>
 #include <cstring>
 
-#if !defined(TINY_FIXED_MEANDER_STAMP) || TINY_FIXED_MEANDER_STAMP != 0xd4a4eea55cfe8837ULL
+#if !defined(TINY_FIXED_MEANDER_STAMP) || TINY_FIXED_MEANDER_STAMP != 0x7a4c48cd57eb2d7dULL
 #error "tiny_fixed.hpp is not the header generated with this source: regenerate both"
 #endif
 
@@ -330,6 +330,16 @@ result block_glide(real* work, const real* in, real* out, counters& count) noexc
 }
 
 }  // namespace
+
+const char* const input_names[input_size] = {"x.0", "x.1"};
+const char* const output_names[output_size] = {"y.0", "y.1"};
+
+std::size_t most_probable(const real* output) noexcept {
+    std::size_t best = 0;
+    for (std::size_t i = 1; i < output_size; ++i)
+        if (output[i] > output[best]) best = i;
+    return best;
+}
 
 result infer(context& ctx, const real* input, real* output) noexcept {
     ctx.count = counters{0u, 0u, 0u};
