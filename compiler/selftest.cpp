@@ -40,15 +40,16 @@ struct self_test_report {{
                                       // differ from other targets' (FMA contraction, fast-math, ...)
 }};
 
-// Runs every golden vector through {} with `ctx` (overwriting {}). A sensible
-// tolerance on a target: 1e-4 for float32, 1e-10 for float64 (the kernels give the
-// same float32 bits on every core built as the banner says; the tolerance covers a
-// build that is not).
+{}
 self_test_report self_test(context& ctx, real tolerance) noexcept;
 
 )",
-                     stream ? "observe, resetting it where a golden sequence begins" : "infer",
-                     stream ? "its state, work and counters" : "its work and counters");
+                     stream ? "// Runs every golden observation through observe with `ctx` (resetting it where a\n"
+                              "// golden sequence begins; overwriting its state, work and counters). A sensible\n"
+                              "// tolerance on a target: 1e-4 for float32, 1e-10 for float64."
+                            : "// Runs every golden vector through infer with `ctx` (overwriting its work and\n"
+                              "// counters). A sensible tolerance on a target: 1e-4 for float32 (the target's\n"
+                              "// math library and FMA contraction change the last bits), 1e-10 for float64.");
     h += fmt::format("}}  // namespace {}\n\n#endif  // MEANDER_GENERATED_{}_SELFTEST_HPP\n", name, M);
 
     std::vector<double> in, out;
