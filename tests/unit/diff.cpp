@@ -548,7 +548,7 @@ TEST(Diff, StreamingSampleParts) {
         text.replace(at, from.size(), to);
     }
     test::write_text(scratch / "parcel_chill.mnd", text);
-    fs::copy_file(dir / "parcel_chill.npz", scratch / "parcel_chill.npz", fs::copy_options::overwrite_existing);
+    fs::copy_file(dir / "parcel_chill.pt", scratch / "parcel_chill.pt", fs::copy_options::overwrite_existing);
     auto a = load(dir / "parcel_chill.mnd"), b = load(scratch / "parcel_chill.mnd");
     ASSERT_TRUE(a && b);
     b->stream->update_layers[1].dense.weight(2, 1) += 0.25;
