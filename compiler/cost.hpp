@@ -186,6 +186,7 @@ struct CostReport {
     std::vector<MeasuredCycles> measured_cycles;  // one per emulated core (cortex-m4f, cortex-m3, cortex-m7)
     std::string cycles_not_measured;              // why there is no measured figure (empty when there is)
     bool measured_on_zero_row = false;            // no --input: one row of zeros was run
+    bool streaming = false;                       // a streaming model's: per observation (observe)
 };
 
 // `model` must have passed check_model and bind_weights (the emitter needs
@@ -194,5 +195,9 @@ std::optional<CostReport> measure_cost(const Model& model, const CostOptions& op
 
 std::string render_cost_text(const CostReport& report);
 std::string render_cost_json(const CostReport& report);
+// The measured cycles' part of each (also for a streaming model's cost): the text
+// section, and the JSON array "measured" (as JSON text).
+std::string render_measured_text(const CostReport& report);
+std::string render_measured_json(const CostReport& report);
 
 }  // namespace meander

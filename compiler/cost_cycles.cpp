@@ -25,6 +25,7 @@
 #include "math_kernels_text.hpp"
 #include "cost_object.hpp"
 #include "cycle_prices.hpp"
+#include "emit/render.hpp"
 #include "selftest.hpp"
 
 extern char** environ;
@@ -430,8 +431,26 @@ bool measure_cycles(const Model& model, const std::vector<EmittedFile>& files, c
         qemu_version = qemu_version.substr(0, qemu_version.find(' '));
     }
 
+    // The parts the block hook marks, in order: the top-level blocks; a streaming model's
+    // evolution (0), update (1) and readout blocks (2 on).
     std::map<std::string, LayerUse> layers;
-    for (std::size_t i = 0; i < model.blocks.size(); ++i) collect_layers(model.blocks[i], static_cast<int>(i), false, layers);
+    std::vector<std::string> part_names;
+    std::vector<int> continuous;
+    const int first_readout = model.stream ? 2 : 0;
+    if (model.stream) {
+        const Stream& st = *model.stream;
+        for (const Block& f : st.evolve.field) collect_layers(f, 0, !st.evolve.blend, layers);
+        if (!st.evolve.blend) continuous.push_back(0);
+        part_names.push_back(st.evolve.name);
+        // The GRU cell's halves are the kernels X_ih and X_hh.
+        for (const Block& u : st.update_layers) layers[emit_detail::layer_symbol(model, u.dense)] = LayerUse{&u.dense, 1, false};
+        part_names.push_back(st.update_name);
+    }
+    for (std::size_t i = 0; i < model.blocks.size(); ++i) {
+        collect_layers(model.blocks[i], first_readout + static_cast<int>(i), false, layers);
+        part_names.push_back(block_name(model.blocks[i]));
+        if (model.blocks[i].kind == Block::Kind::continuous) continuous.push_back(first_readout + static_cast<int>(i));
+    }
     std::map<std::string, int> layer_index;
     for (auto& [name, use] : layers) {
         use.index = static_cast<int>(layer_index.size());
@@ -444,9 +463,6 @@ bool measure_cycles(const Model& model, const std::vector<EmittedFile>& files, c
         for (auto it = std::sregex_iterator(text.begin(), text.end(), def); it != std::sregex_iterator(); ++it)
             kernels.insert((*it)[1].str());
     }
-    std::vector<int> continuous;
-    for (std::size_t i = 0; i < model.blocks.size(); ++i)
-        if (model.blocks[i].kind == Block::Kind::continuous) continuous.push_back(static_cast<int>(i));
 
     const std::string hook = emit_detail::macro_prefix(model.name) + "_BLOCK_HOOK";
     const std::string marks =
@@ -489,10 +505,11 @@ bool measure_cycles(const Model& model, const std::vector<EmittedFile>& files, c
         for (const std::string& f : core_figures(core).cross_flags) flags += f + " ";
         flags += "-std=c++17 -Os -fno-exceptions -fno-rtti -ffunction-sections -fdata-sections -ffp-contract=off";
         const std::string build = fmt::format(
-            "cd {} && {} {} -g -I. -DMEANDER_MODEL={} '-DMEANDER_MODEL_HEADER=\"{}.hpp\"' -DMEANDER_CYCLE_MARKS "
+            "cd {} && {} {} -g -I. -DMEANDER_MODEL={} '-DMEANDER_MODEL_HEADER=\"{}.hpp\"' -DMEANDER_CYCLE_MARKS{} "
             "-include cycle_marks.hpp startup.cpp board_main.cpp {}.cpp -T mps2.ld -nostartfiles --specs=rdimon.specs "
             "-Wl,--gc-sections -o app.elf",
-            shell_quote(dir.string()), cxx, flags, model.name, model.name, shell_quote(model.name));
+            shell_quote(dir.string()), cxx, flags, model.name, model.name, model.stream ? " -DMEANDER_STREAMING" : "",
+            shell_quote(model.name));
         if (!run_logged(build, dir / "build.log")) {
             core_diags.error(cxx, fmt::format("building the emitted code with the board driver for {} failed:{}",
                                          core_name(core), tail_of(dir / "build.log", 12)));
@@ -643,11 +660,11 @@ bool measure_cycles(const Model& model, const std::vector<EmittedFile>& files, c
         }
         mc.cycles = spread_of(cyc);
         mc.instructions = spread_of(ins);
-        for (std::size_t b = 0; b < nblocks && b < model.blocks.size(); ++b) {
+        for (std::size_t b = 0; b < nblocks && b < part_names.size(); ++b) {
             std::vector<double> v;
             for (const RowCycles& rc : measured_rows)
                 if (b < rc.blocks.size()) v.push_back(rc.blocks[b]);
-            mc.blocks.push_back({block_name(model.blocks[b]), spread_of(v)});
+            mc.blocks.push_back({part_names[b], spread_of(v)});
         }
         const std::set<std::string> unpriced = reader.unpriced();
         mc.unpriced.assign(unpriced.begin(), unpriced.end());

@@ -22,7 +22,9 @@ struct CyclesOptions {
 };
 
 // Builds and runs `files` (the emitted float32 or float64 code) on each core in
-// `cores`. `rows` are the inputs; `evals_per_block[r][b]` the field evaluations
+// `cores`. `rows` are the inputs (a streaming model's: {first row of its sequence
+// (1/0), gap, observation...}, and its parts count as blocks: the evolution 0, the
+// update 1, readout block i 2 + i); `evals_per_block[r][b]` the field evaluations
 // of top-level block b in row r by the reference (for counting activations when
 // the model has more than one continuous block; with one, the emitted code's own
 // count, which the driver prints, is used). Returns false with a diagnostic when a build or run

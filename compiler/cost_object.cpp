@@ -260,8 +260,8 @@ bool measure_object(const Model& model, const std::vector<EmittedFile>& files, c
         }
     }
 
-    // The entry point: `NAME::infer(` in the .su and call-graph files.
-    const std::string entry = model.name + "::infer(";
+    // The entry point: `NAME::infer(` (a streaming model: `NAME::observe(`) in the .su and call-graph files.
+    const std::string entry = model.name + (model.stream ? "::observe(" : "::infer(");
     for (const auto& [fn, bytes] : frames) {
         if (fn.find(entry) == std::string::npos) continue;
         rep.entry_stack_bytes = bytes;

@@ -60,7 +60,10 @@ std::string spread3(const CycleSpread& s) {
     return fmt::format("{:.0f} / {:.0f} / {:.0f}", s.min, s.median, s.max);
 }
 
+}  // namespace
+
 std::string render_measured_text(const CostReport& r) {
+    const char* per = r.streaming ? "observation" : "inference";
     std::string t;
     if (r.measured_cycles.empty()) {
         t += fmt::format("\nmeasured cycles: none ({}); the figures above are the static estimate only\n",
@@ -68,7 +71,7 @@ std::string render_measured_text(const CostReport& r) {
         return t;
     }
     const MeasuredCycles& first = r.measured_cycles.front();
-    t += fmt::format("\nmeasured cycles per inference on the emulated cores ({} row{}{}; min / median / max)\n", first.rows,
+    t += fmt::format("\nmeasured cycles per {} on the emulated cores ({} row{}{}; min / median / max)\n", per, first.rows,
                      first.rows == 1 ? "" : "s", r.measured_on_zero_row ? " of zeros: no --input given" : "");
     std::vector<std::vector<std::string>> rows;
     rows.push_back({"core", "board", "cycles", "instructions", "cycles/MAC", "cycles/activation"});
@@ -77,9 +80,9 @@ std::string render_measured_text(const CostReport& r) {
                         m.dense_cycles_per_mac < 0 ? "-" : fmt::format("{:.2f}", m.dense_cycles_per_mac),
                         m.cycles_per_activation < 0 ? "-" : fmt::format("{:.1f}", m.cycles_per_activation)});
     t += table(rows, 2);
-    t += "per block (median cycles per inference)\n";
+    t += fmt::format("per {} (min / median / max cycles per {})\n", r.streaming ? "part" : "block", per);
     std::vector<std::vector<std::string>> b;
-    std::vector<std::string> head{"block"};
+    std::vector<std::string> head{r.streaming ? "part" : "block"};
     for (const MeasuredCycles& m : r.measured_cycles) head.push_back(std::string(core_name(m.core)));
     b.push_back(head);
     for (std::size_t i = 0; i < first.blocks.size(); ++i) {
@@ -96,8 +99,9 @@ std::string render_measured_text(const CostReport& r) {
         if (!m.unpriced.empty())
             t += fmt::format("  {}: not in the timing table, priced 1 cycle: {}\n", core_name(m.core), fmt::join(m.unpriced, ", "));
     }
-    t += "how: the emitted code built with meander's bare-metal board driver, run on qemu's MPS2 boards with\n"
-         "the translation log on; every instruction between the driver's marks around infer priced with:\n";
+    t += "how: the emitted code built with meander's bare-metal board driver, run on qemu's MPS2 boards with\n";
+    t += fmt::format("the translation log on; every instruction between the driver's marks around {} priced with:\n",
+                     r.streaming ? "observe" : "infer");
     for (const MeasuredCycles& m : r.measured_cycles) {
         t += fmt::format("  {}: {}\n", core_name(m.core), m.timings);
         t += fmt::format("  {:{}}  built with {}; {}\n", "", core_name(m.core).size(), m.compiler, m.emulator);
@@ -106,8 +110,6 @@ std::string render_measured_text(const CostReport& r) {
          "  cycles/activation: the activation kernels per evaluation; the block hook's calls are counted.\n";
     return t;
 }
-
-}  // namespace
 
 std::string render_cost_text(const CostReport& r) {
     std::string t;
@@ -303,6 +305,13 @@ std::string render_cost_json(const CostReport& r) {
         cyc.push_back(o);
     }
     j["cycles"] = cyc;
+    j["measured"] = json::parse(render_measured_json(r));
+    if (!r.cycles_not_measured.empty()) j["measured_skipped"] = r.cycles_not_measured;
+    return j.dump(2) + "\n";
+}
+
+std::string render_measured_json(const CostReport& r) {
+    using json = nlohmann::ordered_json;
     auto spread3j = [](const CycleSpread& s) { return json{{"min", s.min}, {"median", s.median}, {"max", s.max}}; };
     json measured = json::array();
     for (const MeasuredCycles& m : r.measured_cycles) {
@@ -327,9 +336,7 @@ std::string render_cost_json(const CostReport& r) {
                             {"other_cycles_mean", m.other_cycles},
                             {"unpriced_mnemonics", m.unpriced}});
     }
-    j["measured"] = measured;
-    if (!r.cycles_not_measured.empty()) j["measured_skipped"] = r.cycles_not_measured;
-    return j.dump(2) + "\n";
+    return measured.dump();
 }
 
 }  // namespace meander

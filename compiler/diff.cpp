@@ -14,6 +14,7 @@
 
 #include "../runtime/evaluate.hpp"
 #include "../runtime/integrate.hpp"
+#include "../runtime/stream.hpp"
 #include "format.hpp"
 
 namespace meander {
@@ -27,8 +28,9 @@ struct Entry {
 };
 
 
-std::string kind_name(Block::Kind k) {
-    switch (k) {
+std::string kind_name(const Block& b) {
+    if (b.kind == Block::Kind::continuous && b.continuous.blend) return "blend";
+    switch (b.kind) {
         case Block::Kind::residual: return "residual";
         case Block::Kind::continuous: return "continuous";
         case Block::Kind::dense: break;
@@ -55,7 +57,34 @@ std::string activation_text(const Dense& d) {
 }
 
 std::string interval_text(const Continuous& c) {
+    if (c.over_gap) return "[0, gap]";
     return fmt::format("[{}, {}]", format_number(c.t0), format_number(c.t1));
+}
+
+// A streaming model's evolution and update as blocks, so they diff like the readout's:
+// the evolution a continuous block (or blend), the update a merge layer or a GRU
+// cell's two halves, named CELL.ih and CELL.hh (the halves share the cell's name).
+std::vector<Block> stream_parts(const Model& m) {
+    std::vector<Block> parts;
+    if (!m.stream) return parts;
+    const Stream& st = *m.stream;
+    Block evolve;
+    evolve.kind = Block::Kind::continuous;
+    evolve.continuous = st.evolve;
+    parts.push_back(std::move(evolve));
+    for (std::size_t i = 0; i < st.update_layers.size(); ++i) {
+        Block b = st.update_layers[i];
+        if (st.update == Stream::Update::gated) b.dense.name += i == 0 ? ".ih" : ".hh";
+        parts.push_back(std::move(b));
+    }
+    return parts;
+}
+
+// The worst field evaluations of a continuous block; over a gap, at the model's largest.
+long worst_evals(const Continuous& c, const Model& m) {
+    if (c.blend) return 0;
+    if (c.over_gap && m.stream) return worst_evolve_field_evals(*m.stream);
+    return worst_field_evals(c.solver);
 }
 
 std::string summary(const Block& b) {
@@ -68,6 +97,7 @@ std::string summary(const Block& b) {
         case Block::Kind::residual: return fmt::format("residual {}", b.residual.width);
         case Block::Kind::continuous: {
             const Continuous& c = b.continuous;
+            if (c.blend) return fmt::format("blend {}", c.width);
             return fmt::format("continuous {}, t in {}, augment {}, solver {}", c.width, interval_text(c), c.augment,
                                format_solver(c.solver));
         }
@@ -92,6 +122,7 @@ std::vector<std::string> solver_settings(const SolverSpec& a, const SolverSpec& 
     };
     cmp("method", a.method, b.method);
     cmp("steps", a.steps, b.steps);
+    cmp("steps-per-unit", a.steps_per_unit, b.steps_per_unit);
     cmp("rtol", a.rtol, b.rtol);
     cmp("atol", a.atol, b.atol);
     cmp("max-steps", a.max_steps, b.max_steps);
@@ -174,15 +205,15 @@ void compare_dense(const Dense& a, const Dense& b, double tolerance, ItemDiff& i
         item.tensors.push_back(compare_tensor("bias", a.bias_tensor, b.bias_tensor, a.bias, b.bias, true, tolerance));
 }
 
-void compare_continuous(const Continuous& a, const Continuous& b, ItemDiff& item) {
+void compare_continuous(const Continuous& a, const Continuous& b, const Model& ma, const Model& mb, ItemDiff& item) {
     setting(item.settings, "width", a.width, b.width);
     setting(item.settings, "augment", a.augment, b.augment);
     setting(item.settings, "interval", interval_text(a), interval_text(b));
     solver_change(item.settings, "solver", &a.solver, &b.solver);
     solver_change(item.settings, "trained-with", a.trained ? &*a.trained : nullptr, b.trained ? &*b.trained : nullptr);
     item.continuous = true;
-    item.field_evals_before = worst_field_evals(a.solver);
-    item.field_evals_after = worst_field_evals(b.solver);
+    item.field_evals_before = worst_evals(a, ma);
+    item.field_evals_after = worst_evals(b, mb);
     item.field_macs_before = field_macs(a);
     item.field_macs_after = field_macs(b);
 }
@@ -193,7 +224,7 @@ ItemDiff one_sided(const Entry& e, ItemDiff::Presence presence) {
     item.presence = presence;
     const bool after = presence == ItemDiff::Presence::added;
     (after ? item.path_after : item.path_before) = e.path;
-    (after ? item.kind_after : item.kind_before) = kind_name(e.block->kind);
+    (after ? item.kind_after : item.kind_before) = kind_name(*e.block);
     (after ? item.summary_after : item.summary_before) = summary(*e.block);
     return item;
 }
@@ -243,14 +274,14 @@ void mark_moved(const std::vector<Entry>& ea, const std::vector<Entry>& eb, std:
 
 long parameters(const Model& m) {
     long n = 0;
-    for_each_dense(m.blocks, [&](const Dense& d) { n += static_cast<long>(d.out) * d.in_total() + (d.has_bias ? d.out : 0); });
+    for_each_model_dense(m, [&](const Dense& d) { n += static_cast<long>(d.out) * d.in_total() + (d.has_bias ? d.out : 0); });
     return n;
 }
 
 // Every dense layer's matrices must have the shape its declaration gives.
 bool bound(const Model& m, const char* side, Diagnostics& diags) {
     bool ok = true;
-    for_each_dense(m.blocks, [&](const Dense& d) {
+    for_each_model_dense(m, [&](const Dense& d) {
         const bool w = d.weight.rows() == d.out && d.weight.cols() == d.in_total();
         const bool bias = d.bias.size() == (d.has_bias ? d.out : 0);
         if (w && bias) return;
@@ -295,8 +326,19 @@ std::optional<ModelDiff> diff_models(const Model& a, const Model& b, const DiffO
     setting(d.model, "input", port_text(a.input_name, a.input_size), port_text(b.input_name, b.input_size));
     setting(d.model, "output", port_text(a.output_name, a.output_size), port_text(b.output_name, b.output_size));
 
+    auto state_text = [](const Model& m) {
+        return m.stream ? fmt::format("{}[{}], largest-gap {}", m.stream->state_name, m.stream->state_size,
+                                      format_number(m.stream->largest_gap))
+                        : std::string("none (not streaming)");
+    };
+    setting(d.model, "state", state_text(a), state_text(b));
+
+    // A streaming model's evolution and update first, then the blocks (its readout).
+    const std::vector<Block> parts_a = stream_parts(a), parts_b = stream_parts(b);
     std::vector<Entry> ea, eb;
+    flatten(parts_a, "", "", ea);
     flatten(a.blocks, "", "", ea);
+    flatten(parts_b, "", "", eb);
     flatten(b.blocks, "", "", eb);
     std::map<std::string, const Entry*> by_name_a;
     for (const Entry& e : ea) by_name_a[block_name(*e.block)] = &e;
@@ -315,8 +357,8 @@ std::optional<ModelDiff> diff_models(const Model& a, const Model& b, const DiffO
         item.name = block_name(*e.block);
         item.path_before = e_a.path;
         item.path_after = e.path;
-        item.kind_before = kind_name(e_a.block->kind);
-        item.kind_after = kind_name(e.block->kind);
+        item.kind_before = kind_name(*e_a.block);
+        item.kind_after = kind_name(*e.block);
         item.summary_before = summary(*e_a.block);
         item.summary_after = summary(*e.block);
         if (e_a.block->kind == e.block->kind) {
@@ -325,7 +367,9 @@ std::optional<ModelDiff> diff_models(const Model& a, const Model& b, const DiffO
                 case Block::Kind::residual:
                     setting(item.settings, "width", e_a.block->residual.width, e.block->residual.width);
                     break;
-                case Block::Kind::continuous: compare_continuous(e_a.block->continuous, e.block->continuous, item); break;
+                case Block::Kind::continuous:
+                    compare_continuous(e_a.block->continuous, e.block->continuous, a, b, item);
+                    break;
             }
         }
         d.items.push_back(std::move(item));

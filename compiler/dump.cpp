@@ -11,6 +11,8 @@ namespace {
 
 std::string solver_text(const SolverSpec& s) {
     const Tableau* t = find_tableau(s.method);
+    if (t && !t->adaptive() && s.steps == 0 && s.steps_per_unit > 0)
+        return fmt::format("{}, steps-per-unit {}", s.method, s.steps_per_unit);
     if (t && !t->adaptive()) return fmt::format("{}, steps {}", s.method, s.steps);
     std::string out = fmt::format("{}, rtol {}, atol {}, max-steps {}", s.method, s.rtol, s.atol, s.max_steps);
     if (s.first_step > 0) out += fmt::format(", first-step {}", s.first_step);
@@ -91,6 +93,26 @@ std::string dump_model(const Model& m) {
     std::string out = fmt::format("model {}\nweights \"{}\"\ninput {}[{}]\n", m.name, m.weights_path, m.input_name,
                                   m.input_size);
     if (const std::string v = describe_vector(m.input_info, m.input_name, m.input_size); !v.empty()) out += "  " + v + "\n";
+    if (m.stream) {
+        const Stream& st = *m.stream;
+        out += fmt::format("state {}[{}] @{}:{}  largest-gap {}\n", st.state_name, st.state_size, st.state_loc.line,
+                           st.state_loc.col, st.largest_gap);
+        const Continuous& c = st.evolve;
+        if (c.blend) {
+            out += fmt::format("blend {} @{}:{}  width {}  (heads f, g, k: its last three layers)\n", c.name, c.loc.line,
+                               c.loc.col, c.width);
+            dump_blocks(c.field, 1, out);
+        } else {
+            out += fmt::format("continuous {} @{}:{}  width {}  t in [0, gap]\n", c.name, c.loc.line, c.loc.col, c.width);
+            dump_blocks(c.field, 1, out);
+            out += fmt::format("  solver {}\n", solver_text(c.solver));
+            if (c.trained) out += fmt::format("  trained-with {}\n", solver_text(*c.trained));
+        }
+        out += fmt::format("{} {} @{}:{}\n", st.update == Stream::Update::gated ? "gated" : "merge", st.update_name,
+                           st.update_loc.line, st.update_loc.col);
+        dump_blocks(st.update_layers, 1, out);
+        out += "readout\n";
+    }
     dump_blocks(m.blocks, 0, out);
     out += fmt::format("output {}[{}]\n", m.output_name, m.output_size);
     if (const std::string v = describe_vector(m.output_info, m.output_name, m.output_size); !v.empty()) out += "  " + v + "\n";

@@ -16,6 +16,9 @@ struct EmitOptions {
     // Self-test vectors: inputs and the outputs eval gives for them (empty: no self-test source).
     std::vector<std::vector<double>> self_test_inputs;
     std::vector<std::vector<double>> self_test_outputs;
+    // A streaming model's golden observations: each one's gap, and whether its sequence begins there.
+    std::vector<double> self_test_gaps;
+    std::vector<bool> self_test_first;
 };
 
 struct EmittedFile {
@@ -26,9 +29,7 @@ struct EmittedFile {
 std::vector<EmittedFile> emit_model(const Model& model, const EmitOptions& opts);
 
 // A streaming model (compiler/emit/stream.cpp): NAME.hpp and NAME.cpp with a context that
-// holds the state, reset(ctx) and observe(ctx, input, gap, output). Emittable when
-// stream_emit_unsupported gives an empty text (else it says why not).
-std::string stream_emit_unsupported(const Model& model);
+// holds the state, reset(ctx) and observe(ctx, input, gap, output).
 std::vector<EmittedFile> emit_stream(const Model& model, const EmitOptions& opts);
 
 }  // namespace meander

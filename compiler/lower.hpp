@@ -12,6 +12,7 @@
 #pragma once
 
 #include <cstddef>
+#include <optional>
 #include <string>
 #include <vector>
 
@@ -44,6 +45,7 @@ struct ContinuousPlan {
     std::size_t arg = 0;            // stage argument y + h sum_j a_ij k_j (and the initial step's Euler step)
     std::size_t y_new = 0;          // adaptive only: the propagated solution of an attempt
     bool adaptive = false;
+    bool over_gap = false;          // a streaming model's evolution: t from 0 to the gap given at run time
     Chain field;                    // chain_in = the point, chain_out = the derivative
     long macs_per_field_eval = 0;
     long worst_field_evals = 0;
@@ -66,12 +68,29 @@ struct Buffer {
     std::string role;
 };
 
+// A streaming model (Model::stream): per observation the state, copied from the
+// context into `h`, evolves over the gap (an ODE's plan, or a blend's backbone
+// and heads), is updated (a GRU cell's two halves, or a merge layer on [h; x])
+// and read out by `top` (chain_in = h, chain_out = the caller's output). The
+// evolution, the update and the readout run one after another, so their
+// regions all start after h and share addresses.
+struct StreamPlan {
+    std::size_t h = 0;              // the new state, S reals
+    ContinuousPlan evolve;          // an ODE evolution (block == nullptr for a blend)
+    Chain backbone;                 // blend: chain_in = h, chain_out = bb (empty: the heads read h)
+    std::size_t bb = 0, f = 0, g = 0, k = 0;
+    bool gated = false;             // the update: a GRU cell (else a merge layer)
+    std::size_t gi = 0, gh = 0;     // gated: W_ih x + b_ih and W_hh h + b_hh, 3S each
+    std::size_t hx = 0;             // merge: [h; x]
+};
+
 struct Lowered {
     std::string model_name;
     Precision precision = Precision::float32;
     int input_size = 0;
     int output_size = 0;
-    Chain top;                      // chain_in = caller's input, chain_out = caller's output
+    Chain top;                      // chain_in = caller's input (a streaming model: h), chain_out = caller's output
+    std::optional<StreamPlan> stream;
     std::vector<Buffer> buffers;    // in allocation order
     std::size_t workspace_size = 0; // reals
     std::size_t workspace_bytes = 0;
@@ -86,7 +105,8 @@ struct Lowered {
 // result points into `model`, which must outlive it.
 Lowered lower_model(const Model& model, Precision precision);
 
-// Every continuous block's plan, in model order (pointers into `lowered`).
+// Every continuous block's plan, in model order (a streaming model's evolution
+// first; pointers into `lowered`).
 std::vector<const ContinuousPlan*> continuous_plans(const Lowered& lowered);
 
 // Text for `--dump=lower`.

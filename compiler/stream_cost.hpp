@@ -1,7 +1,10 @@
 // The cost of a streaming model per observation: the worst case at the
 // largest gap (field evaluations, multiply-accumulates, estimated cycles),
-// and, over a sequence file, the measured spread. Flash, RAM and stack are
-// not measured for streaming models yet.
+// and, over a sequence file, the spread of field evaluations; flash, RAM and
+// stack of the emitted code compiled for the core (compiler/cost_object), and
+// cycles per observation measured on the emulated cores (compiler/cost_cycles:
+// the board driver observing the sequence file, the state reset at each
+// sequence; one sequence of one observation of zeros without a file).
 #pragma once
 
 #include <optional>
@@ -36,6 +39,16 @@ struct StreamCost {
     double worst_cycles = 0;        // worst_macs * cycles_per_mac (multiply-accumulates only)
     std::optional<ObservationSpread> field_evals;  // measured, with a sequence file
     std::optional<ObservationSpread> macs;
+    // The emitted code: RAM (the context: state, workspace and counters), and from the
+    // object compiled for the core (when the cross tools are there) code, constants,
+    // stack, and the measured cycles (object.streaming is set).
+    long state_size = 0;
+    long workspace_bytes = 0;
+    long context_bytes = 0;
+    CostReport object;
+    // Cycles of one observation at the largest gap after a reset (the values of the file's row
+    // with the largest gap, or zeros), per emulated core.
+    std::vector<MeasuredCycles> at_largest_gap;
 };
 
 // `rows`: a sequence file's rows, or empty.

@@ -154,7 +154,12 @@ std::string render_activation_kernels(Precision p, const std::set<Activation>& u
 
 std::string render_activations(const Emission& e) {
     std::set<Activation> used;
-    for_each_dense(e.model.blocks, [&](const Dense& d) { used.insert(d.act); });
+    for_each_model_dense(e.model, [&](const Dense& d) { used.insert(d.act); });
+    if (e.model.stream) {
+        // A GRU cell's gates, a blend's mix.
+        if (e.model.stream->update == Stream::Update::gated) used.insert({Activation::sigmoid, Activation::tanh});
+        if (e.model.stream->evolve.blend) used.insert(Activation::sigmoid);
+    }
     return render_activation_kernels(e.p, used, has_adaptive_block(e));
 }
 

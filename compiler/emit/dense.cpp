@@ -23,25 +23,26 @@ std::string acc_name(int r) { return fmt::format("a{}", r); }
 std::string render_dense_layers(const Emission& e) {
     std::string o;
     const int R = kDenseBlockRows;
-    for_each_dense(e.model.blocks, [&](const Dense& d) {
+    for_each_model_dense(e.model, [&](const Dense& d) {
+        const std::string sym = layer_symbol(e.model, d);
         const int cols = d.in_total();
         const int blocks = d.out / R;
         const int rest = d.out % R;
         const bool unroll = cols <= kUnrollInputs;
-        o += fmt::format("// dense {}: {}{} -> {}, {}; {} block{} of {} outputs{}{}\n", d.name, d.in,
+        o += fmt::format("// dense {}: {}{} -> {}, {}; {} block{} of {} outputs{}{}\n", sym, d.in,
                          d.time_input ? " + t" : "", d.out, activation_name(d.act), blocks, blocks == 1 ? "" : "s", R,
                          rest ? fmt::format(", {} output{} alone", rest, rest == 1 ? "" : "s") : "",
                          unroll && blocks ? ", inputs written out" : "");
-        o += fmt::format("void dense_{}(const real* __restrict x, {}real* __restrict y) noexcept {{\n", d.name,
+        o += fmt::format("void dense_{}(const real* __restrict x, {}real* __restrict y) noexcept {{\n", sym,
                          d.time_input ? "real t, " : "");
         // Through volatile copies of the addresses: where the indices are
         // constants (inputs written out, a single block) the compiler would
         // otherwise fold weights and biases into the code, out of their
         // arrays and the NAME_WEIGHTS_ATTR section.
-        o += fmt::format("    const real* const volatile w_at = w_{};\n", d.name);
+        o += fmt::format("    const real* const volatile w_at = w_{};\n", sym);
         o += "    const real* __restrict w = w_at;\n";
         if (d.has_bias) {
-            o += fmt::format("    const real* const volatile b_at = b_{};\n", d.name);
+            o += fmt::format("    const real* const volatile b_at = b_{};\n", sym);
             o += "    const real* __restrict b = b_at;\n";
         }
         if (blocks > 0) {

@@ -7,6 +7,7 @@
 
 #include "../../runtime/integrate.hpp"
 #include "../../runtime/math_kernels.hpp"
+#include "../../runtime/stream.hpp"
 #include "../format.hpp"
 #include "../source.hpp"
 #include "render.hpp"
@@ -61,23 +62,32 @@ std::string array_rows(const std::vector<double>& values, Precision p, int per_r
 
 namespace {
 
-void banner_blocks(std::string& o, const std::vector<Block>& blocks) {
-    for (const Block& b : blocks) {
-        if (b.kind != Block::Kind::continuous) continue;
-        const Continuous& c = b.continuous;
+// `largest_gap`: a streaming model's, for its evolution (over [0, gap]).
+void banner_block(std::string& o, const Continuous& c, double largest_gap) {
+    {
         const SolverSpec& s = c.solver;
         const Tableau* tb = find_tableau(s.method);
-        if (tb == nullptr) continue;
+        if (tb == nullptr) return;
         const bool adaptive = tb->adaptive() && s.steps == 0;
-        o += fmt::format("// continuous {}: state {} ({} + augment {}), t from {} to {}\n", c.name, c.state(), c.width,
-                         c.augment, format_double(c.t0), format_double(c.t1));
+        if (c.over_gap)
+            o += fmt::format("// continuous {}: state {}, t from 0 to the gap (at most {})\n", c.name, c.state(),
+                             format_double(largest_gap));
+        else
+            o += fmt::format("// continuous {}: state {} ({} + augment {}), t from {} to {}\n", c.name, c.state(), c.width,
+                             c.augment, format_double(c.t0), format_double(c.t1));
         o += fmt::format("//   method: {} (`{}`); coefficients from {}\n", tb->title, tb->key, tb->source);
         if (tb->adaptive())
             o += fmt::format("//   order {}, embedded order {}, {} stages, {}\n", tb->order, tb->embedded_order,
                              tb->stages, tb->fsal ? "FSAL (last stage = f(t + h, y_new))" : "not FSAL");
         else
             o += fmt::format("//   order {}, {} stages, not FSAL\n", tb->order, tb->stages);
-        if (!adaptive) {
+        if (!adaptive && c.over_gap) {
+            const long most = gap_steps(s, largest_gap);
+            o += fmt::format("//   fixed step: ceil({} * gap) steps, h = gap/steps; step i starts at t_i = i*h\n",
+                             format_double(s.steps_per_unit));
+            o += fmt::format("//   (from the index, never accumulated); at most {} steps, {} field evaluations\n", most,
+                             most * tb->stages);
+        } else if (!adaptive) {
             o += fmt::format("//   fixed step: {} steps, h = (T1 - T0)/{} = {}; step i starts at t_i = T0 + i*h\n",
                              s.steps, s.steps, format_double((c.t1 - c.t0) / s.steps));
             o += fmt::format("//   (from the index, never accumulated); {} field evaluations\n",
@@ -106,7 +116,7 @@ void banner_blocks(std::string& o, const std::vector<Block>& blocks) {
                              format_double(s.safety), format_double(s.min_factor), format_double(s.max_factor));
             o += fmt::format("//   factor is at most 1; a rejection scales |h| by max(min-factor, safety*err^(-1/{}))\n",
                              k);
-            o += fmt::format("//   worst case: {} field evaluations\n", worst_field_evals(s));
+            o += fmt::format("//   worst case: {} field evaluations{}\n", worst_field_evals(s), c.over_gap ? " per gap" : "");
         }
         if (c.trained) {
             // The whole training discretisation, so a review can see it is the deployed one.
@@ -115,6 +125,25 @@ void banner_blocks(std::string& o, const std::vector<Block>& blocks) {
                              same ? "the deployed solver" : "DIFFERS from the deployed solver");
         }
     }
+}
+
+void banner_blocks(std::string& o, const std::vector<Block>& blocks) {
+    for (const Block& b : blocks)
+        if (b.kind == Block::Kind::continuous) banner_block(o, b.continuous, 0.0);
+}
+
+void banner_stream(std::string& o, const Model& m) {
+    const Stream& st = *m.stream;
+    o += fmt::format("// streaming: state {}[{}] carried between observations; gaps from 0 to {}\n", st.state_name,
+                     st.state_size, format_double(st.largest_gap));
+    if (st.evolve.blend)
+        o += fmt::format("// blend {}: the closed-form continuous-time cell (Hasani et al. 2022), no solver\n",
+                         st.evolve.name);
+    else
+        banner_block(o, st.evolve, st.largest_gap);
+    o += fmt::format("// update {}: {}\n", st.update_name,
+                     st.update == Stream::Update::gated ? "a GRU cell (PyTorch GRUCell, gates r, z, n)"
+                                                        : "a dense layer on [state; observation]");
 }
 
 }  // namespace
@@ -143,6 +172,7 @@ std::string banner(const Model& model, const EmitOptions& opts, std::string_view
         o += "//   outputs and counters equal eval's bit for bit (the same operations in the same order);\n";
     }
     o += "//   build_conditions_hold() checks a build, the self-test reports it\n";
+    if (model.stream) banner_stream(o, model);
     banner_blocks(o, model.blocks);
     o += "// Caution: this code is not certified for use in safety functions. Where its outputs can\n";
     o += "// hurt people, follow the applicable functional safety standard and have it qualified and\n";

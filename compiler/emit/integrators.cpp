@@ -158,6 +158,39 @@ void adaptive_body(const Emission& e, std::string& o, const ContinuousPlan& cp, 
     o += "    }\n";
 }
 
+// Over a gap, a fixed-step method takes ceil(rate * gap) steps, as eval does
+// (runtime/stream.cpp gap_steps), clamped to the count at the largest gap so that
+// worst_field_evals bounds every call, and without the C library's ceil: below the
+// clamp the product converts exactly to its integer part, one more when it is not
+// whole. float64: eval's rounded product, so eval's count. float32: eval widens the
+// float gap to double, where the product with a rate that is a float is exact; the
+// float product p is rounded, so its rounding error e comes from Dekker's product
+// (Veltkamp's split, no FMA: exact with rounding to nearest), and a whole p with
+// e > 0 takes one step more. (A rate that is not a float: the float product's ceil.)
+std::string gap_step_count(const Emission& e, const ContinuousPlan& cp) {
+    const double rate = cp.block->solver.steps_per_unit;
+    const long most = cp.tableau->stages > 0 ? cp.worst_field_evals / cp.tableau->stages : 0;
+    const bool exact = e.p == Precision::float32 && static_cast<double>(static_cast<float>(rate)) == rate;
+    std::string o;
+    o += fmt::format("    // ceil(gap * {}) steps, at most {} (at the largest gap)\n", format_double(rate), most);
+    o += fmt::format("    constexpr real rate = {};\n", e.L(rate));
+    o += "    const real p = gap * rate;\n";
+    if (exact) {
+        o += "    // gap * rate = p + err exactly (Dekker 1971; Veltkamp's split with 2^12 + 1)\n";
+        o += fmt::format("    const real gs = {} * gap;\n    const real g_hi = gs - (gs - gap);\n    const real g_lo = gap - g_hi;\n", e.L(4097));
+        o += fmt::format("    const real rs = {} * rate;\n    const real r_hi = rs - (rs - rate);\n    const real r_lo = rate - r_hi;\n", e.L(4097));
+        o += "    const real err = ((g_hi * r_hi - p) + g_hi * r_lo + g_lo * r_hi) + g_lo * r_lo;\n";
+    }
+    o += fmt::format("    std::uint32_t steps = {}u;\n", most);
+    o += fmt::format("    if (!(p >= {})) {{\n        steps = 1u;  // the exact product is below 1 too\n", e.L(1));
+    o += fmt::format("    }} else if (p <= {}) {{\n", e.L(static_cast<double>(most)));
+    o += "        steps = static_cast<std::uint32_t>(p);\n";
+    o += fmt::format("        if (static_cast<real>(steps) < p{}) steps += 1u;\n", exact ? fmt::format(" || err > {}", e.L(0)) : "");
+    o += fmt::format("        if (steps > {0}u) steps = {0}u;\n", most);
+    o += "    }\n";
+    return o;
+}
+
 }  // namespace
 
 std::string render_continuous(const Emission& e, const ContinuousPlan& cp) {
@@ -185,7 +218,9 @@ std::string render_continuous(const Emission& e, const ContinuousPlan& cp) {
 
     o += fmt::format("// continuous {}: {} ({}), state {} = {} + augment {}, t from {} to {}\n", name, tb.title,
                      tb.key, cp.n, c.width, c.augment, format_double(c.t0), format_double(c.t1));
-    o += fmt::format("result block_{}(real* work, const real* in, real* out, counters& count) noexcept {{\n", name);
+    // A streaming model's evolution runs over [0, gap], the gap an argument (observe calls it with gap > 0).
+    o += fmt::format("result block_{}(real* work, const real* in, real* out, {}counters& count) noexcept {{\n", name,
+                     cp.over_gap ? "real gap, " : "");
     o += fmt::format("    constexpr std::size_t n = {};\n", cp.n);
     o += fmt::format("    real* const y = work + {};\n", cp.y);
     for (std::size_t i = 0; i < s; ++i) o += fmt::format("    real* const k{} = work + {};\n", i + 1, cp.k[i]);
@@ -198,7 +233,10 @@ std::string render_continuous(const Emission& e, const ContinuousPlan& cp) {
     if (arg_used) o += fmt::format("    real* const arg = work + {};\n", cp.arg);
     if (cp.adaptive) o += fmt::format("    real* const y_new = work + {};\n", cp.y_new);
     o += fmt::format("    constexpr real t0 = {};\n", e.L(c.t0));
-    if (cp.adaptive) o += fmt::format("    constexpr real t1 = {};\n", e.L(c.t1));
+    if (cp.adaptive && cp.over_gap)
+        o += "    const real t1 = gap;\n";
+    else if (cp.adaptive)
+        o += fmt::format("    constexpr real t1 = {};\n", e.L(c.t1));
 
     // Coefficients, exactly as runtime/tableau.hpp holds them.
     std::vector<std::string> bnames(s), enames(s);
@@ -269,9 +307,14 @@ std::string render_continuous(const Emission& e, const ContinuousPlan& cp) {
     };
 
     if (!cp.adaptive) {
-        const int N = c.solver.steps;
-        o += fmt::format("    constexpr std::uint32_t steps = {}u;\n", N);
-        o += fmt::format("    constexpr real h = {};  // (t1 - t0) / {}\n", e.L((c.t1 - c.t0) / N), N);
+        if (cp.over_gap) {
+            o += gap_step_count(e, cp);
+            o += "    const real h = gap / static_cast<real>(steps);  // (t1 - t0) / steps, t0 = 0\n";
+        } else {
+            const int N = c.solver.steps;
+            o += fmt::format("    constexpr std::uint32_t steps = {}u;\n", N);
+            o += fmt::format("    constexpr real h = {};  // (t1 - t0) / {}\n", e.L((c.t1 - c.t0) / N), N);
+        }
         o += "    for (std::uint32_t i = 0; i < steps; ++i) {\n";
         o += "        // From the index, never accumulated: no drift over many steps.\n";
         o += "        const real t = t0 + static_cast<real>(i) * h;\n";

@@ -41,6 +41,11 @@ struct Emission {
     std::string math(const char* name) const { return math_call(p, name); }
 };
 
+// The name of a dense layer's weight arrays and kernel (w_X, b_X, dense_X): its
+// own name, but for the two halves of a streaming model's GRU cell, which share
+// the cell's name: X_ih and X_hh (with '_' added until no layer has that name).
+std::string layer_symbol(const Model& m, const Dense& d);
+
 // header.cpp: NAME.hpp with kStampHole where the stamp goes; stamp_of hashes
 // that text, finish_header puts the stamp in.
 extern const char* const kStampHole;

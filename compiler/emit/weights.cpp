@@ -10,10 +10,24 @@
 
 namespace meander::emit_detail {
 
+std::string layer_symbol(const Model& m, const Dense& d) {
+    if (!m.stream || m.stream->update != Stream::Update::gated || m.stream->update_layers.size() != 2) return d.name;
+    const bool ih = &d == &m.stream->update_layers[0].dense;
+    if (!ih && &d != &m.stream->update_layers[1].dense) return d.name;
+    std::string sym = d.name + (ih ? "_ih" : "_hh");
+    for (bool taken = true; taken;) {
+        taken = false;
+        for_each_model_dense(m, [&](const Dense& other) { taken = taken || other.name == sym; });
+        if (taken) sym += '_';
+    }
+    return sym;
+}
+
 std::string render_weights(const Emission& e) {
     std::string o;
     const std::string M_ = e.M();
-    for_each_dense(e.model.blocks, [&](const Dense& d) {
+    for_each_model_dense(e.model, [&](const Dense& d) {
+        const std::string sym = layer_symbol(e.model, d);
         const int cols = d.in_total();
         std::vector<double> w;
         w.reserve(static_cast<std::size_t>(d.out * cols));
@@ -25,21 +39,21 @@ std::string render_weights(const Emission& e) {
                 for (int r = r0; r < r0 + R; ++r) w.push_back(at(r, c));
         for (int r = blocked; r < d.out; ++r)
             for (int c = 0; c < cols; ++c) w.push_back(at(r, c));
-        o += fmt::format("// {}: weight {} x {} ({}y = W x{} + b){}\n", d.name, d.out, cols, blocked > 0 ? "" : "row-major, ",
+        o += fmt::format("// {}: weight {} x {} ({}y = W x{} + b){}\n", sym, d.out, cols, blocked > 0 ? "" : "row-major, ",
                          d.time_input ? " with t as the last column of x" : "",
                          d.weight_tensor.empty() ? "" : ", tensor " + escape_controls(quote_string(d.weight_tensor)));
         if (blocked > 0)
             o += fmt::format("//   W[{0}b + r][c] at {0}*{1}*b + {0}*c + r for rows below {2}{3}\n", R, cols, blocked,
                              blocked < d.out ? fmt::format(", W[r][c] at r*{} + c after", cols) : "");
-        o += fmt::format("{}_WEIGHTS_ATTR const real w_{}[{}] = {{\n", M_, d.name, w.size());
+        o += fmt::format("{}_WEIGHTS_ATTR const real w_{}[{}] = {{\n", M_, sym, w.size());
         o += array_rows(w, e.p);
         o += "};\n";
         if (d.has_bias) {
             std::vector<double> b(d.bias.data(), d.bias.data() + d.bias.size());
             if (b.empty()) b.assign(static_cast<std::size_t>(d.out), 0.0);
-            o += fmt::format("// {}: bias {}{}\n", d.name, d.out,
+            o += fmt::format("// {}: bias {}{}\n", sym, d.out,
                              d.bias_tensor.empty() ? "" : ", tensor " + escape_controls(quote_string(d.bias_tensor)));
-            o += fmt::format("{}_WEIGHTS_ATTR const real b_{}[{}] = {{\n", M_, d.name, b.size());
+            o += fmt::format("{}_WEIGHTS_ATTR const real b_{}[{}] = {{\n", M_, sym, b.size());
             o += array_rows(b, e.p);
             o += "};\n";
         }

@@ -7,10 +7,14 @@
 //   MEANDER_CYCLE_MARKS     (optional) call the empty mark functions below around
 //                           each inference, for `meander cost` to find them in the
 //                           emulator's trace; outputs are then not printed
+//   MEANDER_STREAMING       (optional) a streaming model: each row is
+//                           {first row of its sequence (1/0), gap, observation...};
+//                           the state is reset at a sequence's first row and
+//                           every row is observed with its gap
 // and board_inputs.inc, the rows of the sample's inputs.csv as brace lists.
 // `meander cost` carries a copy of this file (built into the binary) and builds
 // it the same way.
-// It prints one line per input row,
+// It prints one line per input row (observation),
 //   row R RESULT FIELD_EVALS STEPS_TAKEN STEPS_REJECTED Y0 Y1 ...
 //   bits R HEX0 HEX1 ...   (the outputs' bit patterns, little-endian cores)
 // then the self-test report, and returns non-zero when the self-test fails
@@ -27,9 +31,15 @@ namespace model = MEANDER_MODEL;
 
 namespace {
 
-// Inputs exactly as written in the CSV; rounded to `real` the way the host
-// tools round them (one conversion from double).
-const double kInputs[][model::input_size] = {
+// Inputs exactly as written in the CSV (a sequence file's gaps as the host
+// tools compute them); rounded to `real` the way the host tools round them
+// (one conversion from double).
+#if defined(MEANDER_STREAMING)
+constexpr unsigned kLead = 2;  // first row of its sequence, gap
+#else
+constexpr unsigned kLead = 0;
+#endif
+const double kInputs[][kLead + model::input_size] = {
 #include "board_inputs.inc"
 };
 constexpr unsigned kRows = sizeof kInputs / sizeof kInputs[0];
@@ -61,10 +71,18 @@ int main() {
     model::real in[model::input_size];
     model::real out[model::output_size];
     for (unsigned r = 0; r < kRows; ++r) {
-        for (unsigned i = 0; i < model::input_size; ++i) in[i] = static_cast<model::real>(kInputs[r][i]);
+        for (unsigned i = 0; i < model::input_size; ++i) in[i] = static_cast<model::real>(kInputs[r][kLead + i]);
+#if defined(MEANDER_STREAMING)
+        if (kInputs[r][0] > 0.5) model::reset(ctx);
+        const model::real gap = static_cast<model::real>(kInputs[r][1]);
+        MEANDER_MARK(row_begin);
+        const model::result res = model::observe(ctx, in, gap, out);
+        MEANDER_MARK(row_end);
+#else
         MEANDER_MARK(row_begin);
         const model::result res = model::infer(ctx, in, out);
         MEANDER_MARK(row_end);
+#endif
         std::printf("row %u %s %lu %lu %lu", r, model::result_name(res),
                     static_cast<unsigned long>(ctx.count.field_evals),
                     static_cast<unsigned long>(ctx.count.steps_accepted),

@@ -25,7 +25,7 @@ for tool in arm-none-eabi-g++ arm-none-eabi-nm arm-none-eabi-addr2line qemu-syst
     command -v "$tool" > /dev/null 2>&1 || { echo "SKIP: $tool is not installed (scripts/install-target-tools installs it)"; exit 77; }
 done
 if sed -e 's/#.*//' "$mnd" | grep -Eq '^[[:space:]]*state[[:space:]]'; then
-    echo "SKIP: meander cost does not measure a streaming model's code yet"
+    echo "SKIP: a streaming model's static estimate counts multiply-accumulates only (no per-core figures to hold within 20%)"
     exit 77
 fi
 case "$work" in ""|/) echo "cost_estimate.sh: refusing WORK_DIR '$work'" >&2; exit 2 ;; esac

@@ -530,3 +530,70 @@ TEST(Diff, SampleWithMoreSteps) {
 
 }  // namespace
 }  // namespace meander
+
+namespace meander {
+namespace {
+
+// A streaming sample against an edited copy: the evolution's steps-per-unit (its worst
+// case at the largest gap, 4: ceil(2 x 4) = 8 rk4 steps, 32 evaluations, and ceil(3 x 4)
+// = 12, 48), one weight of the GRU cell's hidden half, and the largest gap.
+TEST(Diff, StreamingSampleParts) {
+    const fs::path dir = fs::path(MEANDER_SOURCE_DIR) / "samples/parcel_chill";
+    const fs::path scratch = test::scratch_dir("diff", "parcel_chill_edit");
+    std::string text = test::read_text(dir / "parcel_chill.mnd");
+    for (const auto& [from, to] : std::vector<std::pair<std::string, std::string>>{
+             {"  solver rk4, steps-per-unit 2", "  solver rk4, steps-per-unit 3"}, {"largest-gap 4 ", "largest-gap 4.5 "}}) {
+        const auto at = text.find(from);
+        ASSERT_NE(at, std::string::npos) << from;
+        text.replace(at, from.size(), to);
+    }
+    test::write_text(scratch / "parcel_chill.mnd", text);
+    fs::copy_file(dir / "parcel_chill.pt", scratch / "parcel_chill.pt", fs::copy_options::overwrite_existing);
+    auto a = load(dir / "parcel_chill.mnd"), b = load(scratch / "parcel_chill.mnd");
+    ASSERT_TRUE(a && b);
+    b->stream->update_layers[1].dense.weight(2, 1) += 0.25;
+
+    ModelDiff d = diff(*a, *b);
+    EXPECT_FALSE(d.same());
+    ASSERT_EQ(d.model.size(), 1u);
+    EXPECT_EQ(d.model[0].what, "state");
+    EXPECT_EQ(d.model[0].before, "h[8], largest-gap 4");
+    EXPECT_EQ(d.model[0].after, "h[8], largest-gap 4.5");
+    EXPECT_EQ(changed_names(d), (std::vector<std::string>{"drift", "cell.hh"}));
+    const ItemDiff* drift = item(d, "drift");
+    ASSERT_NE(drift, nullptr);
+    EXPECT_EQ(drift->settings[0].before, "rk4, steps-per-unit 2");
+    EXPECT_EQ(drift->settings[0].settings, (std::vector<std::string>{"steps-per-unit"}));
+    EXPECT_EQ(drift->field_evals_before, 32);
+    EXPECT_EQ(drift->field_evals_after, 4 * 14);  // ceil(3 x 4.5) = 14 steps
+    const ItemDiff* hh = item(d, "cell.hh");
+    ASSERT_NE(hh, nullptr);
+    ASSERT_EQ(hh->tensors.size(), 2u);
+    EXPECT_EQ(hh->tensors[0].name_before, "cell.weight_hh");
+    EXPECT_EQ(hh->tensors[0].changed, 1);
+    EXPECT_EQ(hh->tensors[0].max_index, (std::vector<long>{2, 1}));
+    EXPECT_DOUBLE_EQ(hh->tensors[0].max_abs_change, 0.25);
+    // Parameters: f1 16*8+16, f2 8*16+8, the cell 24*1+24 + 24*8+24, head 8+1.
+    EXPECT_EQ(d.parameters_before, 144 + 136 + 48 + 216 + 9);
+    EXPECT_NE(render_diff_text(d).find("~ drift  continuous\n"), std::string::npos) << render_diff_text(d);
+}
+
+// A plain model against a streaming one: the state appears, the parts are added.
+TEST(Diff, PlainAgainstStreaming) {
+    const fs::path plain = fs::path(MEANDER_SOURCE_DIR) / "samples/fan_balance/fan_balance.mnd";
+    const fs::path stream = fs::path(MEANDER_SOURCE_DIR) / "samples/parcel_chill/parcel_chill.mnd";
+    auto a = load(plain), b = load(stream);
+    ASSERT_TRUE(a && b);
+    ModelDiff d = diff(*a, *b);
+    bool state = false;
+    for (const SettingChange& s : d.model)
+        if (s.what == "state") state = s.before == "none (not streaming)" && s.after == "h[8], largest-gap 4";
+    EXPECT_TRUE(state) << render_diff_text(d);
+    const ItemDiff* drift = item(d, "drift");
+    ASSERT_NE(drift, nullptr);
+    EXPECT_EQ(drift->presence, ItemDiff::Presence::added);
+    EXPECT_EQ(drift->summary_after, "continuous 8, t in [0, gap], augment 0, solver rk4, steps-per-unit 2");
+}
+
+}  // namespace
+}  // namespace meander

@@ -10,6 +10,7 @@
 
 #include <cmath>
 #include <nlohmann/json.hpp>
+#include <sstream>
 #include <string>
 
 #include "test_support.hpp"
@@ -25,7 +26,7 @@ nlohmann::json run_json(const std::string& args) {
 }
 
 TEST(StreamCommands, CostPerObservationAtTheLargestGap) {
-    const auto j = run_json(fmt::format("cost {}/parcel_chill.mnd --json", kSample));
+    const auto j = run_json(fmt::format("cost {}/parcel_chill.mnd --json --estimate-only", kSample));
     EXPECT_EQ(j["streaming"], true);
     EXPECT_EQ(j["macs_per_field_eval"], 256);
     EXPECT_EQ(j["worst_field_evals_per_observation"], 32);
@@ -34,7 +35,7 @@ TEST(StreamCommands, CostPerObservationAtTheLargestGap) {
 }
 
 TEST(StreamCommands, CostMeasuredOverASequenceFile) {
-    const auto j = run_json(fmt::format("cost {0}/parcel_chill.mnd --input {0}/inputs.csv --json", kSample));
+    const auto j = run_json(fmt::format("cost {0}/parcel_chill.mnd --input {0}/inputs.csv --json --estimate-only", kSample));
     const auto& m = j["measured_field_evals"];
     EXPECT_EQ(m["rows"], 96);
     EXPECT_EQ(m["failed_rows"], 0);
@@ -42,6 +43,63 @@ TEST(StreamCommands, CostMeasuredOverASequenceFile) {
     EXPECT_LE(m["max"].get<double>(), 32.0);
     EXPECT_GE(m["max"].get<double>(), 28.0);  // the file's largest gap is 3.92 h: ceil(7.84) = 8 steps
     EXPECT_EQ(j["measured_macs"]["max"], m["max"].get<double>() * 256 + 216 + 8);
+}
+
+// Flash, RAM and stack of the emitted code, and cycles measured on the emulated cores over
+// the first 8 observations and at the largest gap. RAM by hand: the context holds the state
+// (8 floats), the workspace the header states and three 32-bit counters. The outside
+// values: arm-none-eabi-size and -fstack-usage on the object built here with the flags
+// cost states, and the driver's row count.
+TEST(StreamCommands, CostMeasuresCodeAndCycles) {
+    for (const char* tool : {"arm-none-eabi-g++", "arm-none-eabi-size", "qemu-system-arm"})
+        if (meander::test::run_shell(fmt::format("command -v {} > /dev/null", tool)).status != 0) GTEST_SKIP() << tool << " is not installed";
+    const auto dir = meander::test::temp_dir("stream_cost_code");
+    std::string head;
+    {
+        std::istringstream in(meander::test::read_text(kSample + "/inputs.csv"));
+        std::string line;
+        for (int i = 0; i < 9 && std::getline(in, line); ++i) head += line + "\n";
+    }
+    meander::test::write_text(dir / "rows.csv", head);
+    const auto j = run_json(fmt::format("cost {}/parcel_chill.mnd --input {} --json", kSample, (dir / "rows.csv").string()));
+    const auto c = meander::test::run(fmt::format("{} compile {}/parcel_chill.mnd -o {}", MEANDER_BINARY, kSample, dir.string()));
+    ASSERT_EQ(c.status, 0) << c.output;
+    const std::string header = meander::test::read_text(dir / "parcel_chill.hpp");
+    const auto at = header.find("workspace_size = ");
+    ASSERT_NE(at, std::string::npos);
+    const long reals = std::stol(header.substr(at + 17));
+    EXPECT_EQ(j["workspace_bytes"], reals * 4);
+    EXPECT_EQ(j["context_bytes"], (8 + reals) * 4 + 12);
+    ASSERT_EQ(j["code_measured"], true) << j.dump(1);
+    const std::string tool = j["code_tool"];
+    const std::string flags = tool.substr(tool.find(" -") + 1);
+    const auto b = meander::test::run(fmt::format("cd {} && arm-none-eabi-g++ {} -fstack-usage -c parcel_chill.cpp -o p.o && "
+                                                  "arm-none-eabi-size -A p.o | awk '$1 ~ /^\\.text/ {{ s += $2 }} END {{ print s + 0 }}'",
+                                                  dir.string(), flags));
+    ASSERT_EQ(b.status, 0) << b.output;
+    EXPECT_EQ(j["code_bytes"].get<long>(), std::stol(b.output));
+    const std::string su = meander::test::read_text(dir / "p.su");
+    const auto f = su.find("parcel_chill::observe(");
+    ASSERT_NE(f, std::string::npos) << su;
+    const auto tab = su.find('\t', f);
+    EXPECT_EQ(j["entry_stack_bytes"].get<long>(), std::stol(su.substr(tab + 1)));
+    EXPECT_GE(j["stack_bytes"].get<long>(), j["entry_stack_bytes"].get<long>());
+    ASSERT_EQ(j["measured"].size(), 3u) << j.dump(1);
+    for (const auto& m : j["measured"]) {
+        EXPECT_EQ(m["rows"], 8);
+        EXPECT_EQ(m["failed_rows"], 0);
+        EXPECT_LE(m["cycles"]["min"].get<double>(), m["cycles"]["median"].get<double>());
+        EXPECT_LE(m["cycles"]["median"].get<double>(), m["cycles"]["max"].get<double>());
+        ASSERT_EQ(m["blocks"].size(), 3u) << m.dump(1);
+        EXPECT_EQ(m["blocks"][0]["name"], "drift");
+        EXPECT_EQ(m["blocks"][1]["name"], "cell");
+        EXPECT_EQ(m["blocks"][2]["name"], "head");
+    }
+    // The largest gap takes the most rk4 steps (8): more cycles than the median row (the
+    // kernels' cycles depend on the values, so not necessarily more than every row).
+    ASSERT_EQ(j["measured_at_largest_gap"].size(), 3u);
+    for (std::size_t i = 0; i < 3; ++i)
+        EXPECT_GT(j["measured_at_largest_gap"][i]["cycles"].get<double>(), j["measured"][i]["cycles"]["median"].get<double>());
 }
 
 TEST(StreamCommands, TuneSweepsStepsPerUnit) {
