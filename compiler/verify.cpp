@@ -184,7 +184,8 @@ std::optional<VerifyReport> verify_stream(const Model& model, const EmitOptions&
     std::vector<std::vector<double>> inputs;
     for (const auto& r : rows) inputs.push_back(r.values);
     return build_and_compare(model, emit_stream(model, emit_opts), driver_source(model, inputs, emit_opts.precision, &rows),
-                             evaluate_sequences(model, rows), emit_opts.precision, opts, false, diags);
+                             evaluate_sequences(model, rows), emit_opts.precision, opts,
+                             emit_opts.precision == Precision::float64, diags);
 }
 
 namespace {
