@@ -21,6 +21,7 @@
 #include <cmath>
 #include <cstdint>
 #include <cstdio>
+#include <cstdlib>
 #include <cstring>
 #include <functional>
 #include <mutex>
@@ -247,12 +248,24 @@ TEST(MathKernels, SpecialValues) {
     EXPECT_TRUE(std::signbit(k::act_elu(-0.0f, 1.0f)));
 }
 
+// The kernels named in MEANDER_KERNELS (comma-separated, the name up to its
+// first space: "exp,tanh"), or all when it is unset or empty.
+bool chosen(const Kernel& kn) {
+    const char* list = std::getenv("MEANDER_KERNELS");
+    if (list == nullptr || *list == '\0') return true;
+    std::string name(kn.name);
+    name = name.substr(0, name.find(' '));
+    const std::string l = std::string(",") + list + ",";
+    return l.find("," + name + ",") != std::string::npos;
+}
+
 // All 2^32 inputs (NaNs checked to give NaN); run by scripts/kernel-ulp.
 TEST(MathKernels, DISABLED_Exhaustive) {
     mpfr_set_emin(mpfr_get_emin_min());
     mpfr_set_emax(mpfr_get_emax_max());
     const unsigned threads = std::max(1u, std::thread::hardware_concurrency());
     for (const Kernel& kn : kernels()) {
+        if (!chosen(kn)) continue;
         const auto start = std::chrono::steady_clock::now();
         std::mutex m;
         Worst worst;
