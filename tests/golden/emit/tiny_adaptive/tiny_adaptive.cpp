@@ -29,6 +29,10 @@
 #include <cstdint>
 #include <cstring>
 
+#if defined(__SSE2__)
+#include <emmintrin.h>
+#endif
+
 #if !defined(TINY_ADAPTIVE_MEANDER_STAMP) || TINY_ADAPTIVE_MEANDER_STAMP != 0x2197cf099c6961eaULL
 #error "tiny_adaptive.hpp is not the header generated with this source: regenerate both"
 #endif
@@ -56,7 +60,8 @@ namespace tiny_adaptive {
 namespace {
 
 // g1: weight 5 x 4 (y = W x with t as the last column of x + b), tensor "g1.weight"
-//   W[4b + r][c] at 4*4*b + 4*c + r for rows below 4, W[r][c] at r*4 + c after
+//   W[4b + r][c] at 4*4*b + 4*c + r for rows below 4
+//   W[4 + r][c] at 16 + 1*c + r after them
 TINY_ADAPTIVE_WEIGHTS_ATTR const real w_g1[20] = {
     -0.2780379f, -0.30100054f, -0.23007835f, 0.03944514f, 0.39476684f, 0.38613862f, 0.23658128f, -0.031599384f,
     0.32883325f, -0.43800005f, 0.07694051f, 0.3548307f, -0.3311848f, -0.33586916f, -0.23356049f, 0.3802458f,
@@ -67,10 +72,11 @@ TINY_ADAPTIVE_WEIGHTS_ATTR const real b_g1[5] = {
     -0.45994833f, -0.36542425f, 0.17018113f, -0.33499825f, 0.2926385f,
 };
 
-// g2: weight 3 x 5 (row-major, y = W x + b), tensor "g2.weight"
+// g2: weight 3 x 5 (y = W x + b), tensor "g2.weight"
+//   W[r][c] at 3*c + r
 TINY_ADAPTIVE_WEIGHTS_ATTR const real w_g2[15] = {
-    -0.09889832f, 0.017391497f, -0.10634654f, 0.34919244f, 0.09763423f, -0.24727954f, 0.23241434f, 0.38967937f,
-    -0.3284402f, -0.15266897f, 0.3150889f, 0.33050698f, -0.08219388f, -0.22574238f, -0.057224695f,
+    -0.09889832f, -0.24727954f, 0.3150889f, 0.017391497f, 0.23241434f, 0.33050698f, -0.10634654f, 0.38967937f,
+    -0.08219388f, 0.34919244f, -0.3284402f, -0.22574238f, 0.09763423f, -0.15266897f, -0.057224695f,
 };
 
 // meander's float math kernels (runtime/math_float.inc), the sections this model uses.
@@ -179,66 +185,173 @@ bool all_finite(const real* v, std::size_t n) noexcept {
     return true;
 }
 
-// dense g1: 3 + t -> 5, softplus; 1 block of 4 outputs, 1 output alone, inputs written out
+// Dense kernel steps. lanesR holds the sums of R outputs of one block; lanesR_mac
+// adds w[r] * x to sum r (the product rounded, then the sum: never fused) and moves
+// w past the R weights; lanesR_add adds the bias, lanesR_store writes the sums out.
+// Three ways to the same bits, chosen by the compiler's target: x86 with SSE2 (one
+// register holds four float sums or two double sums: a packed multiply, then a packed
+// add), Cortex-M4F and M7 in float32 (one VLDM brings the R weights, then VMUL and
+// VADD per row, written out because GCC would join them into VMLA, which rounds the
+// same but costs 3 cycles against 1 + 1 in the Cortex-M4 TRM, 7.2.3), and plain C++.
+#if defined(__GNUC__)
+#define TINY_ADAPTIVE_STEP __attribute__((always_inline)) inline
+#else
+#define TINY_ADAPTIVE_STEP inline
+#endif
+#if defined(__ARM_ARCH_7EM__) && defined(__ARM_FP) && (__ARM_FP & 4)
+struct lanes1 { real a; };
+TINY_ADAPTIVE_STEP void lanes1_zero(lanes1& s) noexcept { s.a = 0.0f; }
+TINY_ADAPTIVE_STEP void lanes1_mac(lanes1& s, const real*& w, real x) noexcept {
+    __asm__("vldmia %[w]!, {s12}\n\t"
+            "vmul.f32 s12, s12, %[x]\n\t"
+            "vadd.f32 %[a], %[a], s12"
+            : [a] "+t"(s.a), [w] "+r"(w)
+            : [x] "t"(x), "m"(*reinterpret_cast<const real(*)[1]>(w))
+            : "s12");
+}
+TINY_ADAPTIVE_STEP void lanes1_add(lanes1& s, const real* b) noexcept {
+    __asm__("vldmia %[p], {s12}\n\t"
+            "vadd.f32 %[a], %[a], s12"
+            : [a] "+t"(s.a)
+            : [p] "r"(b), "m"(*reinterpret_cast<const real(*)[1]>(b))
+            : "s12");
+}
+TINY_ADAPTIVE_STEP void lanes1_store(const lanes1& s, real* y) noexcept { y[0] = s.a; }
+#else
+struct lanes1 { real a; };
+TINY_ADAPTIVE_STEP void lanes1_zero(lanes1& s) noexcept { s.a = 0.0f; }
+TINY_ADAPTIVE_STEP void lanes1_mac(lanes1& s, const real*& w, real x) noexcept {
+    s.a += w[0] * x;
+    w += 1;
+}
+TINY_ADAPTIVE_STEP void lanes1_add(lanes1& s, const real* b) noexcept { s.a += b[0]; }
+TINY_ADAPTIVE_STEP void lanes1_store(const lanes1& s, real* y) noexcept { y[0] = s.a; }
+#endif
+#if defined(__ARM_ARCH_7EM__) && defined(__ARM_FP) && (__ARM_FP & 4)
+struct lanes3 { real a, b, c; };
+TINY_ADAPTIVE_STEP void lanes3_zero(lanes3& s) noexcept { s.a = 0.0f; s.b = 0.0f; s.c = 0.0f; }
+TINY_ADAPTIVE_STEP void lanes3_mac(lanes3& s, const real*& w, real x) noexcept {
+    __asm__("vldmia %[w]!, {s12-s14}\n\t"
+            "vmul.f32 s12, s12, %[x]\n\t"
+            "vmul.f32 s13, s13, %[x]\n\t"
+            "vmul.f32 s14, s14, %[x]\n\t"
+            "vadd.f32 %[a], %[a], s12\n\t"
+            "vadd.f32 %[b], %[b], s13\n\t"
+            "vadd.f32 %[c], %[c], s14"
+            : [a] "+t"(s.a), [b] "+t"(s.b), [c] "+t"(s.c), [w] "+r"(w)
+            : [x] "t"(x), "m"(*reinterpret_cast<const real(*)[3]>(w))
+            : "s12", "s13", "s14");
+}
+TINY_ADAPTIVE_STEP void lanes3_add(lanes3& s, const real* b) noexcept {
+    __asm__("vldmia %[p], {s12-s14}\n\t"
+            "vadd.f32 %[a], %[a], s12\n\t"
+            "vadd.f32 %[b], %[b], s13\n\t"
+            "vadd.f32 %[c], %[c], s14"
+            : [a] "+t"(s.a), [b] "+t"(s.b), [c] "+t"(s.c)
+            : [p] "r"(b), "m"(*reinterpret_cast<const real(*)[3]>(b))
+            : "s12", "s13", "s14");
+}
+TINY_ADAPTIVE_STEP void lanes3_store(const lanes3& s, real* y) noexcept { y[0] = s.a; y[1] = s.b; y[2] = s.c; }
+#else
+struct lanes3 { real a, b, c; };
+TINY_ADAPTIVE_STEP void lanes3_zero(lanes3& s) noexcept { s.a = 0.0f; s.b = 0.0f; s.c = 0.0f; }
+TINY_ADAPTIVE_STEP void lanes3_mac(lanes3& s, const real*& w, real x) noexcept {
+    s.a += w[0] * x; s.b += w[1] * x; s.c += w[2] * x;
+    w += 3;
+}
+TINY_ADAPTIVE_STEP void lanes3_add(lanes3& s, const real* b) noexcept { s.a += b[0]; s.b += b[1]; s.c += b[2]; }
+TINY_ADAPTIVE_STEP void lanes3_store(const lanes3& s, real* y) noexcept { y[0] = s.a; y[1] = s.b; y[2] = s.c; }
+#endif
+#if defined(__SSE2__)
+struct lanes4 { __m128 v; };
+TINY_ADAPTIVE_STEP void lanes4_zero(lanes4& s) noexcept { s.v = _mm_setzero_ps(); }
+TINY_ADAPTIVE_STEP void lanes4_mac(lanes4& s, const real*& w, real x) noexcept {
+    s.v = _mm_add_ps(s.v, _mm_mul_ps(_mm_loadu_ps(w), _mm_set1_ps(x)));
+    w += 4;
+}
+TINY_ADAPTIVE_STEP void lanes4_add(lanes4& s, const real* b) noexcept { s.v = _mm_add_ps(s.v, _mm_loadu_ps(b)); }
+TINY_ADAPTIVE_STEP void lanes4_store(const lanes4& s, real* y) noexcept { _mm_storeu_ps(y, s.v); }
+#elif defined(__ARM_ARCH_7EM__) && defined(__ARM_FP) && (__ARM_FP & 4)
+struct lanes4 { real a, b, c, d; };
+TINY_ADAPTIVE_STEP void lanes4_zero(lanes4& s) noexcept { s.a = 0.0f; s.b = 0.0f; s.c = 0.0f; s.d = 0.0f; }
+TINY_ADAPTIVE_STEP void lanes4_mac(lanes4& s, const real*& w, real x) noexcept {
+    __asm__("vldmia %[w]!, {s12-s15}\n\t"
+            "vmul.f32 s12, s12, %[x]\n\t"
+            "vmul.f32 s13, s13, %[x]\n\t"
+            "vmul.f32 s14, s14, %[x]\n\t"
+            "vmul.f32 s15, s15, %[x]\n\t"
+            "vadd.f32 %[a], %[a], s12\n\t"
+            "vadd.f32 %[b], %[b], s13\n\t"
+            "vadd.f32 %[c], %[c], s14\n\t"
+            "vadd.f32 %[d], %[d], s15"
+            : [a] "+t"(s.a), [b] "+t"(s.b), [c] "+t"(s.c), [d] "+t"(s.d), [w] "+r"(w)
+            : [x] "t"(x), "m"(*reinterpret_cast<const real(*)[4]>(w))
+            : "s12", "s13", "s14", "s15");
+}
+TINY_ADAPTIVE_STEP void lanes4_add(lanes4& s, const real* b) noexcept {
+    __asm__("vldmia %[p], {s12-s15}\n\t"
+            "vadd.f32 %[a], %[a], s12\n\t"
+            "vadd.f32 %[b], %[b], s13\n\t"
+            "vadd.f32 %[c], %[c], s14\n\t"
+            "vadd.f32 %[d], %[d], s15"
+            : [a] "+t"(s.a), [b] "+t"(s.b), [c] "+t"(s.c), [d] "+t"(s.d)
+            : [p] "r"(b), "m"(*reinterpret_cast<const real(*)[4]>(b))
+            : "s12", "s13", "s14", "s15");
+}
+TINY_ADAPTIVE_STEP void lanes4_store(const lanes4& s, real* y) noexcept { y[0] = s.a; y[1] = s.b; y[2] = s.c; y[3] = s.d; }
+#else
+struct lanes4 { real a, b, c, d; };
+TINY_ADAPTIVE_STEP void lanes4_zero(lanes4& s) noexcept { s.a = 0.0f; s.b = 0.0f; s.c = 0.0f; s.d = 0.0f; }
+TINY_ADAPTIVE_STEP void lanes4_mac(lanes4& s, const real*& w, real x) noexcept {
+    s.a += w[0] * x; s.b += w[1] * x; s.c += w[2] * x; s.d += w[3] * x;
+    w += 4;
+}
+TINY_ADAPTIVE_STEP void lanes4_add(lanes4& s, const real* b) noexcept { s.a += b[0]; s.b += b[1]; s.c += b[2]; s.d += b[3]; }
+TINY_ADAPTIVE_STEP void lanes4_store(const lanes4& s, real* y) noexcept { y[0] = s.a; y[1] = s.b; y[2] = s.c; y[3] = s.d; }
+#endif
+
+// dense g1: 3 + t -> 5, softplus; 1 block of 4 outputs, one of 1, inputs written out
 void dense_g1(const real* __restrict x, real t, real* __restrict y) noexcept {
     const real* const volatile w_at = w_g1;
-    const real* __restrict w = w_at;
+    const real* w = w_at;  // advanced by the steps
     const real* const volatile b_at = b_g1;
     const real* __restrict b = b_at;
-    for (std::size_t o = 0; o < 4; o += 4) {
-        real a0 = 0.0f, a1 = 0.0f, a2 = 0.0f, a3 = 0.0f;
-        {
-            const real xi = x[0];
-            a0 += w[0] * xi;
-            a1 += w[1] * xi;
-            a2 += w[2] * xi;
-            a3 += w[3] * xi;
-        }
-        {
-            const real xi = x[1];
-            a0 += w[4] * xi;
-            a1 += w[5] * xi;
-            a2 += w[6] * xi;
-            a3 += w[7] * xi;
-        }
-        {
-            const real xi = x[2];
-            a0 += w[8] * xi;
-            a1 += w[9] * xi;
-            a2 += w[10] * xi;
-            a3 += w[11] * xi;
-        }
-        a0 += w[12] * t;
-        a1 += w[13] * t;
-        a2 += w[14] * t;
-        a3 += w[15] * t;
-        w += 16;
-        a0 += b[o];
-        a1 += b[o + 1];
-        a2 += b[o + 2];
-        a3 += b[o + 3];
-        y[o] = act_softplus(a0);
-        y[o + 1] = act_softplus(a1);
-        y[o + 2] = act_softplus(a2);
-        y[o + 3] = act_softplus(a3);
+    {
+        lanes4 s;
+        lanes4_zero(s);
+        lanes4_mac(s, w, x[0]);
+        lanes4_mac(s, w, x[1]);
+        lanes4_mac(s, w, x[2]);
+        lanes4_mac(s, w, t);
+        lanes4_add(s, b + 0);
+        lanes4_store(s, y + 0);
     }
-    for (std::size_t o = 4; o < 5; ++o, w += 4) {
-        real acc = 0.0f;
-        for (std::size_t i = 0; i < 3; ++i) acc += w[i] * x[i];
-        acc += w[3] * t;
-        acc += b[o];
-        y[o] = act_softplus(acc);
+    {
+        lanes1 s;
+        lanes1_zero(s);
+        lanes1_mac(s, w, x[0]);
+        lanes1_mac(s, w, x[1]);
+        lanes1_mac(s, w, x[2]);
+        lanes1_mac(s, w, t);
+        lanes1_add(s, b + 4);
+        lanes1_store(s, y + 4);
     }
+    for (std::size_t o = 0; o < 5; ++o) y[o] = act_softplus(y[o]);
 }
 
-// dense g2: 5 -> 3, identity; 0 blocks of 4 outputs, 3 outputs alone
+// dense g2: 5 -> 3, identity; 0 blocks of 4 outputs, one of 3, inputs written out
 void dense_g2(const real* __restrict x, real* __restrict y) noexcept {
     const real* const volatile w_at = w_g2;
-    const real* __restrict w = w_at;
-    for (std::size_t o = 0; o < 3; ++o, w += 5) {
-        real acc = 0.0f;
-        for (std::size_t i = 0; i < 5; ++i) acc += w[i] * x[i];
-        y[o] = acc;
+    const real* w = w_at;  // advanced by the steps
+    {
+        lanes3 s;
+        lanes3_zero(s);
+        lanes3_mac(s, w, x[0]);
+        lanes3_mac(s, w, x[1]);
+        lanes3_mac(s, w, x[2]);
+        lanes3_mac(s, w, x[3]);
+        lanes3_mac(s, w, x[4]);
+        lanes3_store(s, y + 0);
     }
 }
 

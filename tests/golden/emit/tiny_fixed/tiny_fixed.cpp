@@ -22,6 +22,10 @@
 #include <cstdint>
 #include <cstring>
 
+#if defined(__SSE2__)
+#include <emmintrin.h>
+#endif
+
 #if !defined(TINY_FIXED_MEANDER_STAMP) || TINY_FIXED_MEANDER_STAMP != 0xd4a4eea55cfe8837ULL
 #error "tiny_fixed.hpp is not the header generated with this source: regenerate both"
 #endif
@@ -48,9 +52,10 @@ namespace tiny_fixed {
 
 namespace {
 
-// lift: weight 3 x 2 (row-major, y = W x + b), tensor "lift.weight"
+// lift: weight 3 x 2 (y = W x + b), tensor "lift.weight"
+//   W[r][c] at 3*c + r
 TINY_FIXED_WEIGHTS_ATTR const real w_lift[6] = {
-    -0.53544116f, -0.3315815f, -0.05512216f, 0.5326874f, -0.016787633f, -0.11206632f,
+    -0.53544116f, -0.05512216f, -0.016787633f, -0.3315815f, 0.5326874f, -0.11206632f,
 };
 // lift: bias 3, tensor "lift.bias"
 TINY_FIXED_WEIGHTS_ATTR const real b_lift[3] = {
@@ -68,19 +73,21 @@ TINY_FIXED_WEIGHTS_ATTR const real b_f1[4] = {
     -0.386771f, 0.46114823f, -0.32067555f, 0.2820873f,
 };
 
-// f2: weight 3 x 4 (row-major, y = W x + b), tensor "f2.weight"
+// f2: weight 3 x 4 (y = W x + b), tensor "f2.weight"
+//   W[r][c] at 3*c + r
 TINY_FIXED_WEIGHTS_ATTR const real w_f2[12] = {
-    0.17038813f, 0.099966526f, -0.44271946f, -0.27921396f, -0.07985964f, -0.20186514f, -0.19139245f, 0.13465603f,
-    -0.08463374f, 0.44934574f, -0.37337282f, 0.43848184f,
+    0.17038813f, -0.07985964f, -0.08463374f, 0.099966526f, -0.20186514f, 0.44934574f, -0.44271946f, -0.19139245f,
+    -0.37337282f, -0.27921396f, 0.13465603f, 0.43848184f,
 };
 // f2: bias 3, tensor "f2.bias"
 TINY_FIXED_WEIGHTS_ATTR const real b_f2[3] = {
     -0.2568719f, 0.31930456f, -0.1731337f,
 };
 
-// r1: weight 3 x 3 (row-major, y = W x + b), tensor "r1.weight"
+// r1: weight 3 x 3 (y = W x + b), tensor "r1.weight"
+//   W[r][c] at 3*c + r
 TINY_FIXED_WEIGHTS_ATTR const real w_r1[9] = {
-    -0.14656578f, 0.34402162f, 0.0059901676f, 0.27627024f, 0.3831763f, -0.4803613f, 0.49688685f, 0.3306753f,
+    -0.14656578f, 0.27627024f, 0.49688685f, 0.34402162f, 0.3831763f, 0.3306753f, 0.0059901676f, -0.4803613f,
     -0.48440275f,
 };
 // r1: bias 3, tensor "r1.bias"
@@ -88,9 +95,10 @@ TINY_FIXED_WEIGHTS_ATTR const real b_r1[3] = {
     0.109398454f, 0.08924759f, -0.16777398f,
 };
 
-// head: weight 2 x 3 (row-major, y = W x + b), tensor "head.weight"
+// head: weight 2 x 3 (y = W x + b), tensor "head.weight"
+//   W[r][c] at 2*c + r
 TINY_FIXED_WEIGHTS_ATTR const real w_head[6] = {
-    -0.54840904f, 0.5233772f, -0.029173085f, -0.50951016f, 0.51976466f, -0.28572032f,
+    -0.54840904f, -0.50951016f, 0.5233772f, 0.51976466f, -0.029173085f, -0.28572032f,
 };
 // head: bias 2, tensor "head.bias"
 TINY_FIXED_WEIGHTS_ATTR const real b_head[2] = {
@@ -169,104 +177,220 @@ bool all_finite(const real* v, std::size_t n) noexcept {
     return true;
 }
 
-// dense lift: 2 -> 3, relu; 0 blocks of 4 outputs, 3 outputs alone
+// Dense kernel steps. lanesR holds the sums of R outputs of one block; lanesR_mac
+// adds w[r] * x to sum r (the product rounded, then the sum: never fused) and moves
+// w past the R weights; lanesR_add adds the bias, lanesR_store writes the sums out.
+// Three ways to the same bits, chosen by the compiler's target: x86 with SSE2 (one
+// register holds four float sums or two double sums: a packed multiply, then a packed
+// add), Cortex-M4F and M7 in float32 (one VLDM brings the R weights, then VMUL and
+// VADD per row, written out because GCC would join them into VMLA, which rounds the
+// same but costs 3 cycles against 1 + 1 in the Cortex-M4 TRM, 7.2.3), and plain C++.
+#if defined(__GNUC__)
+#define TINY_FIXED_STEP __attribute__((always_inline)) inline
+#else
+#define TINY_FIXED_STEP inline
+#endif
+#if defined(__ARM_ARCH_7EM__) && defined(__ARM_FP) && (__ARM_FP & 4)
+struct lanes2 { real a, b; };
+TINY_FIXED_STEP void lanes2_zero(lanes2& s) noexcept { s.a = 0.0f; s.b = 0.0f; }
+TINY_FIXED_STEP void lanes2_mac(lanes2& s, const real*& w, real x) noexcept {
+    __asm__("vldmia %[w]!, {s12-s13}\n\t"
+            "vmul.f32 s12, s12, %[x]\n\t"
+            "vmul.f32 s13, s13, %[x]\n\t"
+            "vadd.f32 %[a], %[a], s12\n\t"
+            "vadd.f32 %[b], %[b], s13"
+            : [a] "+t"(s.a), [b] "+t"(s.b), [w] "+r"(w)
+            : [x] "t"(x), "m"(*reinterpret_cast<const real(*)[2]>(w))
+            : "s12", "s13");
+}
+TINY_FIXED_STEP void lanes2_add(lanes2& s, const real* b) noexcept {
+    __asm__("vldmia %[p], {s12-s13}\n\t"
+            "vadd.f32 %[a], %[a], s12\n\t"
+            "vadd.f32 %[b], %[b], s13"
+            : [a] "+t"(s.a), [b] "+t"(s.b)
+            : [p] "r"(b), "m"(*reinterpret_cast<const real(*)[2]>(b))
+            : "s12", "s13");
+}
+TINY_FIXED_STEP void lanes2_store(const lanes2& s, real* y) noexcept { y[0] = s.a; y[1] = s.b; }
+#else
+struct lanes2 { real a, b; };
+TINY_FIXED_STEP void lanes2_zero(lanes2& s) noexcept { s.a = 0.0f; s.b = 0.0f; }
+TINY_FIXED_STEP void lanes2_mac(lanes2& s, const real*& w, real x) noexcept {
+    s.a += w[0] * x; s.b += w[1] * x;
+    w += 2;
+}
+TINY_FIXED_STEP void lanes2_add(lanes2& s, const real* b) noexcept { s.a += b[0]; s.b += b[1]; }
+TINY_FIXED_STEP void lanes2_store(const lanes2& s, real* y) noexcept { y[0] = s.a; y[1] = s.b; }
+#endif
+#if defined(__ARM_ARCH_7EM__) && defined(__ARM_FP) && (__ARM_FP & 4)
+struct lanes3 { real a, b, c; };
+TINY_FIXED_STEP void lanes3_zero(lanes3& s) noexcept { s.a = 0.0f; s.b = 0.0f; s.c = 0.0f; }
+TINY_FIXED_STEP void lanes3_mac(lanes3& s, const real*& w, real x) noexcept {
+    __asm__("vldmia %[w]!, {s12-s14}\n\t"
+            "vmul.f32 s12, s12, %[x]\n\t"
+            "vmul.f32 s13, s13, %[x]\n\t"
+            "vmul.f32 s14, s14, %[x]\n\t"
+            "vadd.f32 %[a], %[a], s12\n\t"
+            "vadd.f32 %[b], %[b], s13\n\t"
+            "vadd.f32 %[c], %[c], s14"
+            : [a] "+t"(s.a), [b] "+t"(s.b), [c] "+t"(s.c), [w] "+r"(w)
+            : [x] "t"(x), "m"(*reinterpret_cast<const real(*)[3]>(w))
+            : "s12", "s13", "s14");
+}
+TINY_FIXED_STEP void lanes3_add(lanes3& s, const real* b) noexcept {
+    __asm__("vldmia %[p], {s12-s14}\n\t"
+            "vadd.f32 %[a], %[a], s12\n\t"
+            "vadd.f32 %[b], %[b], s13\n\t"
+            "vadd.f32 %[c], %[c], s14"
+            : [a] "+t"(s.a), [b] "+t"(s.b), [c] "+t"(s.c)
+            : [p] "r"(b), "m"(*reinterpret_cast<const real(*)[3]>(b))
+            : "s12", "s13", "s14");
+}
+TINY_FIXED_STEP void lanes3_store(const lanes3& s, real* y) noexcept { y[0] = s.a; y[1] = s.b; y[2] = s.c; }
+#else
+struct lanes3 { real a, b, c; };
+TINY_FIXED_STEP void lanes3_zero(lanes3& s) noexcept { s.a = 0.0f; s.b = 0.0f; s.c = 0.0f; }
+TINY_FIXED_STEP void lanes3_mac(lanes3& s, const real*& w, real x) noexcept {
+    s.a += w[0] * x; s.b += w[1] * x; s.c += w[2] * x;
+    w += 3;
+}
+TINY_FIXED_STEP void lanes3_add(lanes3& s, const real* b) noexcept { s.a += b[0]; s.b += b[1]; s.c += b[2]; }
+TINY_FIXED_STEP void lanes3_store(const lanes3& s, real* y) noexcept { y[0] = s.a; y[1] = s.b; y[2] = s.c; }
+#endif
+#if defined(__SSE2__)
+struct lanes4 { __m128 v; };
+TINY_FIXED_STEP void lanes4_zero(lanes4& s) noexcept { s.v = _mm_setzero_ps(); }
+TINY_FIXED_STEP void lanes4_mac(lanes4& s, const real*& w, real x) noexcept {
+    s.v = _mm_add_ps(s.v, _mm_mul_ps(_mm_loadu_ps(w), _mm_set1_ps(x)));
+    w += 4;
+}
+TINY_FIXED_STEP void lanes4_add(lanes4& s, const real* b) noexcept { s.v = _mm_add_ps(s.v, _mm_loadu_ps(b)); }
+TINY_FIXED_STEP void lanes4_store(const lanes4& s, real* y) noexcept { _mm_storeu_ps(y, s.v); }
+#elif defined(__ARM_ARCH_7EM__) && defined(__ARM_FP) && (__ARM_FP & 4)
+struct lanes4 { real a, b, c, d; };
+TINY_FIXED_STEP void lanes4_zero(lanes4& s) noexcept { s.a = 0.0f; s.b = 0.0f; s.c = 0.0f; s.d = 0.0f; }
+TINY_FIXED_STEP void lanes4_mac(lanes4& s, const real*& w, real x) noexcept {
+    __asm__("vldmia %[w]!, {s12-s15}\n\t"
+            "vmul.f32 s12, s12, %[x]\n\t"
+            "vmul.f32 s13, s13, %[x]\n\t"
+            "vmul.f32 s14, s14, %[x]\n\t"
+            "vmul.f32 s15, s15, %[x]\n\t"
+            "vadd.f32 %[a], %[a], s12\n\t"
+            "vadd.f32 %[b], %[b], s13\n\t"
+            "vadd.f32 %[c], %[c], s14\n\t"
+            "vadd.f32 %[d], %[d], s15"
+            : [a] "+t"(s.a), [b] "+t"(s.b), [c] "+t"(s.c), [d] "+t"(s.d), [w] "+r"(w)
+            : [x] "t"(x), "m"(*reinterpret_cast<const real(*)[4]>(w))
+            : "s12", "s13", "s14", "s15");
+}
+TINY_FIXED_STEP void lanes4_add(lanes4& s, const real* b) noexcept {
+    __asm__("vldmia %[p], {s12-s15}\n\t"
+            "vadd.f32 %[a], %[a], s12\n\t"
+            "vadd.f32 %[b], %[b], s13\n\t"
+            "vadd.f32 %[c], %[c], s14\n\t"
+            "vadd.f32 %[d], %[d], s15"
+            : [a] "+t"(s.a), [b] "+t"(s.b), [c] "+t"(s.c), [d] "+t"(s.d)
+            : [p] "r"(b), "m"(*reinterpret_cast<const real(*)[4]>(b))
+            : "s12", "s13", "s14", "s15");
+}
+TINY_FIXED_STEP void lanes4_store(const lanes4& s, real* y) noexcept { y[0] = s.a; y[1] = s.b; y[2] = s.c; y[3] = s.d; }
+#else
+struct lanes4 { real a, b, c, d; };
+TINY_FIXED_STEP void lanes4_zero(lanes4& s) noexcept { s.a = 0.0f; s.b = 0.0f; s.c = 0.0f; s.d = 0.0f; }
+TINY_FIXED_STEP void lanes4_mac(lanes4& s, const real*& w, real x) noexcept {
+    s.a += w[0] * x; s.b += w[1] * x; s.c += w[2] * x; s.d += w[3] * x;
+    w += 4;
+}
+TINY_FIXED_STEP void lanes4_add(lanes4& s, const real* b) noexcept { s.a += b[0]; s.b += b[1]; s.c += b[2]; s.d += b[3]; }
+TINY_FIXED_STEP void lanes4_store(const lanes4& s, real* y) noexcept { y[0] = s.a; y[1] = s.b; y[2] = s.c; y[3] = s.d; }
+#endif
+
+// dense lift: 2 -> 3, relu; 0 blocks of 4 outputs, one of 3, inputs written out
 void dense_lift(const real* __restrict x, real* __restrict y) noexcept {
     const real* const volatile w_at = w_lift;
-    const real* __restrict w = w_at;
+    const real* w = w_at;  // advanced by the steps
     const real* const volatile b_at = b_lift;
     const real* __restrict b = b_at;
-    for (std::size_t o = 0; o < 3; ++o, w += 2) {
-        real acc = 0.0f;
-        for (std::size_t i = 0; i < 2; ++i) acc += w[i] * x[i];
-        acc += b[o];
-        y[o] = act_relu(acc);
+    {
+        lanes3 s;
+        lanes3_zero(s);
+        lanes3_mac(s, w, x[0]);
+        lanes3_mac(s, w, x[1]);
+        lanes3_add(s, b + 0);
+        lanes3_store(s, y + 0);
     }
+    for (std::size_t o = 0; o < 3; ++o) y[o] = act_relu(y[o]);
 }
 
 // dense f1: 3 + t -> 4, tanh; 1 block of 4 outputs, inputs written out
 void dense_f1(const real* __restrict x, real t, real* __restrict y) noexcept {
     const real* const volatile w_at = w_f1;
-    const real* __restrict w = w_at;
+    const real* w = w_at;  // advanced by the steps
     const real* const volatile b_at = b_f1;
     const real* __restrict b = b_at;
-    for (std::size_t o = 0; o < 4; o += 4) {
-        real a0 = 0.0f, a1 = 0.0f, a2 = 0.0f, a3 = 0.0f;
-        {
-            const real xi = x[0];
-            a0 += w[0] * xi;
-            a1 += w[1] * xi;
-            a2 += w[2] * xi;
-            a3 += w[3] * xi;
-        }
-        {
-            const real xi = x[1];
-            a0 += w[4] * xi;
-            a1 += w[5] * xi;
-            a2 += w[6] * xi;
-            a3 += w[7] * xi;
-        }
-        {
-            const real xi = x[2];
-            a0 += w[8] * xi;
-            a1 += w[9] * xi;
-            a2 += w[10] * xi;
-            a3 += w[11] * xi;
-        }
-        a0 += w[12] * t;
-        a1 += w[13] * t;
-        a2 += w[14] * t;
-        a3 += w[15] * t;
-        w += 16;
-        a0 += b[o];
-        a1 += b[o + 1];
-        a2 += b[o + 2];
-        a3 += b[o + 3];
-        y[o] = act_tanh(a0);
-        y[o + 1] = act_tanh(a1);
-        y[o + 2] = act_tanh(a2);
-        y[o + 3] = act_tanh(a3);
+    {
+        lanes4 s;
+        lanes4_zero(s);
+        lanes4_mac(s, w, x[0]);
+        lanes4_mac(s, w, x[1]);
+        lanes4_mac(s, w, x[2]);
+        lanes4_mac(s, w, t);
+        lanes4_add(s, b + 0);
+        lanes4_store(s, y + 0);
     }
+    for (std::size_t o = 0; o < 4; ++o) y[o] = act_tanh(y[o]);
 }
 
-// dense f2: 4 -> 3, identity; 0 blocks of 4 outputs, 3 outputs alone
+// dense f2: 4 -> 3, identity; 0 blocks of 4 outputs, one of 3, inputs written out
 void dense_f2(const real* __restrict x, real* __restrict y) noexcept {
     const real* const volatile w_at = w_f2;
-    const real* __restrict w = w_at;
+    const real* w = w_at;  // advanced by the steps
     const real* const volatile b_at = b_f2;
     const real* __restrict b = b_at;
-    for (std::size_t o = 0; o < 3; ++o, w += 4) {
-        real acc = 0.0f;
-        for (std::size_t i = 0; i < 4; ++i) acc += w[i] * x[i];
-        acc += b[o];
-        y[o] = acc;
+    {
+        lanes3 s;
+        lanes3_zero(s);
+        lanes3_mac(s, w, x[0]);
+        lanes3_mac(s, w, x[1]);
+        lanes3_mac(s, w, x[2]);
+        lanes3_mac(s, w, x[3]);
+        lanes3_add(s, b + 0);
+        lanes3_store(s, y + 0);
     }
 }
 
-// dense r1: 3 -> 3, silu; 0 blocks of 4 outputs, 3 outputs alone
+// dense r1: 3 -> 3, silu; 0 blocks of 4 outputs, one of 3, inputs written out
 void dense_r1(const real* __restrict x, real* __restrict y) noexcept {
     const real* const volatile w_at = w_r1;
-    const real* __restrict w = w_at;
+    const real* w = w_at;  // advanced by the steps
     const real* const volatile b_at = b_r1;
     const real* __restrict b = b_at;
-    for (std::size_t o = 0; o < 3; ++o, w += 3) {
-        real acc = 0.0f;
-        for (std::size_t i = 0; i < 3; ++i) acc += w[i] * x[i];
-        acc += b[o];
-        y[o] = act_silu(acc);
+    {
+        lanes3 s;
+        lanes3_zero(s);
+        lanes3_mac(s, w, x[0]);
+        lanes3_mac(s, w, x[1]);
+        lanes3_mac(s, w, x[2]);
+        lanes3_add(s, b + 0);
+        lanes3_store(s, y + 0);
     }
+    for (std::size_t o = 0; o < 3; ++o) y[o] = act_silu(y[o]);
 }
 
-// dense head: 3 -> 2, softmax; 0 blocks of 4 outputs, 2 outputs alone
+// dense head: 3 -> 2, softmax; 0 blocks of 4 outputs, one of 2, inputs written out
 void dense_head(const real* __restrict x, real* __restrict y) noexcept {
     const real* const volatile w_at = w_head;
-    const real* __restrict w = w_at;
+    const real* w = w_at;  // advanced by the steps
     const real* const volatile b_at = b_head;
     const real* __restrict b = b_at;
-    for (std::size_t o = 0; o < 2; ++o, w += 3) {
-        real acc = 0.0f;
-        for (std::size_t i = 0; i < 3; ++i) acc += w[i] * x[i];
-        acc += b[o];
-        y[o] = acc;
+    {
+        lanes2 s;
+        lanes2_zero(s);
+        lanes2_mac(s, w, x[0]);
+        lanes2_mac(s, w, x[1]);
+        lanes2_mac(s, w, x[2]);
+        lanes2_add(s, b + 0);
+        lanes2_store(s, y + 0);
     }
     // Max-subtracted: exp never overflows and the largest term is 1.
     real top = y[0];
