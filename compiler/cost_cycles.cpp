@@ -574,7 +574,10 @@ bool measure_cycles(const Model& model, const std::vector<EmittedFile>& files, c
                     if (li != layer_index.end()) layer = li->second;
                     break;
                 }
-                if (layer >= 0 && frames.front().rfind("dense_", 0) == 0) o = Origin{Origin::dense, layer};
+                // The dense kernels' inlined steps (lanesR_mac and the like) are the layer's own code.
+                std::size_t own = 0;
+                while (own + 1 < frames.size() && frames[own].rfind("lanes", 0) == 0) ++own;
+                if (layer >= 0 && frames[own].rfind("dense_", 0) == 0) o = Origin{Origin::dense, layer};
                 else if (layer >= 0) o = Origin{Origin::activation, layer};
                 else if (kernels.count(frames.back())) o = Origin{Origin::kernel_function, -1};
                 origins[addr] = o;

@@ -1,14 +1,19 @@
-// Emit, dense kernels: y = act(W x + b) per layer (softmax over the layer's
-// outputs after the loop). Each output's sum keeps the contract's order
-// (DEVELOPERS.md, "Operation order": from zero, inputs ascending, time last,
-// then the bias); around it the outputs go in blocks of kDenseBlockRows with
-// one accumulator each and each input loaded once per block, over weights that
-// weights.cpp interleaves per block (the rows left over stay plain, one
-// accumulator each). A block's loop over the inputs is written out in full
-// when the layer has at most kUnrollInputs input columns: straight-line code
-// that GCC turns into packed multiplies on x86-64 and that saves the loop
-// overhead on a Cortex-M (DEVELOPERS.md states the measured trade).
+// Emit, dense kernels: y = act(W x + b) per layer (activations over the
+// layer's outputs after its sums; softmax after that). Each output's sum keeps
+// the contract's order (DEVELOPERS.md, "Operation order": from zero, inputs
+// ascending, time last, then the bias, each product rounded and then added);
+// around it the outputs go in blocks of kDenseBlockRows (the last block of a
+// layer takes the rows left over), each input loaded once per block, over
+// weights that weights.cpp interleaves per block. A block's accumulators are
+// a `lanesR` value advanced by `lanesR_mac`; render_dense_steps writes those
+// steps three ways that give the same bits, chosen when the emitted code is
+// compiled: SSE2 registers on x86, VLDM + VMUL + VADD on an ARMv7E-M FPU, plain
+// C++ elsewhere. A block's loop over the inputs is written out in full when
+// the layer has at most kUnrollInputs input columns (DEVELOPERS.md states the
+// measured trade).
 #include <fmt/format.h>
+
+#include <set>
 
 #include "render.hpp"
 
@@ -16,12 +21,150 @@ namespace meander::emit_detail {
 
 namespace {
 
-std::string acc_name(int r) { return fmt::format("a{}", r); }
+std::set<int> block_sizes(const Model& m) {
+    std::set<int> sizes;
+    for_each_dense(m.blocks, [&](const Dense& d) {
+        if (d.out >= kDenseBlockRows) sizes.insert(kDenseBlockRows);
+        if (d.out % kDenseBlockRows) sizes.insert(d.out % kDenseBlockRows);
+    });
+    return sizes;
+}
+
+const char* const kLane = "abcd";  // accumulator names of a lanesR struct
+
+// The plain C++ steps: one accumulator per row, `a += w * x` each.
+std::string portable_steps(const Emission& e, int R, const std::string& inl) {
+    std::string o = fmt::format("struct lanes{} {{ real", R);
+    for (int r = 0; r < R; ++r) o += fmt::format("{} {}", r ? "," : "", kLane[r]);
+    o += "; };\n";
+    o += fmt::format("{} void lanes{}_zero(lanes{}& s) noexcept {{", inl, R, R);
+    for (int r = 0; r < R; ++r) o += fmt::format(" s.{} = {};", kLane[r], e.L(0));
+    o += " }\n";
+    o += fmt::format("{} void lanes{}_mac(lanes{}& s, const real*& w, real x) noexcept {{\n   ", inl, R, R);
+    for (int r = 0; r < R; ++r) o += fmt::format(" s.{} += w[{}] * x;", kLane[r], r);
+    o += fmt::format("\n    w += {};\n}}\n", R);
+    o += fmt::format("{} void lanes{}_add(lanes{}& s, const real* b) noexcept {{", inl, R, R);
+    for (int r = 0; r < R; ++r) o += fmt::format(" s.{} += b[{}];", kLane[r], r);
+    o += " }\n";
+    o += fmt::format("{} void lanes{}_store(const lanes{}& s, real* y) noexcept {{", inl, R, R);
+    for (int r = 0; r < R; ++r) o += fmt::format(" y[{}] = s.{};", r, kLane[r]);
+    o += " }\n";
+    return o;
+}
+
+// x86 with SSE2: float32 four rows in one register; float64 two rows per
+// register. Packed multiply then packed add: per lane the same two roundings.
+std::string sse_steps(const Emission& e, int R, const std::string& inl) {
+    std::string o;
+    if (e.p == Precision::float32) {
+        o += "struct lanes4 { __m128 v; };\n";
+        o += inl + " void lanes4_zero(lanes4& s) noexcept { s.v = _mm_setzero_ps(); }\n";
+        o += inl + " void lanes4_mac(lanes4& s, const real*& w, real x) noexcept {\n"
+                   "    s.v = _mm_add_ps(s.v, _mm_mul_ps(_mm_loadu_ps(w), _mm_set1_ps(x)));\n"
+                   "    w += 4;\n}\n";
+        o += inl + " void lanes4_add(lanes4& s, const real* b) noexcept { s.v = _mm_add_ps(s.v, _mm_loadu_ps(b)); }\n";
+        o += inl + " void lanes4_store(const lanes4& s, real* y) noexcept { _mm_storeu_ps(y, s.v); }\n";
+        return o;
+    }
+    const int regs = R / 2;
+    o += fmt::format("struct lanes{} {{ __m128d", R);
+    for (int k = 0; k < regs; ++k) o += fmt::format("{} v{}", k ? "," : "", k);
+    o += "; };\n";
+    o += fmt::format("{} void lanes{}_zero(lanes{}& s) noexcept {{", inl, R, R);
+    for (int k = 0; k < regs; ++k) o += fmt::format(" s.v{} = _mm_setzero_pd();", k);
+    o += " }\n";
+    o += fmt::format("{} void lanes{}_mac(lanes{}& s, const real*& w, real x) noexcept {{\n", inl, R, R);
+    o += "    const __m128d xx = _mm_set1_pd(x);\n";
+    for (int k = 0; k < regs; ++k)
+        o += fmt::format("    s.v{0} = _mm_add_pd(s.v{0}, _mm_mul_pd(_mm_loadu_pd(w + {1}), xx));\n", k, 2 * k);
+    o += fmt::format("    w += {};\n}}\n", R);
+    o += fmt::format("{} void lanes{}_add(lanes{}& s, const real* b) noexcept {{", inl, R, R);
+    for (int k = 0; k < regs; ++k) o += fmt::format(" s.v{0} = _mm_add_pd(s.v{0}, _mm_loadu_pd(b + {1}));", k, 2 * k);
+    o += " }\n";
+    o += fmt::format("{} void lanes{}_store(const lanes{}& s, real* y) noexcept {{", inl, R, R);
+    for (int k = 0; k < regs; ++k) o += fmt::format(" _mm_storeu_pd(y + {}, s.v{});", 2 * k, k);
+    o += " }\n";
+    return o;
+}
+
+// ARMv7E-M with a single-precision FPU (Cortex-M4F, M7), float32: the R
+// weights come in with one VLDM into s12.. (caller-saved, so nothing to save),
+// then VMUL and VADD per row. Left to itself GCC joins the multiply and the add
+// into VMLA, which rounds the product just the same but costs 3 cycles against
+// 1 + 1, and loads each weight with its own VLDR (2 cycles against 1 + R for
+// the VLDM; Cortex-M4 TRM, DDI 0439, 7.2.3).
+std::string arm_steps(int R, const std::string& inl) {
+    std::string o = fmt::format("struct lanes{} {{ real", R);
+    for (int r = 0; r < R; ++r) o += fmt::format("{} {}", r ? "," : "", kLane[r]);
+    o += "; };\n";
+    o += fmt::format("{} void lanes{}_zero(lanes{}& s) noexcept {{", inl, R, R);
+    for (int r = 0; r < R; ++r) o += fmt::format(" s.{} = 0.0f;", kLane[r]);
+    o += " }\n";
+    const std::string regs = R == 1 ? "s12" : fmt::format("s12-s{}", 11 + R);
+    std::string outs, clobbers;
+    for (int r = 0; r < R; ++r) {
+        outs += fmt::format("{}[{}] \"+t\"(s.{})", r ? ", " : "", kLane[r], kLane[r]);
+        clobbers += fmt::format("{}\"s{}\"", r ? ", " : "", 12 + r);
+    }
+    o += fmt::format("{} void lanes{}_mac(lanes{}& s, const real*& w, real x) noexcept {{\n", inl, R, R);
+    o += fmt::format("    __asm__(\"vldmia %[w]!, {{{}}}\\n\\t\"\n", regs);
+    for (int r = 0; r < R; ++r) o += fmt::format("            \"vmul.f32 s{0}, s{0}, %[x]\\n\\t\"\n", 12 + r);
+    for (int r = 0; r < R; ++r)
+        o += fmt::format("            \"vadd.f32 %[{0}], %[{0}], s{1}{2}\"\n", kLane[r], 12 + r, r + 1 < R ? "\\n\\t" : "");
+    o += fmt::format("            : {}, [w] \"+r\"(w)\n", outs);
+    o += fmt::format("            : [x] \"t\"(x), \"m\"(*reinterpret_cast<const real(*)[{}]>(w))\n", R);
+    o += fmt::format("            : {});\n}}\n", clobbers);
+    o += fmt::format("{} void lanes{}_add(lanes{}& s, const real* b) noexcept {{\n", inl, R, R);
+    o += fmt::format("    __asm__(\"vldmia %[p], {{{}}}\\n\\t\"\n", regs);
+    for (int r = 0; r < R; ++r)
+        o += fmt::format("            \"vadd.f32 %[{0}], %[{0}], s{1}{2}\"\n", kLane[r], 12 + r, r + 1 < R ? "\\n\\t" : "");
+    o += fmt::format("            : {}\n", outs);
+    o += fmt::format("            : [p] \"r\"(b), \"m\"(*reinterpret_cast<const real(*)[{}]>(b))\n", R);
+    o += fmt::format("            : {});\n}}\n", clobbers);
+    o += fmt::format("{} void lanes{}_store(const lanes{}& s, real* y) noexcept {{", inl, R, R);
+    for (int r = 0; r < R; ++r) o += fmt::format(" y[{}] = s.{};", r, kLane[r]);
+    o += " }\n";
+    return o;
+}
 
 }  // namespace
 
-std::string render_dense_layers(const Emission& e) {
+std::string render_dense_steps(const Emission& e) {
+    const std::set<int> sizes = block_sizes(e.model);
+    if (sizes.empty()) return "";
+    const bool f32 = e.p == Precision::float32;
+    const std::string inl = e.M() + "_STEP";
     std::string o;
+    o += "// Dense kernel steps. lanesR holds the sums of R outputs of one block; lanesR_mac\n"
+         "// adds w[r] * x to sum r (the product rounded, then the sum: never fused) and moves\n"
+         "// w past the R weights; lanesR_add adds the bias, lanesR_store writes the sums out.\n"
+         "// Three ways to the same bits, chosen by the compiler's target: x86 with SSE2 (one\n"
+         "// register holds four float sums or two double sums: a packed multiply, then a packed\n";
+    o += "// add), Cortex-M4F and M7 in float32 (one VLDM brings the R weights, then VMUL and\n"
+         "// VADD per row, written out because GCC would join them into VMLA, which rounds the\n"
+         "// same but costs 3 cycles against 1 + 1 in the Cortex-M4 TRM, 7.2.3), and plain C++.\n";
+    o += fmt::format("#if defined(__GNUC__)\n#define {0} __attribute__((always_inline)) inline\n#else\n#define {0} inline\n"
+                     "#endif\n",
+                     inl);
+    const std::string arm = "defined(__ARM_ARCH_7EM__) && defined(__ARM_FP) && (__ARM_FP & 4)";
+    for (int R : sizes) {
+        const bool sse = f32 ? R == 4 : R % 2 == 0;
+        if (sse) {
+            o += "#if defined(__SSE2__)\n" + sse_steps(e, R, inl);
+            o += f32 ? "#elif " + arm + "\n" + arm_steps(R, inl) : std::string();
+        } else if (f32) {
+            o += "#if " + arm + "\n" + arm_steps(R, inl);
+        }
+        if (sse || f32) o += "#else\n";
+        o += portable_steps(e, R, inl);
+        if (sse || f32) o += "#endif\n";
+    }
+    o += "\n";
+    return o;
+}
+
+std::string render_dense_layers(const Emission& e) {
+    std::string o = render_dense_steps(e);
     const int R = kDenseBlockRows;
     for_each_model_dense(e.model, [&](const Dense& d) {
         const std::string sym = layer_symbol(e.model, d);
@@ -31,8 +174,7 @@ std::string render_dense_layers(const Emission& e) {
         const bool unroll = cols <= kUnrollInputs;
         o += fmt::format("// dense {}: {}{} -> {}, {}; {} block{} of {} outputs{}{}\n", sym, d.in,
                          d.time_input ? " + t" : "", d.out, activation_name(d.act), blocks, blocks == 1 ? "" : "s", R,
-                         rest ? fmt::format(", {} output{} alone", rest, rest == 1 ? "" : "s") : "",
-                         unroll && blocks ? ", inputs written out" : "");
+                         rest ? fmt::format(", one of {}", rest) : "", unroll ? ", inputs written out" : "");
         o += fmt::format("void dense_{}(const real* __restrict x, {}real* __restrict y) noexcept {{\n", sym,
                          d.time_input ? "real t, " : "");
         // Through volatile copies of the addresses: where the indices are
@@ -40,53 +182,39 @@ std::string render_dense_layers(const Emission& e) {
         // otherwise fold weights and biases into the code, out of their
         // arrays and the NAME_WEIGHTS_ATTR section.
         o += fmt::format("    const real* const volatile w_at = w_{};\n", sym);
-        o += "    const real* __restrict w = w_at;\n";
+        o += "    const real* w = w_at;  // advanced by the steps\n";
         if (d.has_bias) {
             o += fmt::format("    const real* const volatile b_at = b_{};\n", sym);
             o += "    const real* __restrict b = b_at;\n";
         }
-        if (blocks > 0) {
-            o += fmt::format("    for (std::size_t o = 0; o < {}; o += {}) {{\n", blocks * R, R);
-            o += "        real";
-            for (int r = 0; r < R; ++r) o += fmt::format("{} {} = {}", r ? "," : "", acc_name(r), e.L(0));
-            o += ";\n";
+        // One block of n outputs starting at `at` (an expression).
+        auto block = [&](int n, const std::string& at, const std::string& pad) {
+            o += fmt::format("{}lanes{} s;\n{}lanes{}_zero(s);\n", pad, n, pad, n);
             if (unroll) {
-                for (int i = 0; i < d.in; ++i) {
-                    o += fmt::format("        {{\n            const real xi = x[{}];\n", i);
-                    for (int r = 0; r < R; ++r)
-                        o += fmt::format("            {} += w[{}] * xi;\n", acc_name(r), i * R + r);
-                    o += "        }\n";
-                }
-                if (d.time_input)
-                    for (int r = 0; r < R; ++r) o += fmt::format("        {} += w[{}] * t;\n", acc_name(r), d.in * R + r);
-                o += fmt::format("        w += {};\n", cols * R);
+                for (int i = 0; i < d.in; ++i) o += fmt::format("{}lanes{}_mac(s, w, x[{}]);\n", pad, n, i);
             } else {
-                o += fmt::format("        for (std::size_t i = 0; i < {}; ++i, w += {}) {{\n", d.in, R);
-                o += "            const real xi = x[i];\n";
-                for (int r = 0; r < R; ++r) o += fmt::format("            {} += w[{}] * xi;\n", acc_name(r), r);
-                o += "        }\n";
-                if (d.time_input) {
-                    for (int r = 0; r < R; ++r) o += fmt::format("        {} += w[{}] * t;\n", acc_name(r), r);
-                    o += fmt::format("        w += {};\n", R);
-                }
+                o += fmt::format("{}for (std::size_t i = 0; i < {}; ++i) lanes{}_mac(s, w, x[i]);\n", pad, d.in, n);
             }
-            if (d.has_bias)
-                for (int r = 0; r < R; ++r)
-                    o += fmt::format("        {} += b[o{}];\n", acc_name(r), r ? fmt::format(" + {}", r) : "");
-            for (int r = 0; r < R; ++r)
-                o += fmt::format("        y[o{}] = {};\n", r ? fmt::format(" + {}", r) : "",
-                                 apply_activation(e, d, acc_name(r)));
+            if (d.time_input) o += fmt::format("{}lanes{}_mac(s, w, t);\n", pad, n);
+            if (d.has_bias) o += fmt::format("{}lanes{}_add(s, b + {});\n", pad, n, at);
+            o += fmt::format("{}lanes{}_store(s, y + {});\n", pad, n, at);
+        };
+        if (blocks > 1) {
+            o += fmt::format("    for (std::size_t o = 0; o < {}; o += {}) {{\n", blocks * R, R);
+            block(R, "o", "        ");
+            o += "    }\n";
+        } else if (blocks == 1) {
+            o += "    {\n";
+            block(R, "0", "        ");
             o += "    }\n";
         }
         if (rest > 0) {
-            o += fmt::format("    for (std::size_t o = {}; o < {}; ++o, w += {}) {{\n", blocks * R, d.out, cols);
-            o += fmt::format("        real acc = {};\n", e.L(0));
-            o += fmt::format("        for (std::size_t i = 0; i < {}; ++i) acc += w[i] * x[i];\n", d.in);
-            if (d.time_input) o += fmt::format("        acc += w[{}] * t;\n", d.in);
-            if (d.has_bias) o += "        acc += b[o];\n";
-            o += fmt::format("        y[o] = {};\n", apply_activation(e, d, "acc"));
+            o += "    {\n";
+            block(rest, std::to_string(blocks * R), "        ");
             o += "    }\n";
         }
+        const std::string act = apply_activation(e, d, "y[o]");
+        if (act != "y[o]") o += fmt::format("    for (std::size_t o = 0; o < {}; ++o) y[o] = {};\n", d.out, act);
         if (d.act == Activation::softmax) {
             o += "    // Max-subtracted: exp never overflows and the largest term is 1.\n";
             o += "    real top = y[0];\n";

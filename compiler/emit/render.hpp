@@ -66,10 +66,13 @@ std::string apply_activation(const Emission& e, const Dense& d, const std::strin
 std::string apply_activation(Precision p, const Dense& d, const std::string& x);
 
 // dense.cpp. Outputs go in blocks of kDenseBlockRows with one accumulator
-// each (weights.cpp interleaves the weights to match); a block's loop over
-// the inputs is written out when a layer has at most kUnrollInputs columns.
+// each, the rows left over in a last smaller block (weights.cpp interleaves
+// the weights to match); a block's loop over the inputs is written out when a
+// layer has at most kUnrollInputs columns. render_dense_steps: the blocks'
+// accumulate steps (lanesR_*), which render_dense_layers puts first.
 inline constexpr int kDenseBlockRows = 4;
 inline constexpr int kUnrollInputs = 16;
+std::string render_dense_steps(const Emission& e);
 std::string render_dense_layers(const Emission& e);
 
 // integrators.cpp

@@ -2,8 +2,10 @@
 // in the section the firmware chooses. The weights are laid out the way the
 // dense kernels (dense.cpp) read them: rows in blocks of kDenseBlockRows,
 // interleaved within a block (column by column, the block's rows side by
-// side), then the rows left over, one after another.
+// side); the rows left over form a last, smaller block interleaved alike.
 #include <fmt/format.h>
+
+#include <algorithm>
 
 #include "../source.hpp"
 #include "render.hpp"
@@ -34,17 +36,19 @@ std::string render_weights(const Emission& e) {
         auto at = [&](int r, int c) { return d.weight.size() == 0 ? 0.0 : d.weight(r, c); };
         const int R = kDenseBlockRows;
         const int blocked = d.out / R * R;
-        for (int r0 = 0; r0 < blocked; r0 += R)
+        const int rest = d.out - blocked;
+        for (int r0 = 0; r0 < d.out; r0 += R)
             for (int c = 0; c < cols; ++c)
-                for (int r = r0; r < r0 + R; ++r) w.push_back(at(r, c));
-        for (int r = blocked; r < d.out; ++r)
-            for (int c = 0; c < cols; ++c) w.push_back(at(r, c));
-        o += fmt::format("// {}: weight {} x {} ({}y = W x{} + b){}\n", sym, d.out, cols, blocked > 0 ? "" : "row-major, ",
+                for (int r = r0; r < std::min(r0 + R, d.out); ++r) w.push_back(at(r, c));
+        o += fmt::format("// {}: weight {} x {} (y = W x{} + b){}\n", sym, d.out, cols,
                          d.time_input ? " with t as the last column of x" : "",
                          d.weight_tensor.empty() ? "" : ", tensor " + escape_controls(quote_string(d.weight_tensor)));
         if (blocked > 0)
-            o += fmt::format("//   W[{0}b + r][c] at {0}*{1}*b + {0}*c + r for rows below {2}{3}\n", R, cols, blocked,
-                             blocked < d.out ? fmt::format(", W[r][c] at r*{} + c after", cols) : "");
+            o += fmt::format("//   W[{0}b + r][c] at {0}*{1}*b + {0}*c + r for rows below {2}\n", R, cols, blocked);
+        if (rest > 0 && blocked > 0)
+            o += fmt::format("//   W[{} + r][c] at {} + {}*c + r after them\n", blocked, blocked * cols, rest);
+        else if (rest > 0)
+            o += fmt::format("//   W[r][c] at {}*c + r\n", rest);
         o += fmt::format("{}_WEIGHTS_ATTR const real w_{}[{}] = {{\n", M_, sym, w.size());
         o += array_rows(w, e.p);
         o += "};\n";

@@ -19,6 +19,11 @@
 #                   software-double helper (__aeabi_d*), no malloc, no operator new,
 #                   no C library float maths but sqrtf
 #   stack           every emitted function's stack use (-fstack-usage) is static
+#   contracting-host | contracting-m4f
+#                   a build that breaks the conditions for common bits is
+#                   caught: with -ffp-contract=fast (and -mfma on this machine;
+#                   the Cortex-M4F FPU has VFMA) the self-test must report
+#                   build_conditions_hold() false and the driver exit non-zero
 #   cost            `meander cost --json` states the code bytes arm-none-eabi-size
 #                   and the entry frame the .su file give for the emitted object,
 #                   and the header's workspace_bytes
@@ -80,7 +85,8 @@ if [ "$precision" = float32 ]; then tol_default=1e-4; else tol_default=1e-10; fi
 tol=${MEANDER_TARGET_TOL:-$tol_default}
 
 case "$mode" in
-    cortex-m4f|cortex-m3|cortex-m7|image|stack|warnings-arm) need arm-none-eabi-g++ ;;
+    cortex-m4f|cortex-m3|cortex-m7|image|stack|warnings-arm|contracting-m4f) need arm-none-eabi-g++ ;;
+    contracting-host) need g++ objdump ;;
     cost) need arm-none-eabi-g++ arm-none-eabi-size ;;
     arm-linux|arm-linux-f64) need arm-linux-gnueabihf-g++ qemu-arm ;;
     warnings-gcc|host-gcc) need g++ ;;
@@ -90,7 +96,7 @@ case "$mode" in
     *) echo "run_target.sh: unknown mode '$mode'" >&2; exit 2 ;;
 esac
 case "$mode" in
-    cortex-m4f|cortex-m3|cortex-m7) need qemu-system-arm ;;
+    cortex-m4f|cortex-m3|cortex-m7|contracting-m4f) need qemu-system-arm ;;
     image) need arm-none-eabi-nm ;;
 esac
 command -v timeout > /dev/null 2>&1 || { echo "SKIP: timeout (coreutils) is not installed"; exit 77; }
@@ -254,14 +260,31 @@ emulate() {
     echo "PASS: $mode"
 }
 
+# A run that must be caught: the self-test reports build_conditions_hold()
+# false (build-conditions 0) and the driver exits non-zero.
+expect_caught() {
+    local log=$work/run.log rc
+    echo "+ timeout $limit $*"
+    timeout "$limit" "$@" > "$log" 2>&1
+    rc=$?
+    grep '^self-test ' "$log"
+    [ "$rc" -ne 124 ] || fail "the run did not end within $limit s"
+    grep -Eq '^self-test .* build-conditions 0 ' "$log" ||
+        fail "build_conditions_hold() did not notice the contracting build"
+    [ "$rc" -ne 0 ] || fail "the driver exited 0 although build_conditions_hold() is false"
+    echo "PASS: $mode (build_conditions_hold() is false, exit status $rc)"
+}
+
+contract=-ffp-contract=off
 board() {
     local machine=$1; shift
     write_inputs
-    run arm-none-eabi-g++ "${common_cross[@]}" -ffp-contract=off "$@" "${driver_defs[@]}" \
+    run arm-none-eabi-g++ "${common_cross[@]}" "$contract" "$@" "${driver_defs[@]}" \
         "$here/startup.cpp" "$here/$driver" "${sources[@]}" \
         -T "$here/mps2.ld" -nostartfiles --specs=rdimon.specs -Wl,--gc-sections -o "$work/app.elf" ||
         fail "cross build failed"
-    emulate qemu-system-arm -M "$machine" -nographic -semihosting-config enable=on,target=native -kernel "$work/app.elf"
+    local qemu=(qemu-system-arm -M "$machine" -nographic -semihosting-config enable=on,target=native -kernel "$work/app.elf")
+    if [ "$contract" = -ffp-contract=off ]; then emulate "${qemu[@]}"; else expect_caught "${qemu[@]}"; fi
 }
 
 case "$mode" in
@@ -271,6 +294,20 @@ host-gcc|host-clang)
     run "$cxx" -std=c++17 -O2 -ffp-contract=off -fno-exceptions -fno-rtti "${driver_defs[@]}" \
         "$here/$driver" "${sources[@]}" -o "$work/app" || fail "host build failed"
     emulate "$work/app"
+    ;;
+contracting-host)
+    [ "$streaming" = 0 ] || { echo "SKIP: a streaming model has no self-test yet"; exit 77; }
+    grep -qw fma /proc/cpuinfo 2> /dev/null || { echo "SKIP: this CPU has no FMA: a contracting build cannot run here"; exit 77; }
+    write_inputs
+    run g++ -std=c++17 -O2 -mfma -ffp-contract=fast -fno-exceptions -fno-rtti "${driver_defs[@]}" \
+        "$here/$driver" "${sources[@]}" -o "$work/app" || fail "host build failed"
+    echo "fused multiply-adds in the build: $(objdump -d "$work/app" | grep -c 'vfn\?m\(add\|sub\)')"
+    expect_caught "$work/app"
+    ;;
+contracting-m4f)
+    [ "$streaming" = 0 ] || { echo "SKIP: a streaming model has no self-test yet"; exit 77; }
+    contract=-ffp-contract=fast
+    board mps2-an386 "${m4f_flags[@]}"
     ;;
 cortex-m4f) board mps2-an386 "${m4f_flags[@]}" ;;
 cortex-m3)  board mps2-an385 "${m3_flags[@]}" ;;

@@ -386,7 +386,7 @@ TEST(Emit, FloatLiteralsAreSuffixedAndRoundTrip) {
     const std::string& cpp = files[1].text;
     // Every weight of every layer appears, in the order DEVELOPERS.md states
     // (rows in blocks of 4, interleaved column by column; the remaining rows
-    // one after another), as a literal that reads back (strtof, the C
+    // a last block interleaved alike), as a literal that reads back (strtof, the C
     // library's own parser) to the same float bits.
     std::vector<float> expected;
     for (const Block& b : m.blocks) {
@@ -395,8 +395,8 @@ TEST(Emit, FloatLiteralsAreSuffixedAndRoundTrip) {
             for (int r0 = 0; r0 < blocked; r0 += 4)
                 for (int c = 0; c < d.in_total(); ++c)
                     for (int r = r0; r < r0 + 4; ++r) expected.push_back(static_cast<float>(d.weight(r, c)));
-            for (int r = blocked; r < d.out; ++r)
-                for (int c = 0; c < d.in_total(); ++c) expected.push_back(static_cast<float>(d.weight(r, c)));
+            for (int c = 0; c < d.in_total(); ++c)
+                for (int r = blocked; r < d.out; ++r) expected.push_back(static_cast<float>(d.weight(r, c)));
             for (int r = 0; r < d.out; ++r) expected.push_back(static_cast<float>(d.bias[r]));
         };
         if (b.kind == Block::Kind::dense) add(b.dense);

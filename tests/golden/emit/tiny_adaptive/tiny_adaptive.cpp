@@ -3,7 +3,7 @@
 // content hash (description and weights): 0123456789abcdef
 // precision: float32 (real = float)
 // math: meander's own float kernels (runtime/math_float.inc), no C library maths;
-//   largest error in ulp against MPFR: exp 1.0 expm1 1.5 tanh 2.0 sigmoid 2.5 softplus 2.0 silu 3.0 gelu 3.5
+//   largest error in ulp against MPFR: exp 1.0 expm1 1.5 tanh 2.0 sigmoid 2.5 softplus 3.0 silu 3.0 gelu 3.5
 // bits: the same outputs on every core when built with -ffp-contract=off (no FMA
 //   contraction), without -ffast-math, rounding to nearest, subnormals kept;
 //   build_conditions_hold() checks a build, the self-test reports it
@@ -29,7 +29,11 @@
 #include <cstdint>
 #include <cstring>
 
-#if !defined(TINY_ADAPTIVE_MEANDER_STAMP) || TINY_ADAPTIVE_MEANDER_STAMP != 0xe0cc3049cd16ddc6ULL
+#if defined(__SSE2__)
+#include <emmintrin.h>
+#endif
+
+#if !defined(TINY_ADAPTIVE_MEANDER_STAMP) || TINY_ADAPTIVE_MEANDER_STAMP != 0x2197cf099c6961eaULL
 #error "tiny_adaptive.hpp is not the header generated with this source: regenerate both"
 #endif
 
@@ -56,7 +60,8 @@ namespace tiny_adaptive {
 namespace {
 
 // g1: weight 5 x 4 (y = W x with t as the last column of x + b), tensor "g1.weight"
-//   W[4b + r][c] at 4*4*b + 4*c + r for rows below 4, W[r][c] at r*4 + c after
+//   W[4b + r][c] at 4*4*b + 4*c + r for rows below 4
+//   W[4 + r][c] at 16 + 1*c + r after them
 TINY_ADAPTIVE_WEIGHTS_ATTR const real w_g1[20] = {
     -0.2780379f, -0.30100054f, -0.23007835f, 0.03944514f, 0.39476684f, 0.38613862f, 0.23658128f, -0.031599384f,
     0.32883325f, -0.43800005f, 0.07694051f, 0.3548307f, -0.3311848f, -0.33586916f, -0.23356049f, 0.3802458f,
@@ -67,10 +72,11 @@ TINY_ADAPTIVE_WEIGHTS_ATTR const real b_g1[5] = {
     -0.45994833f, -0.36542425f, 0.17018113f, -0.33499825f, 0.2926385f,
 };
 
-// g2: weight 3 x 5 (row-major, y = W x + b), tensor "g2.weight"
+// g2: weight 3 x 5 (y = W x + b), tensor "g2.weight"
+//   W[r][c] at 3*c + r
 TINY_ADAPTIVE_WEIGHTS_ATTR const real w_g2[15] = {
-    -0.09889832f, 0.017391497f, -0.10634654f, 0.34919244f, 0.09763423f, -0.24727954f, 0.23241434f, 0.38967937f,
-    -0.3284402f, -0.15266897f, 0.3150889f, 0.33050698f, -0.08219388f, -0.22574238f, -0.057224695f,
+    -0.09889832f, -0.24727954f, 0.3150889f, 0.017391497f, 0.23241434f, 0.33050698f, -0.10634654f, 0.38967937f,
+    -0.08219388f, 0.34919244f, -0.3284402f, -0.22574238f, 0.09763423f, -0.15266897f, -0.057224695f,
 };
 
 // meander's float math kernels (runtime/math_float.inc), the sections this model uses.
@@ -89,114 +95,54 @@ inline float float_of(std::uint32_t u) noexcept {
     std::memcpy(&x, &u, sizeof x);
     return x;
 }
-
-// kernel exp_core: needs bits_of float_of
-// e^x = 2^m 2^(j/32) e^r: k = 32 m + j = round(x 32/ln2), found by adding
-// 1.5 2^23 (the addition rounds; k is in the low bits of the sum),
-// r = x - k ln2/32 with |r| <= ln2/64 (Cody and Waite: ln2/32 in two parts,
-// k ln2/32_hi exact for |k| < 2^13), e^r - 1 by its Taylor series to r^3
-// (truncation below 2^-30), 2^(j/32) from a table as a float pair (256
-// bytes), so the sum rounds once: within about 0.52 ulp before scaling.
-inline constexpr float kExp2Table[64] = {
-    // 2^(j/32) rounded to float, j = 0..31
-    1.0f, 1.0218972f, 1.0442737f, 1.0671405f, 1.0905077f, 1.1143868f, 1.1387886f, 1.1637249f,
-    1.1892071f, 1.2152474f, 1.2418578f, 1.269051f, 1.2968396f, 1.3252367f, 1.3542556f, 1.38391f,
-    1.4142135f, 1.4451808f, 1.4768262f, 1.5091645f, 1.5422108f, 1.5759809f, 1.6104903f, 1.6457555f,
-    1.6817929f, 1.7186193f, 1.7562522f, 1.7947091f, 1.8340081f, 1.8741677f, 1.9152066f, 1.9571441f,
-    // 2^(j/32) minus the float above, rounded to float
-    0.0f, -4.81156e-08f, 4.83347e-08f, -5.933752e-08f, -1.307754e-08f, -5.43554e-08f, 5.3862223e-08f,
-    -4.0514415e-08f, 3.7976353e-08f, -3.267395e-08f, 4.496838e-08f, 1.4193333e-09f, -4.0189995e-08f,
-    -3.4963733e-08f, -1.0123349e-08f, -5.8755774e-08f, 2.4203235e-08f, 3.3242e-08f, -4.500899e-08f,
-    -2.4959373e-08f, 8.070905e-09f, -5.6610254e-08f, 9.836217e-09f, -5.124972e-08f, -2.4755327e-08f,
-    -4.8496176e-08f, -9.23577e-09f, -1.1415045e-08f, -1.1239278e-08f, -4.6630056e-08f, 9.845328e-09f,
-    -1.7021804e-08f};
-// 2^(j/32) e^r, j the low 5 bits of k (nb = bits of 1.5 2^23 + k).
-[[gnu::always_inline]] inline float exp_tail(float r, std::uint32_t nb) noexcept {
-    const std::uint32_t j = nb & 31u;
-    const float q = r + r * r * (0.5f + r * 0.16666667f);
-    const float t = kExp2Table[j];
-    return t + (kExp2Table[j + 32u] + t * q);
-}
-// e^x for -87 <= x <= 88 only (the callers keep it there; NaN gives NaN):
-// no range checks. 2^m, -126 <= m <= 126, is built from its bits.
-[[gnu::always_inline]] inline float exp_core(float x) noexcept {
-    const float n = x * 46.16624f + 12582912.0f;
-    const float kf = n - 12582912.0f;
-    const std::uint32_t nb = bits_of(n);
-    const float r = (x - kf * 0.02166748f) + kf * 6.6310763e-06f;
-    return exp_tail(r, nb) * float_of(((nb >> 5) - 0x25a0000u + 127u) << 23);
-}
-
-// kernel exp_scaled: needs exp_core
 // 2^k for -126 <= k <= 127, exactly.
 inline float pow2(int k) noexcept { return float_of(static_cast<std::uint32_t>(k + 127) << 23); }
-// s exp(hi + lo) for |lo| <= 2^-20 |hi| and 2^-8 <= |s| <= 2^8, any hi:
-// s 2^(j/32) e^r times 2^m in two exact halves, so a subnormal result is
-// rounded once. Overflow gives +inf (s = 1 only), an underflow 0, NaN stays NaN.
-// Out of line: the activations call it only beyond their common range.
-[[gnu::noinline]] inline float exp_scaled(float hi, float lo, float s) noexcept {
+
+// kernel exp: needs float_of
+// s exp(hi + lo) for |lo| <= 2^-20 |hi| and 2^-8 <= |s| <= 2^8: hi = k ln2 + r
+// with |r| <= ln2/2 (Cody and Waite: ln2 in two parts, k ln2_hi exact), e^r
+// by the polynomial of the Cephes Math Library's expf (S. L. Moshier), then
+// s e^r times 2^k in two exact halves, so a subnormal result is rounded once.
+// Overflow gives +inf (s = 1 only), an underflow 0, NaN stays NaN.
+inline float exp_scaled(float hi, float lo, float s) noexcept {
     if (std::isnan(hi)) return hi;
     if (hi > 88.8f) return HUGE_VALF;
     if (hi < -112.0f) return s < 0.0f ? -0.0f : 0.0f;  // not 0 * s: s may be -inf (silu at -inf)
-    const float n = hi * 46.16624f + 12582912.0f;
-    const float kf = n - 12582912.0f;
-    const std::uint32_t nb = bits_of(n);
-    const float r = ((hi - kf * 0.02166748f) + kf * 6.6310763e-06f) + lo;
-    const int m = static_cast<int>(nb >> 5) - 0x25a0000;  // floor(k / 32)
-    const int m1 = m / 2;
-    return exp_tail(r, nb) * s * pow2(m1) * pow2(m - m1);
+    const float t = hi * 1.44269504f;  // log2(e)
+    const int k = static_cast<int>(t < 0.0f ? t - 0.5f : t + 0.5f);
+    const float kf = static_cast<float>(k);
+    const float r = (hi - kf * 0.693145751953125f) - kf * 1.42860677e-6f + lo;
+    const float r2 = r * r;
+    const float p = (((((1.98756915e-4f * r + 1.39819995e-3f) * r + 8.33345190e-3f) * r + 4.16657959e-2f) * r +
+                      1.66666655e-1f) * r + 5.00000012e-1f) * r2 + r + 1.0f;
+    const int k1 = k / 2;
+    return p * s * pow2(k1) * pow2(k - k1);
 }
-
-// kernel exp: needs exp_core exp_scaled
-inline float exp_kernel(float x) noexcept {
-    if (x >= -87.0f && x <= 88.0f) return exp_core(x);
-    return exp_scaled(x, 0.0f, 1.0f);
-}
+inline float exp_kernel(float x) noexcept { return exp_scaled(x, 0.0f, 1.0f); }
 
 // kernel log1p_series: needs
-// log(1 + t) = 2 atanh(z), z = t/(2+t), by its series (|z| <= 0.18 here:
-// terms to z^11; what the step-size controller's pow needs).
+// log(1 + t) for 0 <= t <= 1 (what softplus needs): log(1+t) = 2 atanh(z),
+// z = t/(2+t), by its series (z^2 <= 0.04: terms to z^11). For t >= 1/2,
+// 1 + t = 2(1 + u) with u = (t - 1)/2 exact, so log(1+t) = ln2 + log(1+u),
+// which keeps |z| <= 1/7 and the series short.
 inline float log1p_series(float z) noexcept {
     const float z2 = z * z;
     const float p = ((((1.0f / 11.0f * z2 + 1.0f / 9.0f) * z2 + 1.0f / 7.0f) * z2 + 1.0f / 5.0f) * z2 + 1.0f / 3.0f) * z2;
     return 2.0f * z + 2.0f * z * p;
 }
 
-// kernel softplus: needs exp
-// max(x, 0) + log1p(e), e = exp(-|x|) in (2^-24, 1]. log1p(e) from a table
-// at the points j/16: e = j/16 + d (d exact, |d| <= 1/32), so
-// log1p(e) = log(1 + j/16) + log1p(s), s = d/(1 + j/16), |s| <= 1/32, by its
-// Taylor series to s^5 (truncation below 2^-27 of the result); the table
-// holds 1/(16 + j) and log(1 + j/16) as a float pair (204 bytes). x >= 16
-// gives x (the rest is below half an ulp); x <= -16 gives e - e^2/2.
-inline constexpr float kLog1pTable[51] = {
-    // 1/(16 + j), j = 0..16
-    0.0625f, 0.05882353f, 0.055555556f, 0.05263158f, 0.05f, 0.04761905f, 0.045454547f, 0.04347826f,
-    0.041666668f, 0.04f, 0.03846154f, 0.037037037f, 0.035714287f, 0.03448276f, 0.033333335f, 0.032258064f,
-    0.03125f,
-    // log(1 + j/16) rounded to float
-    0.0f, 0.06062462f, 0.11778303f, 0.17185026f, 0.22314355f, 0.2719337f, 0.31845373f, 0.3629055f,
-    0.4054651f, 0.4462871f, 0.48550782f, 0.52324814f, 0.5596158f, 0.59470713f, 0.62860864f, 0.6613985f,
-    0.6931472f,
-    // log(1 + j/16) minus the float above, rounded to float
-    0.0f, 7.905942e-12f, 3.2986907e-09f, -7.145759e-09f, 3.5408485e-09f, 1.0869003e-08f, 1.9658553e-09f,
-    -8.629968e-09f, 1.1872889e-08f, 7.081697e-09f, -2.945779e-10f, 7.720999e-09f, -2.908541e-09f,
-    -2.363911e-08f, 1.5413738e-08f, 1.1843601e-08f, -1.9046542e-09f};
+// kernel log1p: needs log1p_series
+inline float log1p_kernel(float t) noexcept {
+    if (t < 0.5f) return log1p_series(t / (2.0f + t));
+    const float u = (t - 1.0f) * 0.5f;
+    return 0.693145751953125f + (log1p_series(u / (2.0f + u)) + 1.42860677e-6f);
+}
+
+// kernel softplus: needs exp log1p
+// max(x, 0) + log1p(exp(-|x|)): no overflow for large x.
 inline float act_softplus(float x) noexcept {
-    const float a = std::fabs(x);
-    if (a < 16.0f) {
-        const float e16 = exp_core(-a) * 16.0f;
-        const float n = e16 + 12582912.0f;  // 1.5 2^23 + j, j = round(16 e)
-        const float jf = n - 12582912.0f;
-        const std::uint32_t j = bits_of(n) & 31u;
-        const float s = (e16 - jf) * kLog1pTable[j];
-        const float p = s + s * s * (-0.5f + s * (0.33333334f + s * (-0.25f + s * 0.2f)));
-        const float l = kLog1pTable[j + 17u] + (kLog1pTable[j + 34u] + p);
-        return x > 0.0f ? x + l : l;
-    }
-    if (!(x < 0.0f)) return x;  // and NaN
-    const float e = exp_kernel(x);
-    return e - 0.5f * e * e;
+    const float l = log1p_kernel(exp_kernel(-std::fabs(x)));
+    return x > 0.0f ? x + l : l;
 }
 
 // kernel pow: needs exp log1p_series bits_of float_of
@@ -239,66 +185,173 @@ bool all_finite(const real* v, std::size_t n) noexcept {
     return true;
 }
 
-// dense g1: 3 + t -> 5, softplus; 1 block of 4 outputs, 1 output alone, inputs written out
+// Dense kernel steps. lanesR holds the sums of R outputs of one block; lanesR_mac
+// adds w[r] * x to sum r (the product rounded, then the sum: never fused) and moves
+// w past the R weights; lanesR_add adds the bias, lanesR_store writes the sums out.
+// Three ways to the same bits, chosen by the compiler's target: x86 with SSE2 (one
+// register holds four float sums or two double sums: a packed multiply, then a packed
+// add), Cortex-M4F and M7 in float32 (one VLDM brings the R weights, then VMUL and
+// VADD per row, written out because GCC would join them into VMLA, which rounds the
+// same but costs 3 cycles against 1 + 1 in the Cortex-M4 TRM, 7.2.3), and plain C++.
+#if defined(__GNUC__)
+#define TINY_ADAPTIVE_STEP __attribute__((always_inline)) inline
+#else
+#define TINY_ADAPTIVE_STEP inline
+#endif
+#if defined(__ARM_ARCH_7EM__) && defined(__ARM_FP) && (__ARM_FP & 4)
+struct lanes1 { real a; };
+TINY_ADAPTIVE_STEP void lanes1_zero(lanes1& s) noexcept { s.a = 0.0f; }
+TINY_ADAPTIVE_STEP void lanes1_mac(lanes1& s, const real*& w, real x) noexcept {
+    __asm__("vldmia %[w]!, {s12}\n\t"
+            "vmul.f32 s12, s12, %[x]\n\t"
+            "vadd.f32 %[a], %[a], s12"
+            : [a] "+t"(s.a), [w] "+r"(w)
+            : [x] "t"(x), "m"(*reinterpret_cast<const real(*)[1]>(w))
+            : "s12");
+}
+TINY_ADAPTIVE_STEP void lanes1_add(lanes1& s, const real* b) noexcept {
+    __asm__("vldmia %[p], {s12}\n\t"
+            "vadd.f32 %[a], %[a], s12"
+            : [a] "+t"(s.a)
+            : [p] "r"(b), "m"(*reinterpret_cast<const real(*)[1]>(b))
+            : "s12");
+}
+TINY_ADAPTIVE_STEP void lanes1_store(const lanes1& s, real* y) noexcept { y[0] = s.a; }
+#else
+struct lanes1 { real a; };
+TINY_ADAPTIVE_STEP void lanes1_zero(lanes1& s) noexcept { s.a = 0.0f; }
+TINY_ADAPTIVE_STEP void lanes1_mac(lanes1& s, const real*& w, real x) noexcept {
+    s.a += w[0] * x;
+    w += 1;
+}
+TINY_ADAPTIVE_STEP void lanes1_add(lanes1& s, const real* b) noexcept { s.a += b[0]; }
+TINY_ADAPTIVE_STEP void lanes1_store(const lanes1& s, real* y) noexcept { y[0] = s.a; }
+#endif
+#if defined(__ARM_ARCH_7EM__) && defined(__ARM_FP) && (__ARM_FP & 4)
+struct lanes3 { real a, b, c; };
+TINY_ADAPTIVE_STEP void lanes3_zero(lanes3& s) noexcept { s.a = 0.0f; s.b = 0.0f; s.c = 0.0f; }
+TINY_ADAPTIVE_STEP void lanes3_mac(lanes3& s, const real*& w, real x) noexcept {
+    __asm__("vldmia %[w]!, {s12-s14}\n\t"
+            "vmul.f32 s12, s12, %[x]\n\t"
+            "vmul.f32 s13, s13, %[x]\n\t"
+            "vmul.f32 s14, s14, %[x]\n\t"
+            "vadd.f32 %[a], %[a], s12\n\t"
+            "vadd.f32 %[b], %[b], s13\n\t"
+            "vadd.f32 %[c], %[c], s14"
+            : [a] "+t"(s.a), [b] "+t"(s.b), [c] "+t"(s.c), [w] "+r"(w)
+            : [x] "t"(x), "m"(*reinterpret_cast<const real(*)[3]>(w))
+            : "s12", "s13", "s14");
+}
+TINY_ADAPTIVE_STEP void lanes3_add(lanes3& s, const real* b) noexcept {
+    __asm__("vldmia %[p], {s12-s14}\n\t"
+            "vadd.f32 %[a], %[a], s12\n\t"
+            "vadd.f32 %[b], %[b], s13\n\t"
+            "vadd.f32 %[c], %[c], s14"
+            : [a] "+t"(s.a), [b] "+t"(s.b), [c] "+t"(s.c)
+            : [p] "r"(b), "m"(*reinterpret_cast<const real(*)[3]>(b))
+            : "s12", "s13", "s14");
+}
+TINY_ADAPTIVE_STEP void lanes3_store(const lanes3& s, real* y) noexcept { y[0] = s.a; y[1] = s.b; y[2] = s.c; }
+#else
+struct lanes3 { real a, b, c; };
+TINY_ADAPTIVE_STEP void lanes3_zero(lanes3& s) noexcept { s.a = 0.0f; s.b = 0.0f; s.c = 0.0f; }
+TINY_ADAPTIVE_STEP void lanes3_mac(lanes3& s, const real*& w, real x) noexcept {
+    s.a += w[0] * x; s.b += w[1] * x; s.c += w[2] * x;
+    w += 3;
+}
+TINY_ADAPTIVE_STEP void lanes3_add(lanes3& s, const real* b) noexcept { s.a += b[0]; s.b += b[1]; s.c += b[2]; }
+TINY_ADAPTIVE_STEP void lanes3_store(const lanes3& s, real* y) noexcept { y[0] = s.a; y[1] = s.b; y[2] = s.c; }
+#endif
+#if defined(__SSE2__)
+struct lanes4 { __m128 v; };
+TINY_ADAPTIVE_STEP void lanes4_zero(lanes4& s) noexcept { s.v = _mm_setzero_ps(); }
+TINY_ADAPTIVE_STEP void lanes4_mac(lanes4& s, const real*& w, real x) noexcept {
+    s.v = _mm_add_ps(s.v, _mm_mul_ps(_mm_loadu_ps(w), _mm_set1_ps(x)));
+    w += 4;
+}
+TINY_ADAPTIVE_STEP void lanes4_add(lanes4& s, const real* b) noexcept { s.v = _mm_add_ps(s.v, _mm_loadu_ps(b)); }
+TINY_ADAPTIVE_STEP void lanes4_store(const lanes4& s, real* y) noexcept { _mm_storeu_ps(y, s.v); }
+#elif defined(__ARM_ARCH_7EM__) && defined(__ARM_FP) && (__ARM_FP & 4)
+struct lanes4 { real a, b, c, d; };
+TINY_ADAPTIVE_STEP void lanes4_zero(lanes4& s) noexcept { s.a = 0.0f; s.b = 0.0f; s.c = 0.0f; s.d = 0.0f; }
+TINY_ADAPTIVE_STEP void lanes4_mac(lanes4& s, const real*& w, real x) noexcept {
+    __asm__("vldmia %[w]!, {s12-s15}\n\t"
+            "vmul.f32 s12, s12, %[x]\n\t"
+            "vmul.f32 s13, s13, %[x]\n\t"
+            "vmul.f32 s14, s14, %[x]\n\t"
+            "vmul.f32 s15, s15, %[x]\n\t"
+            "vadd.f32 %[a], %[a], s12\n\t"
+            "vadd.f32 %[b], %[b], s13\n\t"
+            "vadd.f32 %[c], %[c], s14\n\t"
+            "vadd.f32 %[d], %[d], s15"
+            : [a] "+t"(s.a), [b] "+t"(s.b), [c] "+t"(s.c), [d] "+t"(s.d), [w] "+r"(w)
+            : [x] "t"(x), "m"(*reinterpret_cast<const real(*)[4]>(w))
+            : "s12", "s13", "s14", "s15");
+}
+TINY_ADAPTIVE_STEP void lanes4_add(lanes4& s, const real* b) noexcept {
+    __asm__("vldmia %[p], {s12-s15}\n\t"
+            "vadd.f32 %[a], %[a], s12\n\t"
+            "vadd.f32 %[b], %[b], s13\n\t"
+            "vadd.f32 %[c], %[c], s14\n\t"
+            "vadd.f32 %[d], %[d], s15"
+            : [a] "+t"(s.a), [b] "+t"(s.b), [c] "+t"(s.c), [d] "+t"(s.d)
+            : [p] "r"(b), "m"(*reinterpret_cast<const real(*)[4]>(b))
+            : "s12", "s13", "s14", "s15");
+}
+TINY_ADAPTIVE_STEP void lanes4_store(const lanes4& s, real* y) noexcept { y[0] = s.a; y[1] = s.b; y[2] = s.c; y[3] = s.d; }
+#else
+struct lanes4 { real a, b, c, d; };
+TINY_ADAPTIVE_STEP void lanes4_zero(lanes4& s) noexcept { s.a = 0.0f; s.b = 0.0f; s.c = 0.0f; s.d = 0.0f; }
+TINY_ADAPTIVE_STEP void lanes4_mac(lanes4& s, const real*& w, real x) noexcept {
+    s.a += w[0] * x; s.b += w[1] * x; s.c += w[2] * x; s.d += w[3] * x;
+    w += 4;
+}
+TINY_ADAPTIVE_STEP void lanes4_add(lanes4& s, const real* b) noexcept { s.a += b[0]; s.b += b[1]; s.c += b[2]; s.d += b[3]; }
+TINY_ADAPTIVE_STEP void lanes4_store(const lanes4& s, real* y) noexcept { y[0] = s.a; y[1] = s.b; y[2] = s.c; y[3] = s.d; }
+#endif
+
+// dense g1: 3 + t -> 5, softplus; 1 block of 4 outputs, one of 1, inputs written out
 void dense_g1(const real* __restrict x, real t, real* __restrict y) noexcept {
     const real* const volatile w_at = w_g1;
-    const real* __restrict w = w_at;
+    const real* w = w_at;  // advanced by the steps
     const real* const volatile b_at = b_g1;
     const real* __restrict b = b_at;
-    for (std::size_t o = 0; o < 4; o += 4) {
-        real a0 = 0.0f, a1 = 0.0f, a2 = 0.0f, a3 = 0.0f;
-        {
-            const real xi = x[0];
-            a0 += w[0] * xi;
-            a1 += w[1] * xi;
-            a2 += w[2] * xi;
-            a3 += w[3] * xi;
-        }
-        {
-            const real xi = x[1];
-            a0 += w[4] * xi;
-            a1 += w[5] * xi;
-            a2 += w[6] * xi;
-            a3 += w[7] * xi;
-        }
-        {
-            const real xi = x[2];
-            a0 += w[8] * xi;
-            a1 += w[9] * xi;
-            a2 += w[10] * xi;
-            a3 += w[11] * xi;
-        }
-        a0 += w[12] * t;
-        a1 += w[13] * t;
-        a2 += w[14] * t;
-        a3 += w[15] * t;
-        w += 16;
-        a0 += b[o];
-        a1 += b[o + 1];
-        a2 += b[o + 2];
-        a3 += b[o + 3];
-        y[o] = act_softplus(a0);
-        y[o + 1] = act_softplus(a1);
-        y[o + 2] = act_softplus(a2);
-        y[o + 3] = act_softplus(a3);
+    {
+        lanes4 s;
+        lanes4_zero(s);
+        lanes4_mac(s, w, x[0]);
+        lanes4_mac(s, w, x[1]);
+        lanes4_mac(s, w, x[2]);
+        lanes4_mac(s, w, t);
+        lanes4_add(s, b + 0);
+        lanes4_store(s, y + 0);
     }
-    for (std::size_t o = 4; o < 5; ++o, w += 4) {
-        real acc = 0.0f;
-        for (std::size_t i = 0; i < 3; ++i) acc += w[i] * x[i];
-        acc += w[3] * t;
-        acc += b[o];
-        y[o] = act_softplus(acc);
+    {
+        lanes1 s;
+        lanes1_zero(s);
+        lanes1_mac(s, w, x[0]);
+        lanes1_mac(s, w, x[1]);
+        lanes1_mac(s, w, x[2]);
+        lanes1_mac(s, w, t);
+        lanes1_add(s, b + 4);
+        lanes1_store(s, y + 4);
     }
+    for (std::size_t o = 0; o < 5; ++o) y[o] = act_softplus(y[o]);
 }
 
-// dense g2: 5 -> 3, identity; 0 blocks of 4 outputs, 3 outputs alone
+// dense g2: 5 -> 3, identity; 0 blocks of 4 outputs, one of 3, inputs written out
 void dense_g2(const real* __restrict x, real* __restrict y) noexcept {
     const real* const volatile w_at = w_g2;
-    const real* __restrict w = w_at;
-    for (std::size_t o = 0; o < 3; ++o, w += 5) {
-        real acc = 0.0f;
-        for (std::size_t i = 0; i < 5; ++i) acc += w[i] * x[i];
-        y[o] = acc;
+    const real* w = w_at;  // advanced by the steps
+    {
+        lanes3 s;
+        lanes3_zero(s);
+        lanes3_mac(s, w, x[0]);
+        lanes3_mac(s, w, x[1]);
+        lanes3_mac(s, w, x[2]);
+        lanes3_mac(s, w, x[3]);
+        lanes3_mac(s, w, x[4]);
+        lanes3_store(s, y + 0);
     }
 }
 
@@ -450,7 +503,7 @@ result block_drift(real* work, const real* in, real* out, counters& count) noexc
             err_prev = err < 0.0001f ? 0.0001f : err;
             if (rejected && !(factor < 1.0f)) factor = 1.0f;
             h_abs *= factor;
-            ++count.steps_taken;
+            ++count.steps_accepted;
             t = t_new;
             for (std::size_t j = 0; j < n; ++j) y[j] = y_new[j];
             if (!all_finite(y, n)) return result::state_not_finite;
@@ -470,7 +523,7 @@ result infer(context& ctx, const real* input, real* output) noexcept {
         if (!std::isfinite(input[i])) return result::input_not_finite;
     real* const work = ctx.work;
     TINY_ADAPTIVE_BLOCK_HOOK("drift", 0);
-    if (const result r = block_drift(work, input, output, ctx.count); r != result::ok) return r;
+    { const result r = block_drift(work, input, output, ctx.count); if (r != result::ok) return r; }
     TINY_ADAPTIVE_BLOCK_HOOK("drift", 1);
     return result::ok;
 }
@@ -491,10 +544,10 @@ const char* result_name(result r) noexcept {
 // fused into an FMA); 1 + 0.75 ulp rounds up only to nearest; half the least
 // normal number is 0 when subnormals are flushed.
 bool build_conditions_hold() noexcept {
-    volatile real a = 0x1.001p+0f;  // 1 + 2^-12
-    volatile real c = -0x1.002p+0f;  // -(1 + 2^-11)
-    volatile real b = 0x3p-25f;  // 0.75 ulp of 1
-    volatile real tiny = 0x1p-126f;  // the least normal number
+    volatile real a = 1.0002441f;  // 1 + 2^-12
+    volatile real c = -1.0004883f;  // -(1 + 2^-11)
+    volatile real b = 8.940697e-08f;  // 0.75 ulp of 1
+    volatile real tiny = 1.1754944e-38f;  // the least normal number
     const real x = a;
     const real fused = x * x + c;
     const real up = 1.0f + b;

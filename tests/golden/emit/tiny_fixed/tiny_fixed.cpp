@@ -3,7 +3,7 @@
 // content hash (description and weights): 0123456789abcdef
 // precision: float32 (real = float)
 // math: meander's own float kernels (runtime/math_float.inc), no C library maths;
-//   largest error in ulp against MPFR: exp 1.0 expm1 1.5 tanh 2.0 sigmoid 2.5 softplus 2.0 silu 3.0 gelu 3.5
+//   largest error in ulp against MPFR: exp 1.0 expm1 1.5 tanh 2.0 sigmoid 2.5 softplus 3.0 silu 3.0 gelu 3.5
 // bits: the same outputs on every core when built with -ffp-contract=off (no FMA
 //   contraction), without -ffast-math, rounding to nearest, subnormals kept;
 //   build_conditions_hold() checks a build, the self-test reports it
@@ -22,14 +22,16 @@
 #include <cstdint>
 #include <cstring>
 
-#if !defined(TINY_FIXED_MEANDER_STAMP) || TINY_FIXED_MEANDER_STAMP != 0x6a78597e61770cb6ULL
+#if defined(__SSE2__)
+#include <emmintrin.h>
+#endif
+
+#if !defined(TINY_FIXED_MEANDER_STAMP) || TINY_FIXED_MEANDER_STAMP != 0xd4a4eea55cfe8837ULL
 #error "tiny_fixed.hpp is not the header generated with this source: regenerate both"
 #endif
 
 static_assert(sizeof(float) == 4, "this code needs a 32-bit IEEE float");
 static_assert(sizeof(tiny_fixed::real) == 4, "real must be float");
-static_assert(sizeof(tiny_fixed::context) == TINY_FIXED_CONTEXT_BYTES, "context size");
-static_assert(alignof(tiny_fixed::context) <= TINY_FIXED_CONTEXT_ALIGN, "context alignment");
 
 // Weights are constant data: with no attribute the linker keeps them in flash. Define
 // TINY_FIXED_WEIGHTS_ATTR to place them in a section of your own, e.g.
@@ -50,9 +52,10 @@ namespace tiny_fixed {
 
 namespace {
 
-// lift: weight 3 x 2 (row-major, y = W x + b), tensor "lift.weight"
+// lift: weight 3 x 2 (y = W x + b), tensor "lift.weight"
+//   W[r][c] at 3*c + r
 TINY_FIXED_WEIGHTS_ATTR const real w_lift[6] = {
-    -0.53544116f, -0.3315815f, -0.05512216f, 0.5326874f, -0.016787633f, -0.11206632f,
+    -0.53544116f, -0.05512216f, -0.016787633f, -0.3315815f, 0.5326874f, -0.11206632f,
 };
 // lift: bias 3, tensor "lift.bias"
 TINY_FIXED_WEIGHTS_ATTR const real b_lift[3] = {
@@ -70,19 +73,21 @@ TINY_FIXED_WEIGHTS_ATTR const real b_f1[4] = {
     -0.386771f, 0.46114823f, -0.32067555f, 0.2820873f,
 };
 
-// f2: weight 3 x 4 (row-major, y = W x + b), tensor "f2.weight"
+// f2: weight 3 x 4 (y = W x + b), tensor "f2.weight"
+//   W[r][c] at 3*c + r
 TINY_FIXED_WEIGHTS_ATTR const real w_f2[12] = {
-    0.17038813f, 0.099966526f, -0.44271946f, -0.27921396f, -0.07985964f, -0.20186514f, -0.19139245f, 0.13465603f,
-    -0.08463374f, 0.44934574f, -0.37337282f, 0.43848184f,
+    0.17038813f, -0.07985964f, -0.08463374f, 0.099966526f, -0.20186514f, 0.44934574f, -0.44271946f, -0.19139245f,
+    -0.37337282f, -0.27921396f, 0.13465603f, 0.43848184f,
 };
 // f2: bias 3, tensor "f2.bias"
 TINY_FIXED_WEIGHTS_ATTR const real b_f2[3] = {
     -0.2568719f, 0.31930456f, -0.1731337f,
 };
 
-// r1: weight 3 x 3 (row-major, y = W x + b), tensor "r1.weight"
+// r1: weight 3 x 3 (y = W x + b), tensor "r1.weight"
+//   W[r][c] at 3*c + r
 TINY_FIXED_WEIGHTS_ATTR const real w_r1[9] = {
-    -0.14656578f, 0.34402162f, 0.0059901676f, 0.27627024f, 0.3831763f, -0.4803613f, 0.49688685f, 0.3306753f,
+    -0.14656578f, 0.27627024f, 0.49688685f, 0.34402162f, 0.3831763f, 0.3306753f, 0.0059901676f, -0.4803613f,
     -0.48440275f,
 };
 // r1: bias 3, tensor "r1.bias"
@@ -90,9 +95,10 @@ TINY_FIXED_WEIGHTS_ATTR const real b_r1[3] = {
     0.109398454f, 0.08924759f, -0.16777398f,
 };
 
-// head: weight 2 x 3 (row-major, y = W x + b), tensor "head.weight"
+// head: weight 2 x 3 (y = W x + b), tensor "head.weight"
+//   W[r][c] at 2*c + r
 TINY_FIXED_WEIGHTS_ATTR const real w_head[6] = {
-    -0.54840904f, 0.5233772f, -0.029173085f, -0.50951016f, 0.51976466f, -0.28572032f,
+    -0.54840904f, -0.50951016f, 0.5233772f, 0.51976466f, -0.029173085f, -0.28572032f,
 };
 // head: bias 2, tensor "head.bias"
 TINY_FIXED_WEIGHTS_ATTR const real b_head[2] = {
@@ -101,89 +107,41 @@ TINY_FIXED_WEIGHTS_ATTR const real b_head[2] = {
 
 // meander's float math kernels (runtime/math_float.inc), the sections this model uses.
 
-// kernel bits_of: needs
-// Bit pattern of a float and back (std::memcpy: no aliasing trouble).
-inline std::uint32_t bits_of(float x) noexcept {
-    std::uint32_t u;
-    std::memcpy(&u, &x, sizeof u);
-    return u;
-}
-
 // kernel float_of: needs
 inline float float_of(std::uint32_t u) noexcept {
     float x;
     std::memcpy(&x, &u, sizeof x);
     return x;
 }
-
-// kernel exp_core: needs bits_of float_of
-// e^x = 2^m 2^(j/32) e^r: k = 32 m + j = round(x 32/ln2), found by adding
-// 1.5 2^23 (the addition rounds; k is in the low bits of the sum),
-// r = x - k ln2/32 with |r| <= ln2/64 (Cody and Waite: ln2/32 in two parts,
-// k ln2/32_hi exact for |k| < 2^13), e^r - 1 by its Taylor series to r^3
-// (truncation below 2^-30), 2^(j/32) from a table as a float pair (256
-// bytes), so the sum rounds once: within about 0.52 ulp before scaling.
-inline constexpr float kExp2Table[64] = {
-    // 2^(j/32) rounded to float, j = 0..31
-    1.0f, 1.0218972f, 1.0442737f, 1.0671405f, 1.0905077f, 1.1143868f, 1.1387886f, 1.1637249f,
-    1.1892071f, 1.2152474f, 1.2418578f, 1.269051f, 1.2968396f, 1.3252367f, 1.3542556f, 1.38391f,
-    1.4142135f, 1.4451808f, 1.4768262f, 1.5091645f, 1.5422108f, 1.5759809f, 1.6104903f, 1.6457555f,
-    1.6817929f, 1.7186193f, 1.7562522f, 1.7947091f, 1.8340081f, 1.8741677f, 1.9152066f, 1.9571441f,
-    // 2^(j/32) minus the float above, rounded to float
-    0.0f, -4.81156e-08f, 4.83347e-08f, -5.933752e-08f, -1.307754e-08f, -5.43554e-08f, 5.3862223e-08f,
-    -4.0514415e-08f, 3.7976353e-08f, -3.267395e-08f, 4.496838e-08f, 1.4193333e-09f, -4.0189995e-08f,
-    -3.4963733e-08f, -1.0123349e-08f, -5.8755774e-08f, 2.4203235e-08f, 3.3242e-08f, -4.500899e-08f,
-    -2.4959373e-08f, 8.070905e-09f, -5.6610254e-08f, 9.836217e-09f, -5.124972e-08f, -2.4755327e-08f,
-    -4.8496176e-08f, -9.23577e-09f, -1.1415045e-08f, -1.1239278e-08f, -4.6630056e-08f, 9.845328e-09f,
-    -1.7021804e-08f};
-// 2^(j/32) e^r, j the low 5 bits of k (nb = bits of 1.5 2^23 + k).
-[[gnu::always_inline]] inline float exp_tail(float r, std::uint32_t nb) noexcept {
-    const std::uint32_t j = nb & 31u;
-    const float q = r + r * r * (0.5f + r * 0.16666667f);
-    const float t = kExp2Table[j];
-    return t + (kExp2Table[j + 32u] + t * q);
-}
-// e^x for -87 <= x <= 88 only (the callers keep it there; NaN gives NaN):
-// no range checks. 2^m, -126 <= m <= 126, is built from its bits.
-[[gnu::always_inline]] inline float exp_core(float x) noexcept {
-    const float n = x * 46.16624f + 12582912.0f;
-    const float kf = n - 12582912.0f;
-    const std::uint32_t nb = bits_of(n);
-    const float r = (x - kf * 0.02166748f) + kf * 6.6310763e-06f;
-    return exp_tail(r, nb) * float_of(((nb >> 5) - 0x25a0000u + 127u) << 23);
-}
-
-// kernel exp_scaled: needs exp_core
 // 2^k for -126 <= k <= 127, exactly.
 inline float pow2(int k) noexcept { return float_of(static_cast<std::uint32_t>(k + 127) << 23); }
-// s exp(hi + lo) for |lo| <= 2^-20 |hi| and 2^-8 <= |s| <= 2^8, any hi:
-// s 2^(j/32) e^r times 2^m in two exact halves, so a subnormal result is
-// rounded once. Overflow gives +inf (s = 1 only), an underflow 0, NaN stays NaN.
-// Out of line: the activations call it only beyond their common range.
-[[gnu::noinline]] inline float exp_scaled(float hi, float lo, float s) noexcept {
+
+// kernel exp: needs float_of
+// s exp(hi + lo) for |lo| <= 2^-20 |hi| and 2^-8 <= |s| <= 2^8: hi = k ln2 + r
+// with |r| <= ln2/2 (Cody and Waite: ln2 in two parts, k ln2_hi exact), e^r
+// by the polynomial of the Cephes Math Library's expf (S. L. Moshier), then
+// s e^r times 2^k in two exact halves, so a subnormal result is rounded once.
+// Overflow gives +inf (s = 1 only), an underflow 0, NaN stays NaN.
+inline float exp_scaled(float hi, float lo, float s) noexcept {
     if (std::isnan(hi)) return hi;
     if (hi > 88.8f) return HUGE_VALF;
     if (hi < -112.0f) return s < 0.0f ? -0.0f : 0.0f;  // not 0 * s: s may be -inf (silu at -inf)
-    const float n = hi * 46.16624f + 12582912.0f;
-    const float kf = n - 12582912.0f;
-    const std::uint32_t nb = bits_of(n);
-    const float r = ((hi - kf * 0.02166748f) + kf * 6.6310763e-06f) + lo;
-    const int m = static_cast<int>(nb >> 5) - 0x25a0000;  // floor(k / 32)
-    const int m1 = m / 2;
-    return exp_tail(r, nb) * s * pow2(m1) * pow2(m - m1);
+    const float t = hi * 1.44269504f;  // log2(e)
+    const int k = static_cast<int>(t < 0.0f ? t - 0.5f : t + 0.5f);
+    const float kf = static_cast<float>(k);
+    const float r = (hi - kf * 0.693145751953125f) - kf * 1.42860677e-6f + lo;
+    const float r2 = r * r;
+    const float p = (((((1.98756915e-4f * r + 1.39819995e-3f) * r + 8.33345190e-3f) * r + 4.16657959e-2f) * r +
+                      1.66666655e-1f) * r + 5.00000012e-1f) * r2 + r + 1.0f;
+    const int k1 = k / 2;
+    return p * s * pow2(k1) * pow2(k - k1);
 }
+inline float exp_kernel(float x) noexcept { return exp_scaled(x, 0.0f, 1.0f); }
 
-// kernel exp: needs exp_core exp_scaled
-inline float exp_kernel(float x) noexcept {
-    if (x >= -87.0f && x <= 88.0f) return exp_core(x);
-    return exp_scaled(x, 0.0f, 1.0f);
-}
-
-// kernel tanh: needs exp_core
+// kernel tanh: needs exp
 // Below |x| = 0.55 an odd polynomial (least-squares fit in x^2, weighted to
 // relative error); above, 1 - 2e/(1 + e) with e = exp(-2|x|) <= 1/3, where
 // the subtraction from 1 keeps the error of e small; 1 beyond |x| = 9.1.
-// One division, one exp without range checks.
 inline float act_tanh(float x) noexcept {
     const float a = std::fabs(x);
     float r;
@@ -191,26 +149,23 @@ inline float act_tanh(float x) noexcept {
         const float a2 = a * a;
         r = a + a * a2 * ((((-6.28766278e-3f * a2 + 2.10820586e-2f) * a2 - 5.38551211e-2f) * a2 + 1.33326173e-1f) * a2 -
                            3.33333194e-1f);
-    } else if (a >= 9.1f) {
+    } else if (a > 9.1f) {
         r = 1.0f;
-    } else {  // NaN comes here and stays NaN
-        const float e = exp_core(-2.0f * a);
-        r = 1.0f - (e + e) / (1.0f + e);
+    } else {
+        const float e = exp_kernel(-2.0f * a);
+        r = 1.0f - 2.0f * e / (1.0f + e);
     }
     return std::signbit(x) ? -r : r;
 }
 
-// kernel silu: needs exp_core exp_scaled
-// x/(1 + e) for x >= 0, x e/(1 + e) below, e = exp(-|x|); one division.
-// x itself beyond 20; below -20, where 1 + e rounds to 1, x e is formed
+// kernel silu: needs exp
+// x < 0: x e/(1 + e), e = exp(x); where 1 + e rounds to 1, x e is formed
 // inside exp so a subnormal result is rounded once.
 inline float act_silu(float x) noexcept {
-    const float a = std::fabs(x);
-    if (a < 20.0f) {
-        const float e = exp_core(-a);
-        return (x >= 0.0f ? x : x * e) / (1.0f + e);
-    }
-    return x < 0.0f ? exp_scaled(x, 0.0f, x) : x;  // NaN too
+    if (x >= 0.0f) return x / (1.0f + exp_kernel(-x));
+    if (x < -20.0f) return exp_scaled(x, 0.0f, x);
+    const float e = exp_kernel(x);
+    return x * e / (1.0f + e);
 }
 
 // kernel relu: needs
@@ -222,104 +177,220 @@ bool all_finite(const real* v, std::size_t n) noexcept {
     return true;
 }
 
-// dense lift: 2 -> 3, relu; 0 blocks of 4 outputs, 3 outputs alone
+// Dense kernel steps. lanesR holds the sums of R outputs of one block; lanesR_mac
+// adds w[r] * x to sum r (the product rounded, then the sum: never fused) and moves
+// w past the R weights; lanesR_add adds the bias, lanesR_store writes the sums out.
+// Three ways to the same bits, chosen by the compiler's target: x86 with SSE2 (one
+// register holds four float sums or two double sums: a packed multiply, then a packed
+// add), Cortex-M4F and M7 in float32 (one VLDM brings the R weights, then VMUL and
+// VADD per row, written out because GCC would join them into VMLA, which rounds the
+// same but costs 3 cycles against 1 + 1 in the Cortex-M4 TRM, 7.2.3), and plain C++.
+#if defined(__GNUC__)
+#define TINY_FIXED_STEP __attribute__((always_inline)) inline
+#else
+#define TINY_FIXED_STEP inline
+#endif
+#if defined(__ARM_ARCH_7EM__) && defined(__ARM_FP) && (__ARM_FP & 4)
+struct lanes2 { real a, b; };
+TINY_FIXED_STEP void lanes2_zero(lanes2& s) noexcept { s.a = 0.0f; s.b = 0.0f; }
+TINY_FIXED_STEP void lanes2_mac(lanes2& s, const real*& w, real x) noexcept {
+    __asm__("vldmia %[w]!, {s12-s13}\n\t"
+            "vmul.f32 s12, s12, %[x]\n\t"
+            "vmul.f32 s13, s13, %[x]\n\t"
+            "vadd.f32 %[a], %[a], s12\n\t"
+            "vadd.f32 %[b], %[b], s13"
+            : [a] "+t"(s.a), [b] "+t"(s.b), [w] "+r"(w)
+            : [x] "t"(x), "m"(*reinterpret_cast<const real(*)[2]>(w))
+            : "s12", "s13");
+}
+TINY_FIXED_STEP void lanes2_add(lanes2& s, const real* b) noexcept {
+    __asm__("vldmia %[p], {s12-s13}\n\t"
+            "vadd.f32 %[a], %[a], s12\n\t"
+            "vadd.f32 %[b], %[b], s13"
+            : [a] "+t"(s.a), [b] "+t"(s.b)
+            : [p] "r"(b), "m"(*reinterpret_cast<const real(*)[2]>(b))
+            : "s12", "s13");
+}
+TINY_FIXED_STEP void lanes2_store(const lanes2& s, real* y) noexcept { y[0] = s.a; y[1] = s.b; }
+#else
+struct lanes2 { real a, b; };
+TINY_FIXED_STEP void lanes2_zero(lanes2& s) noexcept { s.a = 0.0f; s.b = 0.0f; }
+TINY_FIXED_STEP void lanes2_mac(lanes2& s, const real*& w, real x) noexcept {
+    s.a += w[0] * x; s.b += w[1] * x;
+    w += 2;
+}
+TINY_FIXED_STEP void lanes2_add(lanes2& s, const real* b) noexcept { s.a += b[0]; s.b += b[1]; }
+TINY_FIXED_STEP void lanes2_store(const lanes2& s, real* y) noexcept { y[0] = s.a; y[1] = s.b; }
+#endif
+#if defined(__ARM_ARCH_7EM__) && defined(__ARM_FP) && (__ARM_FP & 4)
+struct lanes3 { real a, b, c; };
+TINY_FIXED_STEP void lanes3_zero(lanes3& s) noexcept { s.a = 0.0f; s.b = 0.0f; s.c = 0.0f; }
+TINY_FIXED_STEP void lanes3_mac(lanes3& s, const real*& w, real x) noexcept {
+    __asm__("vldmia %[w]!, {s12-s14}\n\t"
+            "vmul.f32 s12, s12, %[x]\n\t"
+            "vmul.f32 s13, s13, %[x]\n\t"
+            "vmul.f32 s14, s14, %[x]\n\t"
+            "vadd.f32 %[a], %[a], s12\n\t"
+            "vadd.f32 %[b], %[b], s13\n\t"
+            "vadd.f32 %[c], %[c], s14"
+            : [a] "+t"(s.a), [b] "+t"(s.b), [c] "+t"(s.c), [w] "+r"(w)
+            : [x] "t"(x), "m"(*reinterpret_cast<const real(*)[3]>(w))
+            : "s12", "s13", "s14");
+}
+TINY_FIXED_STEP void lanes3_add(lanes3& s, const real* b) noexcept {
+    __asm__("vldmia %[p], {s12-s14}\n\t"
+            "vadd.f32 %[a], %[a], s12\n\t"
+            "vadd.f32 %[b], %[b], s13\n\t"
+            "vadd.f32 %[c], %[c], s14"
+            : [a] "+t"(s.a), [b] "+t"(s.b), [c] "+t"(s.c)
+            : [p] "r"(b), "m"(*reinterpret_cast<const real(*)[3]>(b))
+            : "s12", "s13", "s14");
+}
+TINY_FIXED_STEP void lanes3_store(const lanes3& s, real* y) noexcept { y[0] = s.a; y[1] = s.b; y[2] = s.c; }
+#else
+struct lanes3 { real a, b, c; };
+TINY_FIXED_STEP void lanes3_zero(lanes3& s) noexcept { s.a = 0.0f; s.b = 0.0f; s.c = 0.0f; }
+TINY_FIXED_STEP void lanes3_mac(lanes3& s, const real*& w, real x) noexcept {
+    s.a += w[0] * x; s.b += w[1] * x; s.c += w[2] * x;
+    w += 3;
+}
+TINY_FIXED_STEP void lanes3_add(lanes3& s, const real* b) noexcept { s.a += b[0]; s.b += b[1]; s.c += b[2]; }
+TINY_FIXED_STEP void lanes3_store(const lanes3& s, real* y) noexcept { y[0] = s.a; y[1] = s.b; y[2] = s.c; }
+#endif
+#if defined(__SSE2__)
+struct lanes4 { __m128 v; };
+TINY_FIXED_STEP void lanes4_zero(lanes4& s) noexcept { s.v = _mm_setzero_ps(); }
+TINY_FIXED_STEP void lanes4_mac(lanes4& s, const real*& w, real x) noexcept {
+    s.v = _mm_add_ps(s.v, _mm_mul_ps(_mm_loadu_ps(w), _mm_set1_ps(x)));
+    w += 4;
+}
+TINY_FIXED_STEP void lanes4_add(lanes4& s, const real* b) noexcept { s.v = _mm_add_ps(s.v, _mm_loadu_ps(b)); }
+TINY_FIXED_STEP void lanes4_store(const lanes4& s, real* y) noexcept { _mm_storeu_ps(y, s.v); }
+#elif defined(__ARM_ARCH_7EM__) && defined(__ARM_FP) && (__ARM_FP & 4)
+struct lanes4 { real a, b, c, d; };
+TINY_FIXED_STEP void lanes4_zero(lanes4& s) noexcept { s.a = 0.0f; s.b = 0.0f; s.c = 0.0f; s.d = 0.0f; }
+TINY_FIXED_STEP void lanes4_mac(lanes4& s, const real*& w, real x) noexcept {
+    __asm__("vldmia %[w]!, {s12-s15}\n\t"
+            "vmul.f32 s12, s12, %[x]\n\t"
+            "vmul.f32 s13, s13, %[x]\n\t"
+            "vmul.f32 s14, s14, %[x]\n\t"
+            "vmul.f32 s15, s15, %[x]\n\t"
+            "vadd.f32 %[a], %[a], s12\n\t"
+            "vadd.f32 %[b], %[b], s13\n\t"
+            "vadd.f32 %[c], %[c], s14\n\t"
+            "vadd.f32 %[d], %[d], s15"
+            : [a] "+t"(s.a), [b] "+t"(s.b), [c] "+t"(s.c), [d] "+t"(s.d), [w] "+r"(w)
+            : [x] "t"(x), "m"(*reinterpret_cast<const real(*)[4]>(w))
+            : "s12", "s13", "s14", "s15");
+}
+TINY_FIXED_STEP void lanes4_add(lanes4& s, const real* b) noexcept {
+    __asm__("vldmia %[p], {s12-s15}\n\t"
+            "vadd.f32 %[a], %[a], s12\n\t"
+            "vadd.f32 %[b], %[b], s13\n\t"
+            "vadd.f32 %[c], %[c], s14\n\t"
+            "vadd.f32 %[d], %[d], s15"
+            : [a] "+t"(s.a), [b] "+t"(s.b), [c] "+t"(s.c), [d] "+t"(s.d)
+            : [p] "r"(b), "m"(*reinterpret_cast<const real(*)[4]>(b))
+            : "s12", "s13", "s14", "s15");
+}
+TINY_FIXED_STEP void lanes4_store(const lanes4& s, real* y) noexcept { y[0] = s.a; y[1] = s.b; y[2] = s.c; y[3] = s.d; }
+#else
+struct lanes4 { real a, b, c, d; };
+TINY_FIXED_STEP void lanes4_zero(lanes4& s) noexcept { s.a = 0.0f; s.b = 0.0f; s.c = 0.0f; s.d = 0.0f; }
+TINY_FIXED_STEP void lanes4_mac(lanes4& s, const real*& w, real x) noexcept {
+    s.a += w[0] * x; s.b += w[1] * x; s.c += w[2] * x; s.d += w[3] * x;
+    w += 4;
+}
+TINY_FIXED_STEP void lanes4_add(lanes4& s, const real* b) noexcept { s.a += b[0]; s.b += b[1]; s.c += b[2]; s.d += b[3]; }
+TINY_FIXED_STEP void lanes4_store(const lanes4& s, real* y) noexcept { y[0] = s.a; y[1] = s.b; y[2] = s.c; y[3] = s.d; }
+#endif
+
+// dense lift: 2 -> 3, relu; 0 blocks of 4 outputs, one of 3, inputs written out
 void dense_lift(const real* __restrict x, real* __restrict y) noexcept {
     const real* const volatile w_at = w_lift;
-    const real* __restrict w = w_at;
+    const real* w = w_at;  // advanced by the steps
     const real* const volatile b_at = b_lift;
     const real* __restrict b = b_at;
-    for (std::size_t o = 0; o < 3; ++o, w += 2) {
-        real acc = 0.0f;
-        for (std::size_t i = 0; i < 2; ++i) acc += w[i] * x[i];
-        acc += b[o];
-        y[o] = act_relu(acc);
+    {
+        lanes3 s;
+        lanes3_zero(s);
+        lanes3_mac(s, w, x[0]);
+        lanes3_mac(s, w, x[1]);
+        lanes3_add(s, b + 0);
+        lanes3_store(s, y + 0);
     }
+    for (std::size_t o = 0; o < 3; ++o) y[o] = act_relu(y[o]);
 }
 
 // dense f1: 3 + t -> 4, tanh; 1 block of 4 outputs, inputs written out
 void dense_f1(const real* __restrict x, real t, real* __restrict y) noexcept {
     const real* const volatile w_at = w_f1;
-    const real* __restrict w = w_at;
+    const real* w = w_at;  // advanced by the steps
     const real* const volatile b_at = b_f1;
     const real* __restrict b = b_at;
-    for (std::size_t o = 0; o < 4; o += 4) {
-        real a0 = 0.0f, a1 = 0.0f, a2 = 0.0f, a3 = 0.0f;
-        {
-            const real xi = x[0];
-            a0 += w[0] * xi;
-            a1 += w[1] * xi;
-            a2 += w[2] * xi;
-            a3 += w[3] * xi;
-        }
-        {
-            const real xi = x[1];
-            a0 += w[4] * xi;
-            a1 += w[5] * xi;
-            a2 += w[6] * xi;
-            a3 += w[7] * xi;
-        }
-        {
-            const real xi = x[2];
-            a0 += w[8] * xi;
-            a1 += w[9] * xi;
-            a2 += w[10] * xi;
-            a3 += w[11] * xi;
-        }
-        a0 += w[12] * t;
-        a1 += w[13] * t;
-        a2 += w[14] * t;
-        a3 += w[15] * t;
-        w += 16;
-        a0 += b[o];
-        a1 += b[o + 1];
-        a2 += b[o + 2];
-        a3 += b[o + 3];
-        y[o] = act_tanh(a0);
-        y[o + 1] = act_tanh(a1);
-        y[o + 2] = act_tanh(a2);
-        y[o + 3] = act_tanh(a3);
+    {
+        lanes4 s;
+        lanes4_zero(s);
+        lanes4_mac(s, w, x[0]);
+        lanes4_mac(s, w, x[1]);
+        lanes4_mac(s, w, x[2]);
+        lanes4_mac(s, w, t);
+        lanes4_add(s, b + 0);
+        lanes4_store(s, y + 0);
     }
+    for (std::size_t o = 0; o < 4; ++o) y[o] = act_tanh(y[o]);
 }
 
-// dense f2: 4 -> 3, identity; 0 blocks of 4 outputs, 3 outputs alone
+// dense f2: 4 -> 3, identity; 0 blocks of 4 outputs, one of 3, inputs written out
 void dense_f2(const real* __restrict x, real* __restrict y) noexcept {
     const real* const volatile w_at = w_f2;
-    const real* __restrict w = w_at;
+    const real* w = w_at;  // advanced by the steps
     const real* const volatile b_at = b_f2;
     const real* __restrict b = b_at;
-    for (std::size_t o = 0; o < 3; ++o, w += 4) {
-        real acc = 0.0f;
-        for (std::size_t i = 0; i < 4; ++i) acc += w[i] * x[i];
-        acc += b[o];
-        y[o] = acc;
+    {
+        lanes3 s;
+        lanes3_zero(s);
+        lanes3_mac(s, w, x[0]);
+        lanes3_mac(s, w, x[1]);
+        lanes3_mac(s, w, x[2]);
+        lanes3_mac(s, w, x[3]);
+        lanes3_add(s, b + 0);
+        lanes3_store(s, y + 0);
     }
 }
 
-// dense r1: 3 -> 3, silu; 0 blocks of 4 outputs, 3 outputs alone
+// dense r1: 3 -> 3, silu; 0 blocks of 4 outputs, one of 3, inputs written out
 void dense_r1(const real* __restrict x, real* __restrict y) noexcept {
     const real* const volatile w_at = w_r1;
-    const real* __restrict w = w_at;
+    const real* w = w_at;  // advanced by the steps
     const real* const volatile b_at = b_r1;
     const real* __restrict b = b_at;
-    for (std::size_t o = 0; o < 3; ++o, w += 3) {
-        real acc = 0.0f;
-        for (std::size_t i = 0; i < 3; ++i) acc += w[i] * x[i];
-        acc += b[o];
-        y[o] = act_silu(acc);
+    {
+        lanes3 s;
+        lanes3_zero(s);
+        lanes3_mac(s, w, x[0]);
+        lanes3_mac(s, w, x[1]);
+        lanes3_mac(s, w, x[2]);
+        lanes3_add(s, b + 0);
+        lanes3_store(s, y + 0);
     }
+    for (std::size_t o = 0; o < 3; ++o) y[o] = act_silu(y[o]);
 }
 
-// dense head: 3 -> 2, softmax; 0 blocks of 4 outputs, 2 outputs alone
+// dense head: 3 -> 2, softmax; 0 blocks of 4 outputs, one of 2, inputs written out
 void dense_head(const real* __restrict x, real* __restrict y) noexcept {
     const real* const volatile w_at = w_head;
-    const real* __restrict w = w_at;
+    const real* w = w_at;  // advanced by the steps
     const real* const volatile b_at = b_head;
     const real* __restrict b = b_at;
-    for (std::size_t o = 0; o < 2; ++o, w += 3) {
-        real acc = 0.0f;
-        for (std::size_t i = 0; i < 3; ++i) acc += w[i] * x[i];
-        acc += b[o];
-        y[o] = acc;
+    {
+        lanes2 s;
+        lanes2_zero(s);
+        lanes2_mac(s, w, x[0]);
+        lanes2_mac(s, w, x[1]);
+        lanes2_mac(s, w, x[2]);
+        lanes2_add(s, b + 0);
+        lanes2_store(s, y + 0);
     }
     // Max-subtracted: exp never overflows and the largest term is 1.
     real top = y[0];
@@ -375,7 +446,7 @@ result block_glide(real* work, const real* in, real* out, counters& count) noexc
         for (std::size_t j = 0; j < n; ++j) arg[j] = y[j] + h * (a43 * k3[j]);
         field_glide(work, t + c4 * h, arg, k4, count);
         for (std::size_t j = 0; j < n; ++j) y[j] = y[j] + h * (b1 * k1[j] + b2 * k2[j] + b3 * k3[j] + b4 * k4[j]);
-        ++count.steps_taken;
+        ++count.steps_accepted;
         if (!all_finite(y, n)) return result::state_not_finite;
     }
     for (std::size_t i = 0; i < n; ++i) out[i] = y[i];
@@ -394,7 +465,7 @@ result infer(context& ctx, const real* input, real* output) noexcept {
     TINY_FIXED_BLOCK_HOOK("lift", 1);
     if (!all_finite(work + 0, 3)) return result::state_not_finite;
     TINY_FIXED_BLOCK_HOOK("glide", 0);
-    if (const result r = block_glide(work, work + 0, work + 3, ctx.count); r != result::ok) return r;
+    { const result r = block_glide(work, work + 0, work + 3, ctx.count); if (r != result::ok) return r; }
     TINY_FIXED_BLOCK_HOOK("glide", 1);
     TINY_FIXED_BLOCK_HOOK("tidy", 0);
     // residual tidy: work + 0 = x + g(x)
@@ -425,10 +496,10 @@ const char* result_name(result r) noexcept {
 // fused into an FMA); 1 + 0.75 ulp rounds up only to nearest; half the least
 // normal number is 0 when subnormals are flushed.
 bool build_conditions_hold() noexcept {
-    volatile real a = 0x1.001p+0f;  // 1 + 2^-12
-    volatile real c = -0x1.002p+0f;  // -(1 + 2^-11)
-    volatile real b = 0x3p-25f;  // 0.75 ulp of 1
-    volatile real tiny = 0x1p-126f;  // the least normal number
+    volatile real a = 1.0002441f;  // 1 + 2^-12
+    volatile real c = -1.0004883f;  // -(1 + 2^-11)
+    volatile real b = 8.940697e-08f;  // 0.75 ulp of 1
+    volatile real tiny = 1.1754944e-38f;  // the least normal number
     const real x = a;
     const real fused = x * x + c;
     const real up = 1.0f + b;
@@ -438,6 +509,33 @@ bool build_conditions_hold() noexcept {
 
 }  // namespace tiny_fixed
 
-extern "C" int tiny_fixed_infer(void* context, const float* input, float* output) noexcept {
-    return static_cast<int>(tiny_fixed::infer(*static_cast<tiny_fixed::context*>(context), input, output));
+// The C entry points declared in tiny_fixed.h.
+#include "tiny_fixed.h"
+
+#if !defined(TINY_FIXED_MEANDER_C_STAMP) || TINY_FIXED_MEANDER_C_STAMP != 0xa9b333c5bef4ea27ULL
+#error "tiny_fixed.h is not the C header generated with this source: regenerate both"
+#endif
+
+static_assert(sizeof(tiny_fixed::context) == TINY_FIXED_CONTEXT_BYTES, "context size");
+static_assert(alignof(tiny_fixed::context) <= alignof(tiny_fixed_context), "context alignment");
+static_assert(sizeof(tiny_fixed_counters) == sizeof(tiny_fixed::counters), "counters");
+
+extern "C" int tiny_fixed_infer(tiny_fixed_context* context, const tiny_fixed_real* input, tiny_fixed_real* output) {
+    return static_cast<int>(tiny_fixed::infer(*reinterpret_cast<tiny_fixed::context*>(context), input, output));
 }
+
+extern "C" tiny_fixed_counters tiny_fixed_counters_of(const tiny_fixed_context* context) {
+    const tiny_fixed::counters& c = reinterpret_cast<const tiny_fixed::context*>(context)->count;
+    tiny_fixed_counters out;
+    out.field_evals = c.field_evals;
+    out.steps_accepted = c.steps_accepted;
+    out.steps_rejected = c.steps_rejected;
+    return out;
+}
+
+extern "C" const char* tiny_fixed_result_name(int result) {
+    if (result < 0 || result > TINY_FIXED_STEP_TOO_SMALL) return "unknown";
+    return tiny_fixed::result_name(static_cast<tiny_fixed::result>(result));
+}
+
+extern "C" int tiny_fixed_build_conditions_hold(void) { return tiny_fixed::build_conditions_hold() ? 1 : 0; }
