@@ -5,6 +5,8 @@
 // the C++17 build's. The C++17 build itself is checked against the reference
 // evaluator: float64 bit for bit (DEVELOPERS.md, "Operation order"), float32
 // and streaming models within 1e-4 * max(1, |eval|).
+#include <unistd.h>
+
 #include <fmt/format.h>
 #include <gtest/gtest.h>
 
@@ -77,7 +79,8 @@ Built build_and_run(const LoadedModel& l, Precision p, const std::string& standa
     eo.c_header = !l.model.stream;  // the C glue is C++ of the source, so it is built under each standard too
     const auto files = l.model.stream ? emit_stream(l.model, eo) : emit_model(l.model, eo);
     const fs::path dir =
-        scratch_dir("emit-standards", fmt::format("{}-{}-{}", l.model.name, p == Precision::float32 ? "f32" : "f64", standard));
+        scratch_dir("emit-standards", fmt::format("{}-{}-{}-{}", l.model.name, p == Precision::float32 ? "f32" : "f64", standard,
+                                                 ::getpid()));  // per test process: ctest runs the standards in parallel
     write_files(dir, files);
     write_text(dir / "driver.cpp", driver);
     // The driver (hexadecimal literals: C++17) is built as C++17; the model's source, and with
