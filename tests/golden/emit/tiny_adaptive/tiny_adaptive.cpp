@@ -3,7 +3,7 @@
 // content hash (description and weights): 0123456789abcdef
 // precision: float32 (real = float)
 // math: meander's own float kernels (runtime/math_float.inc), no C library maths;
-//   largest error in ulp against MPFR: exp 1.0 expm1 1.5 tanh 2.0 sigmoid 2.5 softplus 3.0 silu 3.0 gelu 3.5
+//   largest error in ulp against MPFR: exp 1.0 expm1 1.5 tanh 1.5 sigmoid 2.5 softplus 2.0 silu 3.5 gelu 3.5
 // bits: the same outputs on every core when built with -ffp-contract=off (no FMA
 //   contraction), without -ffast-math, rounding to nearest, subnormals kept;
 //   build_conditions_hold() checks a build, the self-test reports it
@@ -33,7 +33,7 @@
 #include <emmintrin.h>
 #endif
 
-#if !defined(TINY_ADAPTIVE_MEANDER_STAMP) || TINY_ADAPTIVE_MEANDER_STAMP != 0x2197cf099c6961eaULL
+#if !defined(TINY_ADAPTIVE_MEANDER_STAMP) || TINY_ADAPTIVE_MEANDER_STAMP != 0x47da4ca447dca262ULL
 #error "tiny_adaptive.hpp is not the header generated with this source: regenerate both"
 #endif
 
@@ -95,54 +95,114 @@ inline float float_of(std::uint32_t u) noexcept {
     std::memcpy(&x, &u, sizeof x);
     return x;
 }
+
+// kernel exp_core: needs bits_of float_of
+// e^x = 2^m 2^(j/32) e^r: k = 32 m + j = round(x 32/ln2), found by adding
+// 1.5 2^23 (the addition rounds; k is in the low bits of the sum),
+// r = x - k ln2/32 with |r| <= ln2/64 (Cody and Waite: ln2/32 in two parts,
+// k ln2/32_hi exact for |k| < 2^13), e^r - 1 by its Taylor series to r^3
+// (truncation below 2^-30), 2^(j/32) from a table as a float pair (256
+// bytes), so the sum rounds once: within about 0.52 ulp before scaling.
+inline constexpr float kExp2Table[64] = {
+    // 2^(j/32) rounded to float, j = 0..31
+    1.0f, 1.0218972f, 1.0442737f, 1.0671405f, 1.0905077f, 1.1143868f, 1.1387886f, 1.1637249f,
+    1.1892071f, 1.2152474f, 1.2418578f, 1.269051f, 1.2968396f, 1.3252367f, 1.3542556f, 1.38391f,
+    1.4142135f, 1.4451808f, 1.4768262f, 1.5091645f, 1.5422108f, 1.5759809f, 1.6104903f, 1.6457555f,
+    1.6817929f, 1.7186193f, 1.7562522f, 1.7947091f, 1.8340081f, 1.8741677f, 1.9152066f, 1.9571441f,
+    // 2^(j/32) minus the float above, rounded to float
+    0.0f, -4.81156e-08f, 4.83347e-08f, -5.933752e-08f, -1.307754e-08f, -5.43554e-08f, 5.3862223e-08f,
+    -4.0514415e-08f, 3.7976353e-08f, -3.267395e-08f, 4.496838e-08f, 1.4193333e-09f, -4.0189995e-08f,
+    -3.4963733e-08f, -1.0123349e-08f, -5.8755774e-08f, 2.4203235e-08f, 3.3242e-08f, -4.500899e-08f,
+    -2.4959373e-08f, 8.070905e-09f, -5.6610254e-08f, 9.836217e-09f, -5.124972e-08f, -2.4755327e-08f,
+    -4.8496176e-08f, -9.23577e-09f, -1.1415045e-08f, -1.1239278e-08f, -4.6630056e-08f, 9.845328e-09f,
+    -1.7021804e-08f};
+// 2^(j/32) e^r, j the low 5 bits of k (nb = bits of 1.5 2^23 + k).
+[[gnu::always_inline]] inline float exp_tail(float r, std::uint32_t nb) noexcept {
+    const std::uint32_t j = nb & 31u;
+    const float q = r + r * r * (0.5f + r * 0.16666667f);
+    const float t = kExp2Table[j];
+    return t + (kExp2Table[j + 32u] + t * q);
+}
+// e^x for -87 <= x <= 88 only (the callers keep it there; NaN gives NaN):
+// no range checks. 2^m, -126 <= m <= 126, is built from its bits.
+[[gnu::always_inline]] inline float exp_core(float x) noexcept {
+    const float n = x * 46.16624f + 12582912.0f;
+    const float kf = n - 12582912.0f;
+    const std::uint32_t nb = bits_of(n);
+    const float r = (x - kf * 0.02166748f) + kf * 6.6310763e-06f;
+    return exp_tail(r, nb) * float_of(((nb >> 5) - 0x25a0000u + 127u) << 23);
+}
+
+// kernel exp_scaled: needs exp_core
 // 2^k for -126 <= k <= 127, exactly.
 inline float pow2(int k) noexcept { return float_of(static_cast<std::uint32_t>(k + 127) << 23); }
-
-// kernel exp: needs float_of
-// s exp(hi + lo) for |lo| <= 2^-20 |hi| and 2^-8 <= |s| <= 2^8: hi = k ln2 + r
-// with |r| <= ln2/2 (Cody and Waite: ln2 in two parts, k ln2_hi exact), e^r
-// by the polynomial of the Cephes Math Library's expf (S. L. Moshier), then
-// s e^r times 2^k in two exact halves, so a subnormal result is rounded once.
-// Overflow gives +inf (s = 1 only), an underflow 0, NaN stays NaN.
-inline float exp_scaled(float hi, float lo, float s) noexcept {
+// s exp(hi + lo) for |lo| <= 2^-20 |hi| and 2^-8 <= |s| <= 2^8, any hi:
+// s 2^(j/32) e^r times 2^m in two exact halves, so a subnormal result is
+// rounded once. Overflow gives +inf (s = 1 only), an underflow 0, NaN stays NaN.
+// Out of line: the activations call it only beyond their common range.
+[[gnu::noinline]] inline float exp_scaled(float hi, float lo, float s) noexcept {
     if (std::isnan(hi)) return hi;
     if (hi > 88.8f) return HUGE_VALF;
     if (hi < -112.0f) return s < 0.0f ? -0.0f : 0.0f;  // not 0 * s: s may be -inf (silu at -inf)
-    const float t = hi * 1.44269504f;  // log2(e)
-    const int k = static_cast<int>(t < 0.0f ? t - 0.5f : t + 0.5f);
-    const float kf = static_cast<float>(k);
-    const float r = (hi - kf * 0.693145751953125f) - kf * 1.42860677e-6f + lo;
-    const float r2 = r * r;
-    const float p = (((((1.98756915e-4f * r + 1.39819995e-3f) * r + 8.33345190e-3f) * r + 4.16657959e-2f) * r +
-                      1.66666655e-1f) * r + 5.00000012e-1f) * r2 + r + 1.0f;
-    const int k1 = k / 2;
-    return p * s * pow2(k1) * pow2(k - k1);
+    const float n = hi * 46.16624f + 12582912.0f;
+    const float kf = n - 12582912.0f;
+    const std::uint32_t nb = bits_of(n);
+    const float r = ((hi - kf * 0.02166748f) + kf * 6.6310763e-06f) + lo;
+    const int m = static_cast<int>(nb >> 5) - 0x25a0000;  // floor(k / 32)
+    const int m1 = m / 2;
+    return exp_tail(r, nb) * s * pow2(m1) * pow2(m - m1);
 }
-inline float exp_kernel(float x) noexcept { return exp_scaled(x, 0.0f, 1.0f); }
+
+// kernel exp: needs exp_core exp_scaled
+inline float exp_kernel(float x) noexcept {
+    if (x >= -87.0f && x <= 88.0f) return exp_core(x);
+    return exp_scaled(x, 0.0f, 1.0f);
+}
 
 // kernel log1p_series: needs
-// log(1 + t) for 0 <= t <= 1 (what softplus needs): log(1+t) = 2 atanh(z),
-// z = t/(2+t), by its series (z^2 <= 0.04: terms to z^11). For t >= 1/2,
-// 1 + t = 2(1 + u) with u = (t - 1)/2 exact, so log(1+t) = ln2 + log(1+u),
-// which keeps |z| <= 1/7 and the series short.
+// log(1 + t) = 2 atanh(z), z = t/(2+t), by its series (|z| <= 0.18 here:
+// terms to z^11; what the step-size controller's pow needs).
 inline float log1p_series(float z) noexcept {
     const float z2 = z * z;
     const float p = ((((1.0f / 11.0f * z2 + 1.0f / 9.0f) * z2 + 1.0f / 7.0f) * z2 + 1.0f / 5.0f) * z2 + 1.0f / 3.0f) * z2;
     return 2.0f * z + 2.0f * z * p;
 }
 
-// kernel log1p: needs log1p_series
-inline float log1p_kernel(float t) noexcept {
-    if (t < 0.5f) return log1p_series(t / (2.0f + t));
-    const float u = (t - 1.0f) * 0.5f;
-    return 0.693145751953125f + (log1p_series(u / (2.0f + u)) + 1.42860677e-6f);
-}
-
-// kernel softplus: needs exp log1p
-// max(x, 0) + log1p(exp(-|x|)): no overflow for large x.
+// kernel softplus: needs exp
+// max(x, 0) + log1p(e), e = exp(-|x|) in (2^-24, 1]. log1p(e) from a table
+// at the points j/16: e = j/16 + d (d exact, |d| <= 1/32), so
+// log1p(e) = log(1 + j/16) + log1p(s), s = d/(1 + j/16), |s| <= 1/32, by its
+// Taylor series to s^5 (truncation below 2^-27 of the result); the table
+// holds 1/(16 + j) and log(1 + j/16) as a float pair (204 bytes). x >= 16
+// gives x (the rest is below half an ulp); x <= -16 gives e - e^2/2.
+inline constexpr float kLog1pTable[51] = {
+    // 1/(16 + j), j = 0..16
+    0.0625f, 0.05882353f, 0.055555556f, 0.05263158f, 0.05f, 0.04761905f, 0.045454547f, 0.04347826f,
+    0.041666668f, 0.04f, 0.03846154f, 0.037037037f, 0.035714287f, 0.03448276f, 0.033333335f, 0.032258064f,
+    0.03125f,
+    // log(1 + j/16) rounded to float
+    0.0f, 0.06062462f, 0.11778303f, 0.17185026f, 0.22314355f, 0.2719337f, 0.31845373f, 0.3629055f,
+    0.4054651f, 0.4462871f, 0.48550782f, 0.52324814f, 0.5596158f, 0.59470713f, 0.62860864f, 0.6613985f,
+    0.6931472f,
+    // log(1 + j/16) minus the float above, rounded to float
+    0.0f, 7.905942e-12f, 3.2986907e-09f, -7.145759e-09f, 3.5408485e-09f, 1.0869003e-08f, 1.9658553e-09f,
+    -8.629968e-09f, 1.1872889e-08f, 7.081697e-09f, -2.945779e-10f, 7.720999e-09f, -2.908541e-09f,
+    -2.363911e-08f, 1.5413738e-08f, 1.1843601e-08f, -1.9046542e-09f};
 inline float act_softplus(float x) noexcept {
-    const float l = log1p_kernel(exp_kernel(-std::fabs(x)));
-    return x > 0.0f ? x + l : l;
+    const float a = std::fabs(x);
+    if (a < 16.0f) {
+        const float e16 = exp_core(-a) * 16.0f;
+        const float n = e16 + 12582912.0f;  // 1.5 2^23 + j, j = round(16 e)
+        const float jf = n - 12582912.0f;
+        const std::uint32_t j = bits_of(n) & 31u;
+        const float s = (e16 - jf) * kLog1pTable[j];
+        const float p = s + s * s * (-0.5f + s * (0.33333334f + s * (-0.25f + s * 0.2f)));
+        const float l = kLog1pTable[j + 17u] + (kLog1pTable[j + 34u] + p);
+        return x > 0.0f ? x + l : l;
+    }
+    if (!(x < 0.0f)) return x;  // and NaN
+    const float e = exp_kernel(x);
+    return e - 0.5f * e * e;
 }
 
 // kernel pow: needs exp log1p_series bits_of float_of
@@ -516,6 +576,9 @@ result block_drift(real* work, const real* in, real* out, counters& count) noexc
 }
 
 }  // namespace
+
+const char* const input_names[input_size] = {"x.0", "x.1"};
+const char* const output_names[output_size] = {"y.0", "y.1", "y.2"};
 
 result infer(context& ctx, const real* input, real* output) noexcept {
     ctx.count = counters{0u, 0u, 0u};

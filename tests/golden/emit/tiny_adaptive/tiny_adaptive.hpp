@@ -27,7 +27,7 @@
 
 // Shared by this header and its source from the same meander run; the source refuses
 // any other header.
-#define TINY_ADAPTIVE_MEANDER_STAMP 0xcee96995b6a2e88eULL
+#define TINY_ADAPTIVE_MEANDER_STAMP 0x47da4ca447dca262ULL
 
 #include <cstddef>
 #include <cstdint>
@@ -101,6 +101,11 @@ const char* result_name(result r) noexcept;
 // bits (no FMA contraction, rounding to nearest, subnormals kept); the
 // self-test reports it.
 bool build_conditions_hold() noexcept;
+
+// The values' names (from the description's `names`, else "vector.index") and units
+// ("" where none is given), in the order of input and output.
+extern const char* const input_names[input_size];
+extern const char* const output_names[output_size];
 
 }  // namespace tiny_adaptive
 

@@ -31,7 +31,7 @@
 #include <emmintrin.h>
 #endif
 
-#if !defined(TINY_BACKWARD_MEANDER_STAMP) || TINY_BACKWARD_MEANDER_STAMP != 0xb3555e708b62f25dULL
+#if !defined(TINY_BACKWARD_MEANDER_STAMP) || TINY_BACKWARD_MEANDER_STAMP != 0xf07f74f9e2ce7a8fULL
 #error "tiny_backward.hpp is not the header generated with this source: regenerate both"
 #endif
 
@@ -277,6 +277,9 @@ result block_rewind(real* work, const real* in, real* out, counters& count) noex
 }
 
 }  // namespace
+
+const char* const input_names[input_size] = {"x.0", "x.1"};
+const char* const output_names[output_size] = {"y.0", "y.1"};
 
 result infer(context& ctx, const real* input, real* output) noexcept {
     ctx.count = counters{0u, 0u, 0u};

@@ -3,7 +3,7 @@
 // content hash (description and weights): 0123456789abcdef
 // precision: float32 (real = float)
 // math: meander's own float kernels (runtime/math_float.inc), no C library maths;
-//   largest error in ulp against MPFR: exp 1.0 expm1 1.5 tanh 2.0 sigmoid 2.5 softplus 3.0 silu 3.0 gelu 3.5
+//   largest error in ulp against MPFR: exp 1.0 expm1 1.5 tanh 1.5 sigmoid 2.5 softplus 2.0 silu 3.5 gelu 3.5
 // bits: the same outputs on every core when built with -ffp-contract=off (no FMA
 //   contraction), without -ffast-math, rounding to nearest, subnormals kept;
 //   build_conditions_hold() checks a build, the self-test reports it
@@ -26,7 +26,7 @@
 #include <emmintrin.h>
 #endif
 
-#if !defined(TINY_FIXED_MEANDER_STAMP) || TINY_FIXED_MEANDER_STAMP != 0xd4a4eea55cfe8837ULL
+#if !defined(TINY_FIXED_MEANDER_STAMP) || TINY_FIXED_MEANDER_STAMP != 0x1c8c8c2686214415ULL
 #error "tiny_fixed.hpp is not the header generated with this source: regenerate both"
 #endif
 
@@ -107,41 +107,89 @@ TINY_FIXED_WEIGHTS_ATTR const real b_head[2] = {
 
 // meander's float math kernels (runtime/math_float.inc), the sections this model uses.
 
+// kernel bits_of: needs
+// Bit pattern of a float and back (std::memcpy: no aliasing trouble).
+inline std::uint32_t bits_of(float x) noexcept {
+    std::uint32_t u;
+    std::memcpy(&u, &x, sizeof u);
+    return u;
+}
+
 // kernel float_of: needs
 inline float float_of(std::uint32_t u) noexcept {
     float x;
     std::memcpy(&x, &u, sizeof x);
     return x;
 }
+
+// kernel exp_core: needs bits_of float_of
+// e^x = 2^m 2^(j/32) e^r: k = 32 m + j = round(x 32/ln2), found by adding
+// 1.5 2^23 (the addition rounds; k is in the low bits of the sum),
+// r = x - k ln2/32 with |r| <= ln2/64 (Cody and Waite: ln2/32 in two parts,
+// k ln2/32_hi exact for |k| < 2^13), e^r - 1 by its Taylor series to r^3
+// (truncation below 2^-30), 2^(j/32) from a table as a float pair (256
+// bytes), so the sum rounds once: within about 0.52 ulp before scaling.
+inline constexpr float kExp2Table[64] = {
+    // 2^(j/32) rounded to float, j = 0..31
+    1.0f, 1.0218972f, 1.0442737f, 1.0671405f, 1.0905077f, 1.1143868f, 1.1387886f, 1.1637249f,
+    1.1892071f, 1.2152474f, 1.2418578f, 1.269051f, 1.2968396f, 1.3252367f, 1.3542556f, 1.38391f,
+    1.4142135f, 1.4451808f, 1.4768262f, 1.5091645f, 1.5422108f, 1.5759809f, 1.6104903f, 1.6457555f,
+    1.6817929f, 1.7186193f, 1.7562522f, 1.7947091f, 1.8340081f, 1.8741677f, 1.9152066f, 1.9571441f,
+    // 2^(j/32) minus the float above, rounded to float
+    0.0f, -4.81156e-08f, 4.83347e-08f, -5.933752e-08f, -1.307754e-08f, -5.43554e-08f, 5.3862223e-08f,
+    -4.0514415e-08f, 3.7976353e-08f, -3.267395e-08f, 4.496838e-08f, 1.4193333e-09f, -4.0189995e-08f,
+    -3.4963733e-08f, -1.0123349e-08f, -5.8755774e-08f, 2.4203235e-08f, 3.3242e-08f, -4.500899e-08f,
+    -2.4959373e-08f, 8.070905e-09f, -5.6610254e-08f, 9.836217e-09f, -5.124972e-08f, -2.4755327e-08f,
+    -4.8496176e-08f, -9.23577e-09f, -1.1415045e-08f, -1.1239278e-08f, -4.6630056e-08f, 9.845328e-09f,
+    -1.7021804e-08f};
+// 2^(j/32) e^r, j the low 5 bits of k (nb = bits of 1.5 2^23 + k).
+[[gnu::always_inline]] inline float exp_tail(float r, std::uint32_t nb) noexcept {
+    const std::uint32_t j = nb & 31u;
+    const float q = r + r * r * (0.5f + r * 0.16666667f);
+    const float t = kExp2Table[j];
+    return t + (kExp2Table[j + 32u] + t * q);
+}
+// e^x for -87 <= x <= 88 only (the callers keep it there; NaN gives NaN):
+// no range checks. 2^m, -126 <= m <= 126, is built from its bits.
+[[gnu::always_inline]] inline float exp_core(float x) noexcept {
+    const float n = x * 46.16624f + 12582912.0f;
+    const float kf = n - 12582912.0f;
+    const std::uint32_t nb = bits_of(n);
+    const float r = (x - kf * 0.02166748f) + kf * 6.6310763e-06f;
+    return exp_tail(r, nb) * float_of(((nb >> 5) - 0x25a0000u + 127u) << 23);
+}
+
+// kernel exp_scaled: needs exp_core
 // 2^k for -126 <= k <= 127, exactly.
 inline float pow2(int k) noexcept { return float_of(static_cast<std::uint32_t>(k + 127) << 23); }
-
-// kernel exp: needs float_of
-// s exp(hi + lo) for |lo| <= 2^-20 |hi| and 2^-8 <= |s| <= 2^8: hi = k ln2 + r
-// with |r| <= ln2/2 (Cody and Waite: ln2 in two parts, k ln2_hi exact), e^r
-// by the polynomial of the Cephes Math Library's expf (S. L. Moshier), then
-// s e^r times 2^k in two exact halves, so a subnormal result is rounded once.
-// Overflow gives +inf (s = 1 only), an underflow 0, NaN stays NaN.
-inline float exp_scaled(float hi, float lo, float s) noexcept {
+// s exp(hi + lo) for |lo| <= 2^-20 |hi| and 2^-8 <= |s| <= 2^8, any hi:
+// s 2^(j/32) e^r times 2^m in two exact halves, so a subnormal result is
+// rounded once. Overflow gives +inf (s = 1 only), an underflow 0, NaN stays NaN.
+// Out of line: the activations call it only beyond their common range.
+[[gnu::noinline]] inline float exp_scaled(float hi, float lo, float s) noexcept {
     if (std::isnan(hi)) return hi;
     if (hi > 88.8f) return HUGE_VALF;
     if (hi < -112.0f) return s < 0.0f ? -0.0f : 0.0f;  // not 0 * s: s may be -inf (silu at -inf)
-    const float t = hi * 1.44269504f;  // log2(e)
-    const int k = static_cast<int>(t < 0.0f ? t - 0.5f : t + 0.5f);
-    const float kf = static_cast<float>(k);
-    const float r = (hi - kf * 0.693145751953125f) - kf * 1.42860677e-6f + lo;
-    const float r2 = r * r;
-    const float p = (((((1.98756915e-4f * r + 1.39819995e-3f) * r + 8.33345190e-3f) * r + 4.16657959e-2f) * r +
-                      1.66666655e-1f) * r + 5.00000012e-1f) * r2 + r + 1.0f;
-    const int k1 = k / 2;
-    return p * s * pow2(k1) * pow2(k - k1);
+    const float n = hi * 46.16624f + 12582912.0f;
+    const float kf = n - 12582912.0f;
+    const std::uint32_t nb = bits_of(n);
+    const float r = ((hi - kf * 0.02166748f) + kf * 6.6310763e-06f) + lo;
+    const int m = static_cast<int>(nb >> 5) - 0x25a0000;  // floor(k / 32)
+    const int m1 = m / 2;
+    return exp_tail(r, nb) * s * pow2(m1) * pow2(m - m1);
 }
-inline float exp_kernel(float x) noexcept { return exp_scaled(x, 0.0f, 1.0f); }
 
-// kernel tanh: needs exp
+// kernel exp: needs exp_core exp_scaled
+inline float exp_kernel(float x) noexcept {
+    if (x >= -87.0f && x <= 88.0f) return exp_core(x);
+    return exp_scaled(x, 0.0f, 1.0f);
+}
+
+// kernel tanh: needs exp_core
 // Below |x| = 0.55 an odd polynomial (least-squares fit in x^2, weighted to
 // relative error); above, 1 - 2e/(1 + e) with e = exp(-2|x|) <= 1/3, where
 // the subtraction from 1 keeps the error of e small; 1 beyond |x| = 9.1.
+// One division, one exp without range checks.
 inline float act_tanh(float x) noexcept {
     const float a = std::fabs(x);
     float r;
@@ -149,23 +197,26 @@ inline float act_tanh(float x) noexcept {
         const float a2 = a * a;
         r = a + a * a2 * ((((-6.28766278e-3f * a2 + 2.10820586e-2f) * a2 - 5.38551211e-2f) * a2 + 1.33326173e-1f) * a2 -
                            3.33333194e-1f);
-    } else if (a > 9.1f) {
+    } else if (a >= 9.1f) {
         r = 1.0f;
-    } else {
-        const float e = exp_kernel(-2.0f * a);
-        r = 1.0f - 2.0f * e / (1.0f + e);
+    } else {  // NaN comes here and stays NaN
+        const float e = exp_core(-2.0f * a);
+        r = 1.0f - (e + e) / (1.0f + e);
     }
     return std::signbit(x) ? -r : r;
 }
 
-// kernel silu: needs exp
-// x < 0: x e/(1 + e), e = exp(x); where 1 + e rounds to 1, x e is formed
+// kernel silu: needs exp_core exp_scaled
+// x/(1 + e) for x >= 0, x e/(1 + e) below, e = exp(-|x|); one division.
+// x itself beyond 20; below -20, where 1 + e rounds to 1, x e is formed
 // inside exp so a subnormal result is rounded once.
 inline float act_silu(float x) noexcept {
-    if (x >= 0.0f) return x / (1.0f + exp_kernel(-x));
-    if (x < -20.0f) return exp_scaled(x, 0.0f, x);
-    const float e = exp_kernel(x);
-    return x * e / (1.0f + e);
+    const float a = std::fabs(x);
+    if (a < 20.0f) {
+        const float e = exp_core(-a);
+        return (x >= 0.0f ? x : x * e) / (1.0f + e);
+    }
+    return x < 0.0f ? exp_scaled(x, 0.0f, x) : x;  // NaN too
 }
 
 // kernel relu: needs
@@ -455,6 +506,16 @@ result block_glide(real* work, const real* in, real* out, counters& count) noexc
 
 }  // namespace
 
+const char* const input_names[input_size] = {"x.0", "x.1"};
+const char* const output_names[output_size] = {"y.0", "y.1"};
+
+std::size_t most_probable(const real* output) noexcept {
+    std::size_t best = 0;
+    for (std::size_t i = 1; i < output_size; ++i)
+        if (output[i] > output[best]) best = i;
+    return best;
+}
+
 result infer(context& ctx, const real* input, real* output) noexcept {
     ctx.count = counters{0u, 0u, 0u};
     for (std::size_t i = 0; i < input_size; ++i)
@@ -512,7 +573,7 @@ bool build_conditions_hold() noexcept {
 // The C entry points declared in tiny_fixed.h.
 #include "tiny_fixed.h"
 
-#if !defined(TINY_FIXED_MEANDER_C_STAMP) || TINY_FIXED_MEANDER_C_STAMP != 0xa9b333c5bef4ea27ULL
+#if !defined(TINY_FIXED_MEANDER_C_STAMP) || TINY_FIXED_MEANDER_C_STAMP != 0x62932902edcd8eafULL
 #error "tiny_fixed.h is not the C header generated with this source: regenerate both"
 #endif
 

@@ -20,7 +20,7 @@
 
 // Shared by this header and its source from the same meander run; the source refuses
 // any other header.
-#define TINY_FIXED_MEANDER_STAMP 0x71744ab1e36aebffULL
+#define TINY_FIXED_MEANDER_STAMP 0x1c8c8c2686214415ULL
 
 #include <cstddef>
 #include <cstdint>
@@ -94,6 +94,15 @@ const char* result_name(result r) noexcept;
 // bits (no FMA contraction, rounding to nearest, subnormals kept); the
 // self-test reports it.
 bool build_conditions_hold() noexcept;
+
+// The values' names (from the description's `names`, else "vector.index") and units
+// ("" where none is given), in the order of input and output.
+extern const char* const input_names[input_size];
+extern const char* const output_names[output_size];
+
+// The index of the largest value of an output that infer computed with result ok (the
+// most probable class); among equal largest values, the lowest index.
+std::size_t most_probable(const real* output) noexcept;
 
 }  // namespace tiny_fixed
 
