@@ -23,7 +23,7 @@ namespace {
 
 std::set<int> block_sizes(const Model& m) {
     std::set<int> sizes;
-    for_each_dense(m.blocks, [&](const Dense& d) {
+    for_each_model_dense(m, [&](const Dense& d) {
         if (d.out >= kDenseBlockRows) sizes.insert(kDenseBlockRows);
         if (d.out % kDenseBlockRows) sizes.insert(d.out % kDenseBlockRows);
     });
@@ -128,6 +128,10 @@ std::string arm_steps(int R, const std::string& inl) {
 }
 
 }  // namespace
+
+std::string render_dense_includes(const Emission& e) {
+    return block_sizes(e.model).empty() ? "" : "#if defined(__SSE2__)\n#include <emmintrin.h>\n#endif\n\n";
+}
 
 std::string render_dense_steps(const Emission& e) {
     const std::set<int> sizes = block_sizes(e.model);

@@ -20,7 +20,7 @@ std::string render_source(const Emission& e, const std::string& stamp, const std
     o += fmt::format("#include \"{}.hpp\"\n\n#include <cmath>\n#include <cstddef>\n#include <cstdint>\n{}\n", e.model.name,
                      e.p == Precision::float32 ? "#include <cstring>\n" : "");
     // The dense kernels' steps use SSE2 registers on x86 (dense.cpp).
-    if (!e.model.blocks.empty()) o += "#if defined(__SSE2__)\n#include <emmintrin.h>\n#endif\n\n";
+    o += render_dense_includes(e);
     o += fmt::format("#if !defined({}_MEANDER_STAMP) || {}_MEANDER_STAMP != {}\n", M_, M_, stamp);
     o += fmt::format("#error \"{}.hpp is not the header generated with this source: regenerate both\"\n#endif\n\n",
                      e.model.name);

@@ -72,6 +72,7 @@ std::string apply_activation(Precision p, const Dense& d, const std::string& x);
 // accumulate steps (lanesR_*), which render_dense_layers puts first.
 inline constexpr int kDenseBlockRows = 4;
 inline constexpr int kUnrollInputs = 16;
+std::string render_dense_includes(const Emission& e);  // the SSE2 intrinsics' header, when a layer needs it
 std::string render_dense_steps(const Emission& e);
 std::string render_dense_layers(const Emission& e);
 

@@ -190,6 +190,7 @@ std::string stream_source(const Emission& e, const std::string& stamp) {
     std::string o = banner(m, e.opts, m.name + ".cpp");
     o += fmt::format("#include \"{}.hpp\"\n\n#include <cmath>\n#include <cstddef>\n#include <cstdint>\n{}\n", m.name,
                      e.p == Precision::float32 ? "#include <cstring>\n" : "");
+    o += render_dense_includes(e);
     o += fmt::format("#if !defined({0}_MEANDER_STAMP) || {0}_MEANDER_STAMP != {1}\n", M_, stamp);
     o += fmt::format("#error \"{}.hpp is not the header generated with this source: regenerate both\"\n#endif\n\n", m.name);
     o += fmt::format("static_assert(sizeof({}::real) == {}, \"real has the width this code was generated for\");\n",

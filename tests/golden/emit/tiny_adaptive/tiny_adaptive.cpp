@@ -103,7 +103,7 @@ inline float float_of(std::uint32_t u) noexcept {
 // k ln2/32_hi exact for |k| < 2^13), e^r - 1 by its Taylor series to r^3
 // (truncation below 2^-30), 2^(j/32) from a table as a float pair (256
 // bytes), so the sum rounds once: within about 0.52 ulp before scaling.
-inline constexpr float kExp2Table[64] = {
+constexpr float kExp2Table[64] = {
     // 2^(j/32) rounded to float, j = 0..31
     1.0f, 1.0218972f, 1.0442737f, 1.0671405f, 1.0905077f, 1.1143868f, 1.1387886f, 1.1637249f,
     1.1892071f, 1.2152474f, 1.2418578f, 1.269051f, 1.2968396f, 1.3252367f, 1.3542556f, 1.38391f,
@@ -175,7 +175,7 @@ inline float log1p_series(float z) noexcept {
 // Taylor series to s^5 (truncation below 2^-27 of the result); the table
 // holds 1/(16 + j) and log(1 + j/16) as a float pair (204 bytes). x >= 16
 // gives x (the rest is below half an ulp); x <= -16 gives e - e^2/2.
-inline constexpr float kLog1pTable[51] = {
+constexpr float kLog1pTable[51] = {
     // 1/(16 + j), j = 0..16
     0.0625f, 0.05882353f, 0.055555556f, 0.05263158f, 0.05f, 0.04761905f, 0.045454547f, 0.04347826f,
     0.041666668f, 0.04f, 0.03846154f, 0.037037037f, 0.035714287f, 0.03448276f, 0.033333335f, 0.032258064f,

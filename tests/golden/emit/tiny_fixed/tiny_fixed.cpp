@@ -129,7 +129,7 @@ inline float float_of(std::uint32_t u) noexcept {
 // k ln2/32_hi exact for |k| < 2^13), e^r - 1 by its Taylor series to r^3
 // (truncation below 2^-30), 2^(j/32) from a table as a float pair (256
 // bytes), so the sum rounds once: within about 0.52 ulp before scaling.
-inline constexpr float kExp2Table[64] = {
+constexpr float kExp2Table[64] = {
     // 2^(j/32) rounded to float, j = 0..31
     1.0f, 1.0218972f, 1.0442737f, 1.0671405f, 1.0905077f, 1.1143868f, 1.1387886f, 1.1637249f,
     1.1892071f, 1.2152474f, 1.2418578f, 1.269051f, 1.2968396f, 1.3252367f, 1.3542556f, 1.38391f,
