@@ -174,6 +174,7 @@ inline int status_code(EvalStatus s) {
     case EvalStatus::state_not_finite: return 2;
     case EvalStatus::step_limit: return 3;
     case EvalStatus::step_too_small: return 4;
+    case EvalStatus::gap_out_of_range: return 5;  // streaming models only
     }
     return -1;
 }
