@@ -1,10 +1,12 @@
 // Emit: a checked, bound model -> standalone C++ (a header and a source).
 #pragma once
 
+#include <optional>
 #include <string>
 #include <vector>
 
 #include "../runtime/model.hpp"
+#include "learn.hpp"
 
 namespace meander {
 
@@ -19,6 +21,8 @@ struct EmitOptions {
     // A streaming model's golden observations: each one's gap, and whether its sequence begins there.
     std::vector<double> self_test_gaps;
     std::vector<bool> self_test_first;
+    // Learning on the device (compiler/learn.hpp): the parameter block, gradient and SGD step.
+    std::optional<LearnPlan> learn;
 };
 
 struct EmittedFile {

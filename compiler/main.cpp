@@ -19,6 +19,7 @@
 #include "compiler/expect.hpp"
 #include "compiler/format.hpp"
 #include "compiler/labels.hpp"
+#include "compiler/learn.hpp"
 #include "compiler/load.hpp"
 #include "compiler/lower.hpp"
 #include "compiler/npz_writer.hpp"
@@ -265,7 +266,8 @@ EmitOptions emit_options(const LoadedModel& l, Precision p, bool c_header) {
 }
 
 int cmd_compile(const std::string& model_path, const std::string& outdir, const std::string& precision, bool c_header,
-                const std::string& self_test, const std::string& dump) {
+                const std::string& self_test, const std::string& dump, const std::string& learn,
+                const std::string& learn_by) {
     Diagnostics diags;
     Precision p = precision_of(precision);
     auto loaded = load_model(model_path, p, diags);
@@ -275,6 +277,28 @@ int cmd_compile(const std::string& model_path, const std::string& outdir, const 
         return flush(diags), kModelError;
     }
     EmitOptions opts = emit_options(*loaded, p, c_header);
+    // What learns: --learn overrides the description's `learn` statement; --learn-by its way.
+    std::optional<LearnSpec> spec = loaded->model.learn;
+    const bool from_option = !learn.empty();
+    if (from_option) {
+        spec = learn_spec_from_option(learn, learn_by, diags);
+        if (!spec) return flush(diags), kUsageError;
+    } else if (!learn_by.empty()) {
+        if (!spec) {
+            diags.error("--learn-by", "needs --learn or a `learn` statement in the description");
+            return flush(diags), kUsageError;
+        }
+        auto way = learn_spec_from_option("all", learn_by, diags);
+        if (!way) return flush(diags), kUsageError;
+        spec->way = way->way;
+        spec->way_written = true;
+        spec->way_loc = Loc{};
+    }
+    if (spec) {
+        opts.learn = plan_learning(loaded->model, *spec, from_option ? nullptr : &loaded->source,
+                                   from_option ? std::string("--learn") : model_path, diags);
+        if (!opts.learn) return flush(diags), kModelError;
+    }
     if (!self_test.empty() && loaded->model.stream) {
         // A sequence file: each golden observation keeps its gap and where its sequence begins.
         auto rows = read_sequence_file(self_test, loaded->model.input_size, loaded->model.stream->largest_gap, diags,
@@ -671,6 +695,7 @@ int main(int argc, char** argv) {
 
     const std::vector<std::string> precisions{"float32", "float64"};
     std::string model, input, output, outdir, precision = "float32", self_test, dump, cxx, keep, core = "cortex-m4f";
+    std::string learn, learn_by;
     std::vector<std::string> boards;
     double tol = -1.0, cycles_per_mac = -1.0;
     bool stats = false, show = false, c_header = false, json = false, in_place = false, check_only = false, estimate_only = false;
@@ -710,6 +735,10 @@ int main(int argc, char** argv) {
     compile->add_option("--precision", precision, "float32 (default) or float64")->check(CLI::IsMember(precisions));
     compile->add_flag("--c-header", c_header,
                       "also emit <model>.h, a plain C header (C99), with extern \"C\" entry points in <model>.cpp");
+    compile->add_option("--learn", learn,
+                        "what may learn on the device: biases, head, all, or layer names separated by commas "
+                        "(overrides the description's `learn`)");
+    compile->add_option("--learn-by", learn_by, "how the gradient goes back through continuous blocks: steps or adjoint");
     compile->add_option("--self-test", self_test, "CSV of golden inputs: emit a self-test with eval's outputs for them");
     compile->add_option("--dump", dump, "print an intermediate form: parse, lower, emit")
         ->check(CLI::IsMember({"parse", "lower", "emit"}));
@@ -854,7 +883,7 @@ int main(int argc, char** argv) {
     try {
         if (*check) return cmd_check(model, precision, input, expect, expect_tol);
         if (*eval) return cmd_eval(model, input, output, stats, labels_path, keep_going);
-        if (*compile) return cmd_compile(model, outdir, precision, c_header, self_test, dump);
+        if (*compile) return cmd_compile(model, outdir, precision, c_header, self_test, dump, learn, learn_by);
         if (*verify) return cmd_verify(model, input, precision, tol, cxx, keep, show, boards);
         if (*cost) return cmd_cost(model, input, precision, core, cycles_per_mac, json, estimate_only);
         if (*tune)

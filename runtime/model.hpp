@@ -176,6 +176,22 @@ inline std::string value_name(const VectorInfo& info, const std::string& vector,
     return vector + "." + std::to_string(i);
 }
 
+// Which parameters the emitted code may change on the device (`learn ...` or compile --learn):
+// every bias, the last top-level layer, named dense layers, or all. `by` chooses how the gradient
+// goes back through a continuous block: through its steps (exact; memory grows with the steps) or
+// by the adjoint method (memory independent of the steps).
+struct LearnSpec {
+    enum class What { biases, head, layers, all };
+    enum class Way { steps, adjoint };
+    What what = What::all;
+    Loc loc;                        // the statement (or no position for the option)
+    std::vector<std::string> layers;  // What::layers
+    std::vector<Loc> layer_locs;
+    Way way = Way::steps;
+    Loc way_loc;                    // position of the way's word when written
+    bool way_written = false;
+};
+
 struct Model {
     std::string name;               // becomes the C++ namespace
     Loc loc;
@@ -195,6 +211,7 @@ struct Model {
     VectorInfo output_info;         // of the output's values, and class labels
     std::vector<Block> blocks;
     std::optional<Stream> stream;   // set for a streaming model; `blocks` is then its readout
+    std::optional<LearnSpec> learn; // what may learn on the device; none: nothing (inference only)
 };
 
 // The name of a layer or block, and the width it hands to what follows.

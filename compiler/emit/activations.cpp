@@ -160,7 +160,10 @@ std::string render_activations(const Emission& e) {
         if (e.model.stream->update == Stream::Update::gated) used.insert({Activation::sigmoid, Activation::tanh});
         if (e.model.stream->evolve.blend) used.insert(Activation::sigmoid);
     }
-    return render_activation_kernels(e.p, used, has_adaptive_block(e));
+    const std::set<Activation> extra = learn_kernel_needs(e);
+    used.insert(extra.begin(), extra.end());
+    // The cross-entropy loss takes a logarithm: float32's is in the pow kernel's section.
+    return render_activation_kernels(e.p, used, has_adaptive_block(e) || learn_needs_log(e));
 }
 
 std::string apply_activation(const Emission& e, const Dense& d, const std::string& x) {

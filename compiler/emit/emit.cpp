@@ -60,6 +60,7 @@ std::string render_source(const Emission& e, const std::string& stamp, const std
     o += render_infer(e);
     o += render_result_name();
     o += render_build_check(e.p);
+    o += render_learn_source(e);
     o += fmt::format("}}  // namespace {}\n", e.model.name);
     if (e.opts.c_header) o += render_c_entry(e, c_stamp);
     return o;

@@ -272,6 +272,7 @@ bool build_conditions_hold() noexcept;
 
 )";
     o += render_vector_declarations(e);
+    o += render_learn_header(e);
     o += fmt::format("}}  // namespace {}\n", e.model.name);
     o += fmt::format("\n#endif  // MEANDER_GENERATED_{}_HPP\n", M_);
     return o;

@@ -9,6 +9,7 @@
 //   c_header.cpp     NAME.h for C callers and the extern "C" entry points
 //   vectors.cpp      names, units and classes of the input's and output's values,
 //                    standardisation tables, most_probable
+//   learn.cpp        learning on the device: parameter block, gradient, SGD step
 #pragma once
 
 #include <set>
@@ -103,5 +104,11 @@ bool emits_most_probable(const Model& model);  // a softmax head, or classes giv
 std::string render_vector_declarations(const Emission& e);
 std::string render_standardisation_tables(const Emission& e);
 std::string render_vector_definitions(const Emission& e);
+// learn.cpp: with EmitOptions::learn, the header's and the source's learning
+// sections, and the activation kernels the derivatives need beyond the model's.
+std::string render_learn_header(const Emission& e);
+std::string render_learn_source(const Emission& e);
+std::set<Activation> learn_kernel_needs(const Emission& e);
+bool learn_needs_log(const Emission& e);
 
 }  // namespace meander::emit_detail

@@ -1,0 +1,1024 @@
+// Emit, learning on the device (compiler/learn.hpp's plan): the parameter block,
+// a forward pass that keeps what the reverse pass needs, the reverse pass
+// (dense layers, residual blocks, fixed-step continuous blocks through their
+// steps or by the adjoint method), the losses and the SGD step.
+//
+// The reverse pass mirrors runtime/gradient.cpp, runtime/vjp.cpp,
+// runtime/backprop.cpp and runtime/adjoint.cpp operation for operation where
+// they are element-wise (gradient accumulation, Runge-Kutta combinations), so
+// float64 results differ from the runtime's only through the sums the runtime
+// leaves to Eigen (W^T g, dot products). The workspace is laid out here, at
+// compile time: every buffer is a fixed offset in learn_context::work; nothing
+// is allocated and no function calls itself.
+#include <fmt/format.h>
+
+#include <algorithm>
+
+#include "../../runtime/integrate.hpp"
+#include "../format.hpp"
+#include "render.hpp"
+
+namespace meander::emit_detail {
+
+namespace {
+
+struct LNode;
+
+// A chain of layers (the region of the top level, a residual body, a field):
+// its layers and two buffers for dL/d(results between them).
+struct LChain {
+    std::vector<LNode> nodes;
+    std::size_t bar[2] = {0, 0};
+};
+
+struct LNode {
+    const Block* b = nullptr;
+    std::string x;                  // pointer expression of the input
+    int in = 0, out = 0;
+    std::size_t y = 0;              // output
+    std::size_t z = 0;              // dense: before the activation
+    LChain body;                    // residual: g
+    std::size_t gbar = 0;           // residual: dL/dg's input
+    // continuous
+    std::size_t n = 0;
+    std::size_t states = 0;         // steps: the state at the start of every step
+    std::size_t k = 0;              // stage derivatives (steps: n each; adjoint: m each)
+    std::size_t arg = 0;            // stage arguments (steps: stages 2..s, n each; adjoint: one of m)
+    std::size_t kbar = 0, ybar = 0, ynb = 0, argbar = 0;  // steps
+    std::size_t az = 0, gtmp = 0, ybtmp = 0;               // adjoint: [y, a, g], scratch
+    std::size_t m = 0;              // adjoint: 2n + learnable values of the field
+    std::size_t fbase = 0;          // the field's first learnable value in the parameter block
+    std::size_t fcount = 0;         // the field's learnable values
+};
+
+class LearnRender {
+public:
+    explicit LearnRender(const Emission& e) : e_(e), plan_(*e.opts.learn) {}
+
+    std::string header();
+    std::string source();
+
+private:
+    const Emission& e_;
+    const LearnPlan& plan_;
+    std::size_t top_ = 0;           // workspace allocated so far
+    std::size_t gz_ = 0;            // dL/dz of one dense layer
+    std::size_t widest_out_ = 1;
+    std::size_t region_in_ = 0;     // the region's input when the prefix computes it
+    std::size_t obar_ = 0;          // dL/doutput
+    LChain region_;
+    long field_evals_ = 0;          // per learning step
+    long macs_ = 0;                 // per learning step
+    bool laid_out_ = false;
+
+    std::string L(double v) const { return e_.L(v); }
+    std::size_t take(std::size_t n) {
+        const std::size_t at = top_;
+        top_ += std::max<std::size_t>(n, 1);
+        return at;
+    }
+    static std::string W(std::size_t off) { return fmt::format("w + {}", off); }
+
+    void layout();
+    void layout_chain(LChain& c, const std::vector<Block>& blocks, const std::string& in, int in_width);
+    void layout_continuous(LNode& nd);
+    long chain_macs_forward(const std::vector<Block>& blocks) const;
+    long chain_macs_backward(const std::vector<Block>& blocks) const;
+
+    std::string weight_ptr(const Dense& d) const;
+    std::string bias_ptr(const Dense& d) const;
+    std::string grad_ptr(const Dense& d, bool weight, const std::string& g, std::size_t base) const;
+
+    std::string render_dense_kernels();
+    std::string render_dense_forward(const Dense& d);
+    std::string render_dense_backward(const Dense& d);
+    std::string render_derivatives();
+    void fwd_chain(std::string& o, const LChain& c, const std::string& t, const std::string& pad, bool top);
+    void bwd_chain(std::string& o, const LChain& c, const std::string& ybar, const std::string& xbar,
+                   const std::string& g, std::size_t base, const std::string& t, const std::string& pad, bool top);
+    std::string render_fields();
+    void fwd_continuous(std::string& o, const LNode& nd, const std::string& pad);
+    void bwd_continuous(std::string& o, const LNode& nd, const std::string& ybar, const std::string& xbar,
+                        const std::string& pad);
+    std::string render_prefix();
+    std::string render_passes();
+    std::string render_entries();
+};
+
+// ---- layout ------------------------------------------------------------------------
+
+long dense_macs(const Dense& d) { return static_cast<long>(d.out) * d.in_total(); }
+
+long LearnRender::chain_macs_forward(const std::vector<Block>& blocks) const {
+    long m = 0;
+    for_each_dense(blocks, [&](const Dense& d) { m += dense_macs(d); });
+    return m;
+}
+
+long LearnRender::chain_macs_backward(const std::vector<Block>& blocks) const {
+    long m = 0;
+    for_each_dense(blocks, [&](const Dense& d) {
+        const LearnLayer* l = plan_.find(d);
+        m += static_cast<long>(d.out) * d.in + (l && l->weight ? dense_macs(d) : 0);
+    });
+    return m;
+}
+
+void LearnRender::layout_chain(LChain& c, const std::vector<Block>& blocks, const std::string& in, int in_width) {
+    std::string x = in;
+    int width = in_width;
+    std::size_t widest = static_cast<std::size_t>(in_width);
+    for (const Block& b : blocks) {
+        LNode nd;
+        nd.b = &b;
+        nd.x = x;
+        nd.in = width;
+        nd.out = block_out_width(b);
+        widest = std::max(widest, static_cast<std::size_t>(nd.out));
+        if (b.kind == Block::Kind::dense) {
+            nd.z = take(static_cast<std::size_t>(nd.out));
+            nd.y = take(static_cast<std::size_t>(nd.out));
+            widest_out_ = std::max(widest_out_, static_cast<std::size_t>(nd.out));
+        } else if (b.kind == Block::Kind::residual) {
+            layout_chain(nd.body, b.residual.body, x, width);
+            nd.gbar = take(static_cast<std::size_t>(width));
+            nd.y = take(static_cast<std::size_t>(nd.out));
+        } else {
+            nd.y = take(static_cast<std::size_t>(nd.out));
+            layout_continuous(nd);
+        }
+        x = W(nd.y);
+        width = nd.out;
+        c.nodes.push_back(std::move(nd));
+    }
+    c.bar[0] = take(widest);
+    c.bar[1] = take(widest);
+}
+
+void LearnRender::layout_continuous(LNode& nd) {
+    const Continuous& c = nd.b->continuous;
+    const Tableau& tb = *find_tableau(c.solver.method);
+    const std::size_t s = static_cast<std::size_t>(tb.stages);
+    const std::size_t N = static_cast<std::size_t>(c.solver.steps);
+    nd.n = static_cast<std::size_t>(c.state());
+    // The field's learnable values, contiguous in the block (for_each_dense order).
+    bool first = true;
+    for_each_dense(c.field, [&](const Dense& d) {
+        const LearnLayer* l = plan_.find(d);
+        if (!l || !l->any()) return;
+        const std::size_t at = l->weight ? l->weight_at : l->bias_at;
+        if (first) nd.fbase = at;
+        first = false;
+        nd.fcount += (l->weight ? static_cast<std::size_t>(d.out * d.in_total()) : 0) +
+                     (l->bias ? static_cast<std::size_t>(d.out) : 0);
+    });
+    if (plan_.way == LearnSpec::Way::steps) {
+        nd.states = take(N * nd.n);
+        nd.k = take(s * nd.n);
+        nd.arg = take((s > 1 ? s - 1 : 1) * nd.n);
+        nd.kbar = take(s * nd.n);
+        nd.ybar = take(nd.n);
+        nd.ynb = take(nd.n);
+        nd.argbar = take(nd.n);
+    } else {
+        nd.m = 2 * nd.n + nd.fcount;
+        nd.az = take(nd.m);
+        nd.k = take(s * nd.m);
+        nd.arg = take(nd.m);
+        nd.gtmp = take(nd.fcount);
+        nd.ybtmp = take(nd.n);
+    }
+    // The field's own record (one evaluation at a time) after the block's buffers.
+    layout_chain(nd.body, c.field, "x", c.state());
+}
+
+void LearnRender::layout() {
+    if (laid_out_) return;
+    laid_out_ = true;
+    const Model& m = e_.model;
+    std::string in = "input";
+    int width = m.input_size;
+    if (plan_.first_block > 0) {
+        width = block_out_width(m.blocks[plan_.first_block - 1]);
+        region_in_ = take(static_cast<std::size_t>(width));
+        in = W(region_in_);
+    }
+    // The region: the top-level blocks from the first that holds a learnable layer.
+    {
+        std::string x = in;
+        std::size_t widest = static_cast<std::size_t>(width);
+        for (std::size_t i = plan_.first_block; i < m.blocks.size(); ++i) {
+            const Block& b = m.blocks[i];
+            LNode nd;
+            nd.b = &b;
+            nd.x = x;
+            nd.in = width;
+            nd.out = block_out_width(b);
+            widest = std::max(widest, static_cast<std::size_t>(nd.out));
+            if (b.kind == Block::Kind::dense) {
+                nd.z = take(static_cast<std::size_t>(nd.out));
+                nd.y = take(static_cast<std::size_t>(nd.out));
+                widest_out_ = std::max(widest_out_, static_cast<std::size_t>(nd.out));
+            } else if (b.kind == Block::Kind::residual) {
+                layout_chain(nd.body, b.residual.body, x, width);
+                nd.gbar = take(static_cast<std::size_t>(width));
+                nd.y = take(static_cast<std::size_t>(nd.out));
+            } else {
+                nd.y = take(static_cast<std::size_t>(nd.out));
+                layout_continuous(nd);
+            }
+            x = W(nd.y);
+            width = nd.out;
+            region_.nodes.push_back(std::move(nd));
+        }
+        region_.bar[0] = take(widest);
+        region_.bar[1] = take(widest);
+    }
+    obar_ = take(static_cast<std::size_t>(m.output_size));
+    gz_ = take(widest_out_);
+
+    // Work per learning step: the prefix as inference, the region forward and back.
+    long prefix_fe = 0;
+    for (std::size_t i = 0; i < plan_.first_block; ++i) {
+        const Block& b = m.blocks[i];
+        if (b.kind == Block::Kind::continuous) prefix_fe += worst_field_evals(b.continuous.solver);
+        macs_ += b.kind == Block::Kind::continuous
+                     ? chain_macs_forward(b.continuous.field) * worst_field_evals(b.continuous.solver)
+                     : chain_macs_forward(std::vector<Block>{b});
+    }
+    field_evals_ = prefix_fe;
+    for (const LNode& nd : region_.nodes) {
+        const Block& b = *nd.b;
+        if (b.kind != Block::Kind::continuous) {
+            const std::vector<Block> one{b};
+            macs_ += chain_macs_forward(one) + chain_macs_backward(one);
+            continue;
+        }
+        const Continuous& c = b.continuous;
+        const Tableau& tb = *find_tableau(c.solver.method);
+        const long N = c.solver.steps, s = tb.stages;
+        const long fwd = chain_macs_forward(c.field), bwd = chain_macs_backward(c.field);
+        if (plan_.way == LearnSpec::Way::steps) {
+            long used = 0;  // stages whose reverse runs (a stage nothing uses is skipped)
+            for (long i = 0; i < s; ++i) {
+                bool live = tb.b[static_cast<std::size_t>(i)].value != 0.0;
+                for (long l = i + 1; l < s; ++l)
+                    live = live || tb.a_at(static_cast<int>(l), static_cast<int>(i)) != 0.0;
+                used += live ? 1 : 0;
+            }
+            // forward N*s; reverse: the step's stages but the last again, and a recorded evaluation per live stage
+            field_evals_ += N * s + N * (s - 1) + N * used;
+            macs_ += (N * s + N * (s - 1) + N * used) * fwd + N * used * bwd;
+        } else {
+            field_evals_ += N * s + N * s;
+            macs_ += (N * s + N * s) * fwd + N * s * bwd;
+        }
+    }
+}
+
+// ---- pointers into the parameter block, flash and the gradient ----------------------
+
+std::string LearnRender::weight_ptr(const Dense& d) const {
+    const LearnLayer* l = plan_.find(d);
+    if (l && l->weight) return fmt::format("p.value + {}", l->weight_at);
+    return "w_" + d.name;
+}
+std::string LearnRender::bias_ptr(const Dense& d) const {
+    const LearnLayer* l = plan_.find(d);
+    if (l && l->bias) return fmt::format("p.value + {}", l->bias_at);
+    return "b_" + d.name;
+}
+std::string LearnRender::grad_ptr(const Dense& d, bool weight, const std::string& g, std::size_t base) const {
+    const LearnLayer* l = plan_.find(d);
+    if (!l || (weight ? !l->weight : !l->bias)) return "nullptr";
+    return fmt::format("{} + {}", g, (weight ? l->weight_at : l->bias_at) - base);
+}
+
+// ---- dense kernels -------------------------------------------------------------------
+
+// W(r, c) of a layer: the parameter block holds it row by row; flash holds a
+// frozen layer interleaved in blocks of kDenseBlockRows (compiler/emit/weights.cpp).
+struct RowAddr {
+    std::string base;   // pointer to W(r, 0) for the row variable `r`
+    std::string step;   // distance between W(r, c) and W(r, c + 1)
+};
+
+RowAddr row_addr(const Dense& d, bool learnable) {
+    const int C = d.in_total();
+    const int R = kDenseBlockRows;
+    const int blocked = learnable ? 0 : d.out / R * R;
+    if (blocked == 0) return {fmt::format("W + r * {}", C), "1"};
+    if (blocked == d.out) return {fmt::format("W + r / {0} * {1} + r % {0}", R, R * C), fmt::format("{}", R)};
+    return {fmt::format("(r < {2} ? W + r / {0} * {1} + r % {0} : W + r * {3})", R, R * C, blocked, C),
+            fmt::format("(r < {} ? {} : 1)", blocked, R)};
+}
+
+std::string LearnRender::render_dense_forward(const Dense& d) {
+    const LearnLayer* l = plan_.find(d);
+    const RowAddr ra = row_addr(d, l && l->weight);
+    std::string o;
+    o += fmt::format("// {}: z = W x{} + b, y = {}(z), recorded for the reverse pass\n", d.name,
+                     d.time_input ? " (t last)" : "", activation_name(d.act));
+    o += fmt::format("void lfwd_{}(const real* W, {}const real* x, {}real* z, real* y) noexcept {{\n", d.name,
+                     d.has_bias ? "const real* B, " : "", d.time_input ? "real t, " : "");
+    o += fmt::format("    for (std::size_t r = 0; r < {}; ++r) {{\n", d.out);
+    o += fmt::format("        const real* const wr = {};\n", ra.base);
+    o += fmt::format("        const std::size_t s = {};\n", ra.step);
+    o += fmt::format("        real acc = {};\n", L(0));
+    o += fmt::format("        for (std::size_t c = 0; c < {}; ++c) acc += wr[c * s] * x[c];\n", d.in);
+    if (d.time_input) o += fmt::format("        acc += wr[{} * s] * t;\n", d.in);
+    if (d.has_bias) o += "        acc += B[r];\n";
+    o += "        z[r] = acc;\n";
+    o += fmt::format("        y[r] = {};\n", apply_activation(e_, d, "acc"));
+    o += "    }\n";
+    if (d.act == Activation::softmax) {
+        o += "    real top = y[0];\n";
+        o += fmt::format("    for (std::size_t r = 1; r < {}; ++r)\n        if (y[r] > top) top = y[r];\n", d.out);
+        o += fmt::format("    real sum = {};\n", L(0));
+        o += fmt::format("    for (std::size_t r = 0; r < {}; ++r) {{\n", d.out);
+        o += fmt::format("        y[r] = {}(y[r] - top);\n        sum += y[r];\n    }}\n", e_.math("exp"));
+        o += fmt::format("    for (std::size_t r = 0; r < {}; ++r) y[r] = y[r] / sum;\n", d.out);
+    }
+    o += "}\n\n";
+    return o;
+}
+
+std::string derivative_call(const Emission& e, const Dense& d, const std::string& z, const std::string& y) {
+    switch (d.act) {
+    case Activation::identity:
+    case Activation::softmax: return "";
+    case Activation::leaky_relu: return fmt::format("dact_leaky_relu({}, {}, {})", z, y, e.L(d.act_param));
+    case Activation::elu: return fmt::format("dact_elu({}, {}, {})", z, y, e.L(d.act_param));
+    default: break;
+    }
+    return fmt::format("dact_{}({}, {})", activation_name(d.act), z, y);
+}
+
+std::string LearnRender::render_dense_backward(const Dense& d) {
+    const LearnLayer* l = plan_.find(d);
+    const bool lw = l && l->weight, lb = l && l->bias;
+    const RowAddr ra = row_addr(d, lw);
+    const int C = d.in_total();
+    std::string o;
+    // dL/dz from dL/dy (runtime/vjp.cpp dense_backward).
+    o += fmt::format("// {}: dL/dz from dL/dy\n", d.name);
+    o += fmt::format("void lgz_{}(const real* {}, const real* {}, const real* ybar, real* gz) noexcept {{\n", d.name,
+                     d.act == Activation::identity || d.act == Activation::softmax ? "/*z*/ " : "z",
+                     d.act == Activation::identity ? "/*y*/" : "y");
+    if (d.act == Activation::softmax) {
+        o += "    // y_i = e_i / sum e: dL/dz_i = y_i (ybar_i - ybar . y)\n";
+        o += fmt::format("    real dot = {};\n", L(0));
+        o += fmt::format("    for (std::size_t r = 0; r < {}; ++r) dot += ybar[r] * y[r];\n", d.out);
+        o += fmt::format("    for (std::size_t r = 0; r < {}; ++r) gz[r] = y[r] * (ybar[r] - dot);\n", d.out);
+    } else if (d.act == Activation::identity) {
+        o += fmt::format("    for (std::size_t r = 0; r < {}; ++r) gz[r] = ybar[r];\n", d.out);
+    } else {
+        o += fmt::format("    for (std::size_t r = 0; r < {}; ++r) gz[r] = ybar[r] * {};\n", d.out,
+                         derivative_call(e_, d, "z[r]", "y[r]"));
+    }
+    o += "}\n\n";
+    // dL/dW, dL/db added; dL/dx = W^T dL/dz (over the input columns, not t).
+    o += fmt::format("// {}: dL/dW{} added, dL/dx = W^T dL/dz when xbar is given\n", d.name, lb ? " and dL/db" : "");
+    o += fmt::format("void lbwd_{}(const real* W, const real* {}, {}const real* gz, real* xbar{}{}) noexcept {{\n",
+                     d.name, lw ? "x" : "/*x*/", d.time_input && lw ? "real t, " : (d.time_input ? "real /*t*/, " : ""),
+                     lw ? ", real* gW" : "", lb ? ", real* gB" : "");
+    if (lw) {
+        o += fmt::format("    for (std::size_t r = 0; r < {}; ++r) {{\n", d.out);
+        o += fmt::format("        for (std::size_t c = 0; c < {}; ++c) gW[r * {} + c] += gz[r] * x[c];\n", d.in, C);
+        if (d.time_input) o += fmt::format("        gW[r * {} + {}] += t * gz[r];\n", C, d.in);
+        o += "    }\n";
+    }
+    if (lb) o += fmt::format("    for (std::size_t r = 0; r < {}; ++r) gB[r] += gz[r];\n", d.out);
+    o += "    if (xbar == nullptr) return;\n";
+    o += fmt::format("    for (std::size_t c = 0; c < {}; ++c) xbar[c] = {};\n", d.in, L(0));
+    o += fmt::format("    for (std::size_t r = 0; r < {}; ++r) {{\n", d.out);
+    o += fmt::format("        const real* const wr = {};\n", ra.base);
+    o += fmt::format("        const std::size_t s = {};\n", ra.step);
+    o += fmt::format("        for (std::size_t c = 0; c < {}; ++c) xbar[c] += wr[c * s] * gz[r];\n", d.in);
+    o += "    }\n";
+    o += "}\n\n";
+    return o;
+}
+
+std::string LearnRender::render_derivatives() {
+    std::set<Activation> used;
+    for_each_dense(e_.model.blocks, [&](const Dense& d) { used.insert(d.act); });
+    std::string o = "// Derivatives of the activations, given z and y = act(z) (runtime/vjp.cpp).\n";
+    const std::string one = L(1), zero = L(0), half = L(0.5);
+    for (Activation a : used) {
+        switch (a) {
+        case Activation::identity:
+        case Activation::softmax: break;
+        case Activation::relu:
+            o += fmt::format("inline real dact_relu(real z, real /*y*/) noexcept {{ return z > {} ? {} : {}; }}\n", zero,
+                             one, zero);
+            break;
+        case Activation::leaky_relu:
+            o += fmt::format("inline real dact_leaky_relu(real z, real /*y*/, real slope) noexcept {{ return z >= {} ? "
+                             "{} : slope; }}\n",
+                             zero, one);
+            break;
+        case Activation::tanh:
+            o += fmt::format("inline real dact_tanh(real /*z*/, real y) noexcept {{ return {} - y * y; }}\n", one);
+            break;
+        case Activation::sigmoid:
+            o += fmt::format("inline real dact_sigmoid(real /*z*/, real y) noexcept {{ return y * ({} - y); }}\n", one);
+            break;
+        case Activation::softplus:
+            o += "inline real dact_softplus(real z, real /*y*/) noexcept { return act_sigmoid(z); }\n";
+            break;
+        case Activation::silu:
+            o += fmt::format("inline real dact_silu(real z, real /*y*/) noexcept {{\n"
+                             "    const real s = act_sigmoid(z);\n"
+                             "    return s * ({} + z * ({} - s));\n}}\n",
+                             one, one);
+            break;
+        case Activation::gelu:
+            // The tanh form's derivative, as runtime/vjp.cpp writes it.
+            o += fmt::format("inline real dact_gelu(real z, real /*y*/) noexcept {{\n"
+                             "    const real k = {};  // sqrt(2/pi)\n"
+                             "    const real th = act_tanh(k * (z + {} * z * z * z));\n"
+                             "    return {} * ({} + th) + {} * z * ({} - th * th) * k * ({} + {} * z * z);\n}}\n",
+                             L(0.7978845608028654), L(0.044715), half, one, half, one, one, L(3.0 * 0.044715));
+            break;
+        case Activation::elu:
+            o += fmt::format("inline real dact_elu(real z, real /*y*/, real alpha) noexcept {{ return z > {} ? {} : "
+                             "alpha * {}(z); }}\n",
+                             zero, one, e_.math("exp"));
+            break;
+        }
+    }
+    return o + "\n";
+}
+
+std::string LearnRender::render_dense_kernels() {
+    std::string o;
+    // Only the layers the learning passes run: the region's, through bodies and fields.
+    std::vector<const Dense*> layers;
+    for (std::size_t i = plan_.first_block; i < e_.model.blocks.size(); ++i) {
+        const Block& b = e_.model.blocks[i];
+        switch (b.kind) {
+        case Block::Kind::dense: layers.push_back(&b.dense); break;
+        case Block::Kind::residual: for_each_dense(b.residual.body, [&](const Dense& d) { layers.push_back(&d); }); break;
+        case Block::Kind::continuous:
+            for_each_dense(b.continuous.field, [&](const Dense& d) { layers.push_back(&d); });
+            break;
+        }
+    }
+    for (const Dense* d : layers) o += render_dense_forward(*d) + render_dense_backward(*d);
+    return o;
+}
+
+// ---- chains ----------------------------------------------------------------------------
+
+void LearnRender::fwd_chain(std::string& o, const LChain& c, const std::string& t, const std::string& pad, bool top) {
+    for (const LNode& nd : c.nodes) {
+        const Block& b = *nd.b;
+        switch (b.kind) {
+        case Block::Kind::dense: {
+            const Dense& d = b.dense;
+            o += fmt::format("{}lfwd_{}({}, {}{}, {}{}, {});\n", pad, d.name, weight_ptr(d),
+                             d.has_bias ? bias_ptr(d) + ", " : "", nd.x, d.time_input ? t + ", " : "", W(nd.z), W(nd.y));
+            break;
+        }
+        case Block::Kind::residual: {
+            o += fmt::format("{}// residual {}: y = x + g(x)\n", pad, b.residual.name);
+            fwd_chain(o, nd.body, t, pad, false);
+            const std::string g = nd.body.nodes.empty() ? nd.x : W(nd.body.nodes.back().y);
+            o += fmt::format("{}for (std::size_t i = 0; i < {}; ++i) w[{} + i] = ({})[i] + ({})[i];\n", pad, nd.out, nd.y,
+                             g, nd.x);
+            break;
+        }
+        case Block::Kind::continuous: fwd_continuous(o, nd, pad); break;
+        }
+        if (top)
+            o += fmt::format("{}if (!all_finite({}, {})) return learn_result::state_not_finite;\n", pad, W(nd.y), nd.out);
+    }
+}
+
+void LearnRender::bwd_chain(std::string& o, const LChain& c, const std::string& ybar, const std::string& xbar,
+                            const std::string& g, std::size_t base, const std::string& t, const std::string& pad,
+                            bool top) {
+    std::string cur = ybar;
+    int flip = 0;
+    for (std::size_t i = c.nodes.size(); i-- > 0;) {
+        const LNode& nd = c.nodes[i];
+        const Block& b = *nd.b;
+        std::string dst = i == 0 ? xbar : W(c.bar[flip]);
+        if (i > 0 && dst == cur) dst = W(c.bar[flip ^ 1]);
+        switch (b.kind) {
+        case Block::Kind::dense: {
+            const Dense& d = b.dense;
+            const LearnLayer* l = plan_.find(d);
+            const bool head_fused = top && i + 1 == c.nodes.size() && plan_.loss == LearnLoss::cross_entropy;
+            if (head_fused)
+                o += fmt::format("{0}if (head_gz) {{\n{0}    for (std::size_t r = 0; r < {1}; ++r) w[{2} + r] = ({3})[r];\n"
+                                 "{0}}} else {{\n{0}    lgz_{4}({5}, {6}, {3}, {7});\n{0}}}\n",
+                                 pad, d.out, gz_, cur, d.name, W(nd.z), W(nd.y), W(gz_));
+            else
+                o += fmt::format("{}lgz_{}({}, {}, {}, {});\n", pad, d.name, W(nd.z), W(nd.y), cur, W(gz_));
+            std::string args = fmt::format("{}, {}, ", weight_ptr(d), nd.x);
+            if (d.time_input) args += t + ", ";
+            args += fmt::format("{}, {}", W(gz_), dst.empty() ? "nullptr" : dst);
+            if (l && l->weight) args += ", " + grad_ptr(d, true, g, base);
+            if (l && l->bias) args += ", " + grad_ptr(d, false, g, base);
+            o += fmt::format("{}lbwd_{}({});\n", pad, d.name, args);
+            break;
+        }
+        case Block::Kind::residual: {
+            o += fmt::format("{}// residual {}: dL/dx = dL/dy + dL/dg's input\n", pad, b.residual.name);
+            bwd_chain(o, nd.body, cur, W(nd.gbar), g, base, t, pad, false);
+            if (!dst.empty())
+                o += fmt::format("{}for (std::size_t i = 0; i < {}; ++i) ({})[i] = ({})[i] + w[{} + i];\n", pad, nd.in,
+                                 dst, cur, nd.gbar);
+            break;
+        }
+        case Block::Kind::continuous: bwd_continuous(o, nd, cur, dst, pad); break;
+        }
+        if (dst.empty()) break;
+        cur = dst;
+        flip ^= 1;
+    }
+}
+
+// ---- continuous blocks ------------------------------------------------------------------
+
+std::string LearnRender::render_fields() {
+    std::string o;
+    for (const LNode& nd : region_.nodes) {
+        if (nd.b->kind != Block::Kind::continuous) continue;
+        const Continuous& c = nd.b->continuous;
+        bool uses_t = false;
+        for_each_dense(c.field, [&](const Dense& d) { uses_t = uses_t || d.time_input; });
+        const std::string tp = uses_t ? "real t" : "real /*t*/";
+        const std::string out_y = nd.body.nodes.empty() ? "x" : W(nd.body.nodes.back().y);
+        o += fmt::format("// The field of {}, recorded: dx = f(x, t).\n", c.name);
+        o += fmt::format("void lfield_{}(const parameters& p, real* w, {}, const real* x, real* dx, counters& count) "
+                         "noexcept {{\n",
+                         c.name, tp);
+        o += "    static_cast<void>(p);\n";
+        o += "    ++count.field_evals;\n";
+        fwd_chain(o, nd.body, "t", "    ", false);
+        o += fmt::format("    for (std::size_t i = 0; i < {}; ++i) dx[i] = ({})[i];\n}}\n\n", nd.n, out_y);
+        o += fmt::format("// a^T df/dx into xbar and a^T df/dtheta added into g (the field's learnable values),\n"
+                         "// at (x, t), from one recorded evaluation; value gets f(x, t) when given.\n");
+        o += fmt::format("void lvjp_{}(const parameters& p, real* w, {}, const real* x, const real* a, real* xbar, "
+                         "real* g, real* value, counters& count) noexcept {{\n",
+                         c.name, tp);
+        o += "    static_cast<void>(g);\n";
+        o += fmt::format("    lfield_{}(p, w, {}, x, value != nullptr ? value : w + {}, count);\n", c.name,
+                         uses_t ? "t" : L(0), nd.body.bar[0]);
+        bwd_chain(o, nd.body, "a", "xbar", "g", nd.fbase, "t", "    ", false);
+        o += "}\n\n";
+    }
+    return o;
+}
+
+// Sums y + h * (w_1 k_1 + ...) over the non-zero weights, as runtime/integrate.cpp.
+std::string rk_sum(const std::vector<std::pair<std::string, std::string>>& terms) {
+    std::string s;
+    for (const auto& [wgt, k] : terms) {
+        if (!s.empty()) s += " + ";
+        s += wgt + " * " + k;
+    }
+    return s;
+}
+
+void LearnRender::fwd_continuous(std::string& o, const LNode& nd, const std::string& pad) {
+    const Continuous& c = nd.b->continuous;
+    const Tableau& tb = *find_tableau(c.solver.method);
+    const std::size_t s = static_cast<std::size_t>(tb.stages);
+    const std::size_t n = nd.n;
+    const bool steps = plan_.way == LearnSpec::Way::steps;
+    const std::string P = pad + "    ";
+    o += fmt::format("{}{{  // continuous {}: {} ({}), {} steps{}\n", pad, c.name, tb.title, tb.key, c.solver.steps,
+                     steps ? ", the state kept at the start of every step" : "");
+    o += fmt::format("{}real* const y = w + {};\n", P, nd.y);
+    o += fmt::format("{}for (std::size_t i = 0; i < {}; ++i) y[i] = ({})[i];\n", P, c.width, nd.x);
+    if (c.augment > 0) o += fmt::format("{}for (std::size_t i = {}; i < {}; ++i) y[i] = {};\n", P, c.width, n, L(0));
+    o += fmt::format("{}const real h = {};\n", P, L((c.t1 - c.t0) / c.solver.steps));
+    o += fmt::format("{}for (std::uint32_t m = 0; m < {}u; ++m) {{\n", P, c.solver.steps);
+    const std::string Q = P + "    ";
+    o += fmt::format("{}const real t = {} + static_cast<real>(m) * h;\n", Q, L(c.t0));
+    if (steps) o += fmt::format("{}for (std::size_t i = 0; i < {}; ++i) w[{} + m * {} + i] = y[i];\n", Q, n, nd.states, n);
+    for (std::size_t i = 0; i < s; ++i) {
+        std::vector<std::pair<std::string, std::string>> terms;
+        for (std::size_t j = 0; j < i; ++j) {
+            const double a = tb.a_at(static_cast<int>(i), static_cast<int>(j));
+            if (a != 0.0) terms.push_back({L(a), fmt::format("w[{} + j]", nd.k + j * n)});
+        }
+        std::string x = "y";
+        if (!terms.empty()) {
+            o += fmt::format("{}for (std::size_t j = 0; j < {}; ++j) w[{} + j] = y[j] + h * ({});\n", Q, n,
+                             nd.arg + (steps ? (i - 1) * n : 0), rk_sum(terms));
+            x = W(nd.arg + (steps ? (i - 1) * n : 0));
+        }
+        o += fmt::format("{}lfield_{}(p, w, t + {} * h, {}, {}, ctx.count);\n", Q, c.name, L(tb.c[i].value), x,
+                         W(nd.k + i * n));
+    }
+    std::vector<std::pair<std::string, std::string>> terms;
+    for (std::size_t i = 0; i < s; ++i)
+        if (tb.b[i].value != 0.0) terms.push_back({L(tb.b[i].value), fmt::format("w[{} + j]", nd.k + i * n)});
+    o += fmt::format("{}for (std::size_t j = 0; j < {}; ++j) y[j] = y[j] + h * ({});\n", Q, n, rk_sum(terms));
+    o += fmt::format("{}++ctx.count.steps_accepted;\n", Q);
+    o += fmt::format("{}if (!all_finite(y, {})) return learn_result::state_not_finite;\n", Q, n);
+    o += fmt::format("{}}}\n{}}}\n", P, pad);
+}
+
+void LearnRender::bwd_continuous(std::string& o, const LNode& nd, const std::string& ybar, const std::string& xbar,
+                                 const std::string& pad) {
+    const Continuous& c = nd.b->continuous;
+    const Tableau& tb = *find_tableau(c.solver.method);
+    const std::size_t s = static_cast<std::size_t>(tb.stages);
+    const std::size_t n = nd.n;
+    const int N = c.solver.steps;
+    const std::string P = pad + "    ";
+    const std::string Q = P + "    ";
+    const std::string gfield = nd.fcount > 0 ? fmt::format("g + {}", nd.fbase) : "nullptr";
+    if (plan_.way == LearnSpec::Way::steps) {
+        // runtime/backprop.cpp backprop_steps, step by step from the last.
+        o += fmt::format("{}{{  // continuous {}: back through its {} steps\n", pad, c.name, N);
+        o += fmt::format("{}real* const yb = w + {};\n", P, nd.ybar);
+        o += fmt::format("{}for (std::size_t i = 0; i < {}; ++i) yb[i] = ({})[i];\n", P, n, ybar);
+        o += fmt::format("{}const real h = {};\n", P, L((c.t1 - c.t0) / N));
+        o += fmt::format("{}for (std::uint32_t m = {}u; m-- > 0u;) {{\n", P, N);
+        o += fmt::format("{}const real t = {} + static_cast<real>(m) * h;\n", Q, L(c.t0));
+        o += fmt::format("{}const real* const y = w + {} + m * {};\n", Q, nd.states, n);
+        // The step's stage arguments again (stage 1's is y).
+        std::vector<std::string> args(s);
+        for (std::size_t i = 0; i < s; ++i) {
+            std::vector<std::pair<std::string, std::string>> terms;
+            for (std::size_t j = 0; j < i; ++j) {
+                const double a = tb.a_at(static_cast<int>(i), static_cast<int>(j));
+                if (a != 0.0) terms.push_back({L(a), fmt::format("w[{} + j]", nd.k + j * n)});
+            }
+            args[i] = "y";
+            if (!terms.empty()) {
+                o += fmt::format("{}for (std::size_t j = 0; j < {}; ++j) w[{} + j] = y[j] + h * ({});\n", Q, n,
+                                 nd.arg + (i - 1) * n, rk_sum(terms));
+                args[i] = W(nd.arg + (i - 1) * n);
+            }
+            // The last stage's derivative feeds nothing but y_new: not needed again.
+            if (i + 1 < s)
+                o += fmt::format("{}lfield_{}(p, w, t + {} * h, {}, {}, ctx.count);\n", Q, c.name, L(tb.c[i].value),
+                                 args[i], W(nd.k + i * n));
+        }
+        for (std::size_t i = 0; i < s; ++i)
+            o += fmt::format("{}for (std::size_t j = 0; j < {}; ++j) w[{} + j] = (h * {}) * yb[j];\n", Q, n,
+                             nd.kbar + i * n, L(tb.b[i].value));
+        o += fmt::format("{}for (std::size_t j = 0; j < {}; ++j) w[{} + j] = yb[j];\n", Q, n, nd.ynb);
+        for (std::size_t i = s; i-- > 0;) {
+            bool live = tb.b[i].value != 0.0;
+            for (std::size_t l = i + 1; l < s; ++l) live = live || tb.a_at(static_cast<int>(l), static_cast<int>(i)) != 0.0;
+            if (!live) continue;
+            o += fmt::format("{}lvjp_{}(p, w, t + {} * h, {}, {}, {}, {}, nullptr, ctx.count);\n", Q, c.name,
+                             L(tb.c[i].value), args[i], W(nd.kbar + i * n), W(nd.argbar), gfield);
+            o += fmt::format("{}for (std::size_t j = 0; j < {}; ++j) w[{} + j] += w[{} + j];\n", Q, n, nd.ynb, nd.argbar);
+            for (std::size_t j = 0; j < i; ++j) {
+                const double a = tb.a_at(static_cast<int>(i), static_cast<int>(j));
+                if (a != 0.0)
+                    o += fmt::format("{}for (std::size_t q = 0; q < {}; ++q) w[{} + q] += (h * {}) * w[{} + q];\n", Q, n,
+                                     nd.kbar + j * n, L(a), nd.argbar);
+            }
+        }
+        o += fmt::format("{}for (std::size_t j = 0; j < {}; ++j) yb[j] = w[{} + j];\n", Q, n, nd.ynb);
+        o += fmt::format("{}}}\n", P);
+        if (!xbar.empty()) o += fmt::format("{}for (std::size_t i = 0; i < {}; ++i) ({})[i] = yb[i];\n", P, c.width, xbar);
+        o += fmt::format("{}}}\n", pad);
+        return;
+    }
+    // runtime/adjoint.cpp adjoint_pass: z = [y, a, g] from t1 back to t0 with the block's
+    // own method and steps; the state is recomputed, nothing per step is kept.
+    const std::size_t m = nd.m;
+    o += fmt::format("{}{{  // continuous {}: the adjoint [y, a, g] from t = {} back to {} in {} steps\n", pad, c.name,
+                     format_double(c.t1), format_double(c.t0), N);
+    o += fmt::format("{}real* const z = w + {};\n", P, nd.az);
+    o += fmt::format("{}for (std::size_t i = 0; i < {}; ++i) z[i] = w[{} + i];\n", P, n, nd.y);
+    o += fmt::format("{}for (std::size_t i = 0; i < {}; ++i) z[{} + i] = ({})[i];\n", P, n, n, ybar);
+    if (nd.fcount > 0) o += fmt::format("{}for (std::size_t i = {}; i < {}; ++i) z[i] = {};\n", P, 2 * n, m, L(0));
+    o += fmt::format("{}const real h = {};\n", P, L((c.t0 - c.t1) / N));
+    o += fmt::format("{}for (std::uint32_t q = 0; q < {}u; ++q) {{\n", P, N);
+    o += fmt::format("{}const real t = {} + static_cast<real>(q) * h;\n", Q, L(c.t1));
+    for (std::size_t i = 0; i < s; ++i) {
+        std::vector<std::pair<std::string, std::string>> terms;
+        for (std::size_t j = 0; j < i; ++j) {
+            const double a = tb.a_at(static_cast<int>(i), static_cast<int>(j));
+            if (a != 0.0) terms.push_back({L(a), fmt::format("w[{} + j]", nd.k + j * m)});
+        }
+        std::string x = "z";
+        if (!terms.empty()) {
+            o += fmt::format("{}for (std::size_t j = 0; j < {}; ++j) w[{} + j] = z[j] + h * ({});\n", Q, m, nd.arg,
+                             rk_sum(terms));
+            x = W(nd.arg);
+        }
+        // The augmented field at (t_i, x): [f, -a^T df/dy, -a^T df/dtheta].
+        const std::size_t K = nd.k + i * m;
+        if (nd.fcount > 0)
+            o += fmt::format("{}for (std::size_t j = 0; j < {}; ++j) w[{} + j] = {};\n", Q, nd.fcount, nd.gtmp, L(0));
+        o += fmt::format("{}lvjp_{}(p, w, t + {} * h, {}, ({}) + {}, {}, {}, {}, ctx.count);\n", Q, c.name,
+                         L(tb.c[i].value), x, x, n, W(nd.ybtmp), nd.fcount > 0 ? W(nd.gtmp) : "nullptr", W(K));
+        o += fmt::format("{}for (std::size_t j = 0; j < {}; ++j) w[{} + j] = -w[{} + j];\n", Q, n, K + n, nd.ybtmp);
+        if (nd.fcount > 0)
+            o += fmt::format("{}for (std::size_t j = 0; j < {}; ++j) w[{} + j] = -w[{} + j];\n", Q, nd.fcount, K + 2 * n,
+                             nd.gtmp);
+    }
+    std::vector<std::pair<std::string, std::string>> terms;
+    for (std::size_t i = 0; i < s; ++i)
+        if (tb.b[i].value != 0.0) terms.push_back({L(tb.b[i].value), fmt::format("w[{} + j]", nd.k + i * m)});
+    o += fmt::format("{}for (std::size_t j = 0; j < {}; ++j) z[j] = z[j] + h * ({});\n", Q, m, rk_sum(terms));
+    o += fmt::format("{}if (!all_finite(z, {})) return learn_result::gradient_not_finite;\n", Q, m);
+    o += fmt::format("{}}}\n", P);
+    if (nd.fcount > 0)
+        o += fmt::format("{}for (std::size_t i = 0; i < {}; ++i) g[{} + i] += z[{} + i];\n", P, nd.fcount, nd.fbase, 2 * n);
+    if (!xbar.empty()) o += fmt::format("{}for (std::size_t i = 0; i < {}; ++i) ({})[i] = z[{} + i];\n", P, c.width, xbar, n);
+    o += fmt::format("{}}}\n", pad);
+}
+
+// ---- passes and entry points ----------------------------------------------------------------
+
+std::string LearnRender::render_prefix() {
+    if (plan_.first_block == 0) return "";
+    Chain prefix;
+    for (std::size_t i = 0; i < plan_.first_block; ++i) prefix.ops.push_back(e_.low.top.ops[i]);
+    const Slot last = prefix.ops.back().dst;
+    std::string o;
+    o += "// The blocks before the first learnable layer, as infer runs them (flash weights).\n";
+    o += "result learn_prefix(context& ctx, const real* input, real* out) noexcept {\n";
+    o += "    ctx.count = counters{0u, 0u, 0u};\n";
+    o += "    real* const work = ctx.work;\n";
+    render_chain(e_, o, prefix, "input", "out", "    ", true);
+    o += fmt::format("    for (std::size_t i = 0; i < {}; ++i) out[i] = work[{} + i];\n",
+                     prefix.ops.back().out_width, last.offset);
+    o += "    return result::ok;\n}\n\n";
+    return o;
+}
+
+std::string LearnRender::render_passes() {
+    std::string o;
+    o += "// The forward pass with its record in ctx.work; the output in the last block's buffer.\n";
+    o += "learn_result learn_forward(learn_context& ctx, const parameters& p, const real* input) noexcept {\n";
+    o += "    real* const w = ctx.work;\n";
+    o += "    static_cast<void>(p);\n";
+    o += "    ctx.count = counters{0u, 0u, 0u};\n";
+    if (plan_.first_block > 0) {
+        o += fmt::format("    const result r = learn_prefix(ctx.run, input, w + {});\n", region_in_);
+        o += "    ctx.count = ctx.run.count;\n";
+        o += "    if (r != result::ok) return static_cast<learn_result>(r);\n";
+    } else {
+        o += "    static_cast<void>(input);\n";
+    }
+    fwd_chain(o, region_, L(0), "    ", true);
+    o += "    return learn_result::ok;\n}\n\n";
+
+    o += "// The reverse pass from dL/doutput (or, with head_gz, from dL/dz of the softmax head) into g,\n";
+    o += "// after learn_forward with the same parameters and input.\n";
+    o += "learn_result learn_backward(learn_context& ctx, const parameters& p, const real* input, const real* ybar, "
+         "bool head_gz, real* g) noexcept {\n";
+    o += "    real* const w = ctx.work;\n";
+    o += "    static_cast<void>(p);\n    static_cast<void>(input);\n    static_cast<void>(head_gz);\n    static_cast<void>(g);\n";
+    bwd_chain(o, region_, "ybar", "", "g", 0, L(0), "    ", true);
+    o += "    return learn_result::ok;\n}\n\n";
+    return o;
+}
+
+std::string LearnRender::render_entries() {
+    const std::string out = W(region_.nodes.back().y);
+    std::string o;
+    // init_parameters: the shipped values, from flash, row by row.
+    o += "void init_parameters(parameters& p) noexcept {\n";
+    for (const LearnLayer& l : plan_.layers) {
+        const Dense& d = *l.dense;
+        if (l.weight) {
+            const RowAddr ra = row_addr(d, false);
+            o += fmt::format("    {{  // {}: weight {} x {}, flash interleaved -> row by row\n", d.name, d.out,
+                             d.in_total());
+            o += fmt::format("        const real* const W = w_{};\n", d.name);
+            o += fmt::format("        for (std::size_t r = 0; r < {}; ++r) {{\n", d.out);
+            o += fmt::format("            const real* const wr = {};\n", ra.base);
+            o += fmt::format("            const std::size_t s = {};\n", ra.step);
+            o += fmt::format("            for (std::size_t c = 0; c < {}; ++c) p.value[{} + r * {} + c] = wr[c * s];\n",
+                             d.in_total(), l.weight_at, d.in_total());
+            o += "        }\n    }\n";
+        }
+        if (l.bias)
+            o += fmt::format("    for (std::size_t r = 0; r < {}; ++r) p.value[{} + r] = b_{}[r];  // {}: bias\n", d.out,
+                             l.bias_at, d.name, d.name);
+    }
+    o += "}\n\n";
+
+    o += "learn_result infer(learn_context& ctx, const parameters& p, const real* input, real* output) noexcept {\n";
+    o += "    for (std::size_t i = 0; i < input_size; ++i)\n";
+    o += "        if (!std::isfinite(input[i])) return learn_result::input_not_finite;\n";
+    o += "    const learn_result r = learn_forward(ctx, p, input);\n";
+    o += "    if (r != learn_result::ok) return r;\n";
+    o += fmt::format("    for (std::size_t i = 0; i < output_size; ++i) output[i] = ctx.work[{} + i];\n",
+                     region_.nodes.back().y);
+    o += "    return learn_result::ok;\n}\n\n";
+
+    o += "learn_result gradient(learn_context& ctx, const parameters& p, const real* input, const real* target, "
+         "parameters& grad, real& loss) noexcept {\n";
+    o += "    for (std::size_t i = 0; i < input_size; ++i)\n";
+    o += "        if (!std::isfinite(input[i])) return learn_result::input_not_finite;\n";
+    o += "    for (std::size_t i = 0; i < output_size; ++i)\n";
+    o += "        if (!std::isfinite(target[i])) return learn_result::target_not_finite;\n";
+    o += "    const learn_result r = learn_forward(ctx, p, input);\n";
+    o += "    if (r != learn_result::ok) return r;\n";
+    o += "    real* const w = ctx.work;\n";
+    o += fmt::format("    const real* const y = {};\n", out);
+    o += fmt::format("    real* const ybar = w + {};\n", obar_);
+    o += fmt::format("    real sum = {};\n", L(0));
+    if (plan_.loss == LearnLoss::squared_error) {
+        o += "    // L = sum_i (y_i - target_i)^2 / 2, dL/dy = y - target\n";
+        o += "    for (std::size_t i = 0; i < output_size; ++i) {\n";
+        o += "        const real d = y[i] - target[i];\n";
+        o += "        ybar[i] = d;\n";
+        o += "        sum += d * d;\n    }\n";
+        o += fmt::format("    loss = sum / {};\n", L(2));
+    } else {
+        o += "    // L = -sum_i target_i log y_i over the softmax head; dL/dz = y sum(target) - target\n";
+        o += fmt::format("    real total = {};\n", L(0));
+        o += "    for (std::size_t i = 0; i < output_size; ++i) total += target[i];\n";
+        o += "    for (std::size_t i = 0; i < output_size; ++i) {\n";
+        o += "        ybar[i] = y[i] * total - target[i];\n";
+        o += fmt::format("        if (target[i] < {0} || target[i] > {0}) sum -= target[i] * {1}(y[i]);\n    }}\n", L(0),
+                         e_.p == Precision::float32 ? "log_kernel" : "std::log");
+        o += "    loss = sum;\n";
+    }
+    o += "    for (std::size_t i = 0; i < learnable_count; ++i) grad.value[i] = " + L(0) + ";\n";
+    o += fmt::format("    const learn_result rb = learn_backward(ctx, p, input, ybar, {}, grad.value);\n",
+                     plan_.loss == LearnLoss::cross_entropy ? "true" : "false");
+    o += "    if (rb != learn_result::ok) return rb;\n";
+    o += "    if (!all_finite(grad.value, learnable_count)) return learn_result::gradient_not_finite;\n";
+    o += "    return learn_result::ok;\n}\n\n";
+
+    o += "learn_result gradient_from(learn_context& ctx, const parameters& p, const real* input, const real* output_grad, "
+         "parameters& grad) noexcept {\n";
+    o += "    for (std::size_t i = 0; i < input_size; ++i)\n";
+    o += "        if (!std::isfinite(input[i])) return learn_result::input_not_finite;\n";
+    o += "    if (!all_finite(output_grad, output_size)) return learn_result::target_not_finite;\n";
+    o += "    const learn_result r = learn_forward(ctx, p, input);\n";
+    o += "    if (r != learn_result::ok) return r;\n";
+    o += "    for (std::size_t i = 0; i < learnable_count; ++i) grad.value[i] = " + L(0) + ";\n";
+    o += "    const learn_result rb = learn_backward(ctx, p, input, output_grad, false, grad.value);\n";
+    o += "    if (rb != learn_result::ok) return rb;\n";
+    o += "    if (!all_finite(grad.value, learnable_count)) return learn_result::gradient_not_finite;\n";
+    o += "    return learn_result::ok;\n}\n\n";
+
+    o += "learn_result learn_step(learn_context& ctx, parameters& p, const real* input, const real* target, real rate, "
+         "real clip, real& loss) noexcept {\n";
+    o += fmt::format("    if (!std::isfinite(rate) || !(rate > {0}) || !std::isfinite(clip) || clip < {0}) return "
+                     "learn_result::rate_refused;\n",
+                     L(0));
+    o += "    const learn_result r = gradient(ctx, p, input, target, ctx.grad, loss);\n";
+    o += "    if (r != learn_result::ok) return r;\n";
+    o += "    real scale = rate;\n";
+    o += fmt::format("    if (clip > {}) {{\n", L(0));
+    o += fmt::format("        real sq = {};\n", L(0));
+    o += "        for (std::size_t i = 0; i < learnable_count; ++i) sq += ctx.grad.value[i] * ctx.grad.value[i];\n";
+    o += "        const real norm = std::sqrt(sq);\n";
+    o += "        if (!std::isfinite(norm)) return learn_result::gradient_not_finite;\n";
+    o += "        if (norm > clip) scale = rate * (clip / norm);\n";
+    o += "    }\n";
+    o += "    for (std::size_t i = 0; i < learnable_count; ++i) p.value[i] -= scale * ctx.grad.value[i];\n";
+    o += "    return learn_result::ok;\n}\n\n";
+
+    o += R"(const char* learn_result_name(learn_result r) noexcept {
+    switch (r) {
+    case learn_result::ok: return "ok";
+    case learn_result::input_not_finite: return "input_not_finite";
+    case learn_result::state_not_finite: return "state_not_finite";
+    case learn_result::step_limit: return "step_limit";
+    case learn_result::step_too_small: return "step_too_small";
+    case learn_result::target_not_finite: return "target_not_finite";
+    case learn_result::gradient_not_finite: return "gradient_not_finite";
+    case learn_result::rate_refused: return "rate_refused";
+    }
+    return "unknown";
+}
+
+)";
+    return o;
+}
+
+std::string LearnRender::header() {
+    layout();
+    std::string o;
+    o += "// ---- Learning on the device ----\n";
+    o += fmt::format("// learn: {} learnable values; the gradient goes back {} continuous blocks.\n", plan_.count,
+                     plan_.way == LearnSpec::Way::steps
+                         ? "through the steps of fixed-step (exact: the derivative of the computed map; memory grows "
+                           "with the steps) of"
+                         : "by the adjoint method (memory independent of the steps; accurate to the solver's "
+                           "discretisation) through");
+    o += "// Frozen weights stay const in flash. The learnable ones live in a parameter block in RAM\n";
+    o += "// that the caller owns: init_parameters copies the shipped values into it from flash, and a\n";
+    o += "// firmware may store it and restore it as plain bytes (learnable_bytes). Offsets, in reals:\n";
+    for (const LearnLayer& l : plan_.layers) {
+        const Dense& d = *l.dense;
+        if (l.weight)
+            o += fmt::format("//   {:<24} {:>6}  weight {} x {}, row by row (W[r][c] at r*{} + c){}\n", d.name, l.weight_at,
+                             d.out, d.in_total(), d.in_total(), d.time_input ? ", t the last column" : "");
+        if (l.bias) o += fmt::format("//   {:<24} {:>6}  bias {}\n", d.name, l.bias_at, d.out);
+    }
+    o += fmt::format("inline constexpr std::size_t learnable_count = {};\n", plan_.count);
+    o += "inline constexpr std::size_t learnable_bytes = learnable_count * sizeof(real);\n";
+    for (const LearnLayer& l : plan_.layers) {
+        if (l.weight) o += fmt::format("inline constexpr std::size_t {}_weight_at = {};\n", l.dense->name, l.weight_at);
+        if (l.bias) o += fmt::format("inline constexpr std::size_t {}_bias_at = {};\n", l.dense->name, l.bias_at);
+    }
+    o += "// learn_workspace: reals in learn_context::work (the record of the forward pass, the reverse\n";
+    o += "// pass's buffers";
+    bool has_cont = false;
+    for (const LNode& nd : region_.nodes) has_cont = has_cont || nd.b->kind == Block::Kind::continuous;
+    if (has_cont)
+        o += plan_.way == LearnSpec::Way::steps ? "; grows with the steps: the state at every step is kept"
+                                                : "; independent of the steps";
+    o += ").\n";
+    o += "// One learning step (gradient or learn_step): field evaluations and dense MACs, forward and back.\n";
+    o += fmt::format("inline constexpr std::size_t learn_workspace_size = {};\n", top_);
+    o += "inline constexpr std::size_t learn_workspace_bytes = learn_workspace_size * sizeof(real);\n";
+    o += fmt::format("inline constexpr std::uint32_t learn_field_evals = {}u;\n", field_evals_);
+    o += fmt::format("inline constexpr std::uint64_t learn_macs = {}u;\n\n", macs_);
+    o += "struct parameters {\n    real value[learnable_count];\n};\n\n";
+    o += R"(// What the learning entry points return; 0 to 4 as infer's result.
+//   target_not_finite    a target (or a given dL/doutput) value is NaN or infinite.
+//   gradient_not_finite  the gradient (or the adjoint's backward state) became NaN or infinite.
+//   rate_refused         learn_step's rate is not finite or not positive, or its clip is
+//                        not finite or negative.
+// On any code but ok, learn_step leaves the parameters exactly as they were.
+enum class learn_result : std::uint8_t {
+    ok = 0, input_not_finite = 1, state_not_finite = 2, step_limit = 3, step_too_small = 4,
+    target_not_finite = 5, gradient_not_finite = 6, rate_refused = 7
+};
+
+// Everything the learning entry points write, owned by the caller: the inference
+// context for the blocks before the first learnable layer, the workspace, the
+// gradient of learn_step, and the counters of the last call.
+struct learn_context {
+    context run;
+    real work[learn_workspace_size];
+    parameters grad;
+    counters count;
+};
+
+// The shipped (flash) values of the learnable parameters.
+void init_parameters(parameters& p) noexcept;
+
+// infer with the learnable parameters from p (frozen ones from flash).
+learn_result infer(learn_context& ctx, const parameters& p, const real* input, real* output) noexcept;
+
+)";
+    if (plan_.loss == LearnLoss::squared_error)
+        o += "// The loss: L = sum_i (output_i - target_i)^2 / 2 (squared error), dL/doutput = output - target.\n";
+    else
+        o += "// The loss: L = -sum_i target_i log(output_i) (cross-entropy of the softmax head; target a\n"
+             "// probability vector), dL/dz of the head = output * sum(target) - target.\n";
+    o += R"(// gradient: runs the model on input, sets loss and grad = dL/dparameters (same layout as p).
+// grad must not be p.
+learn_result gradient(learn_context& ctx, const parameters& p, const real* input, const real* target,
+                      parameters& grad, real& loss) noexcept;
+// The same from a dL/doutput the caller gives (output_size values) instead of a loss.
+learn_result gradient_from(learn_context& ctx, const parameters& p, const real* input, const real* output_grad,
+                           parameters& grad) noexcept;
+// One plain gradient step: p -= rate * g, g = dL/dp, scaled to norm clip when its norm is
+// above clip (clip = 0: no clipping). rate must be finite and positive, clip finite and >= 0.
+learn_result learn_step(learn_context& ctx, parameters& p, const real* input, const real* target, real rate,
+                        real clip, real& loss) noexcept;
+const char* learn_result_name(learn_result r) noexcept;
+
+)";
+    return o;
+}
+
+std::string LearnRender::source() {
+    layout();
+    std::string o;
+    o += "// ---- Learning on the device ----\n\nnamespace {\n\n";
+    o += render_derivatives();
+    o += render_dense_kernels();
+    o += render_fields();
+    o += render_prefix();
+    o += render_passes();
+    o += "}  // namespace\n\n";
+    o += render_entries();
+    return o;
+}
+
+}  // namespace
+
+std::string render_learn_header(const Emission& e) { return e.opts.learn ? LearnRender(e).header() : std::string(); }
+std::string render_learn_source(const Emission& e) { return e.opts.learn ? LearnRender(e).source() : std::string(); }
+
+bool learn_needs_log(const Emission& e) { return e.opts.learn && e.opts.learn->loss == LearnLoss::cross_entropy; }
+
+std::set<Activation> learn_kernel_needs(const Emission& e) {
+    std::set<Activation> extra;
+    if (!e.opts.learn) return extra;
+    for_each_dense(e.model.blocks, [&](const Dense& d) {
+        if (d.act == Activation::softplus || d.act == Activation::silu) extra.insert(Activation::sigmoid);
+        if (d.act == Activation::gelu) extra.insert(Activation::tanh);
+    });
+    return extra;
+}
+
+}  // namespace meander::emit_detail
