@@ -32,6 +32,18 @@ struct EmittedFile {
 
 std::vector<EmittedFile> emit_model(const Model& model, const EmitOptions& opts);
 
+// What one learning step of the emitted code takes (opts.learn must be set): the
+// learnable values, the learning workspace in reals, field evaluations and dense
+// MACs per gradient, and whether the gradient goes back through a continuous block.
+struct LearnFigures {
+    std::size_t learnable_count = 0;
+    std::size_t workspace_size = 0;
+    long field_evals = 0;
+    long macs = 0;
+    bool through_continuous = false;
+};
+LearnFigures learn_figures(const Model& model, const EmitOptions& opts);
+
 // A streaming model (compiler/emit/stream.cpp): NAME.hpp and NAME.cpp with a context that
 // holds the state, reset(ctx) and observe(ctx, input, gap, output).
 std::vector<EmittedFile> emit_stream(const Model& model, const EmitOptions& opts);

@@ -265,6 +265,62 @@ EmitOptions emit_options(const LoadedModel& l, Precision p, bool c_header) {
     return o;
 }
 
+// What learns on the device: --learn overrides the description's `learn` statement,
+// --learn-by its way. Sets opts.learn; returns an exit status (0: fine).
+int resolve_learning(const LoadedModel& loaded, const std::string& model_path, const std::string& learn,
+                     const std::string& learn_by, EmitOptions& opts, Diagnostics& diags) {
+    std::optional<LearnSpec> spec = loaded.model.learn;
+    const bool from_option = !learn.empty();
+    if (from_option) {
+        spec = learn_spec_from_option(learn, learn_by, diags);
+        if (!spec) return kUsageError;
+    } else if (!learn_by.empty()) {
+        if (!spec) {
+            diags.error("--learn-by", "needs --learn or a `learn` statement in the description");
+            return kUsageError;
+        }
+        auto way = learn_spec_from_option("all", learn_by, diags);
+        if (!way) return kUsageError;
+        spec->way = way->way;
+        spec->way_written = true;
+        spec->way_loc = Loc{};
+    }
+    if (!spec) return 0;
+    opts.learn = plan_learning(loaded.model, *spec, from_option ? nullptr : &loaded.source,
+                               from_option ? std::string("--learn") : model_path, diags);
+    return opts.learn ? 0 : kModelError;
+}
+
+// The learning figures `cost` adds (the static counts of compiler/emit/learn.cpp).
+std::string render_learn_cost(const Model& model, const EmitOptions& opts, bool json) {
+    const LearnFigures f = learn_figures(model, opts);
+    const std::size_t r = opts.precision == Precision::float32 ? 4 : 8;
+    const char* way = learn_way_name(opts.learn->way);
+    if (json)
+        return fmt::format("\"learning\": {{\"way\": \"{}\", \"learnable_values\": {}, \"parameter_bytes\": {}, "
+                           "\"workspace_reals\": {}, \"workspace_bytes\": {}, \"gradient_bytes\": {}, "
+                           "\"field_evals_per_step\": {}, \"macs_per_step\": {}, \"workspace_grows_with_steps\": {}, "
+                           "\"cycles_per_step\": null}}",
+                           way, f.learnable_count, f.learnable_count * r, f.workspace_size, f.workspace_size * r,
+                           f.learnable_count * r, f.field_evals, f.macs,
+                           f.through_continuous && opts.learn->way == LearnSpec::Way::steps ? "true" : "false");
+    std::string o = fmt::format("\nlearning on the device (by {})\n", way);
+    o += fmt::format("  learnable values        {} ({} bytes of RAM in the parameter block)\n", f.learnable_count,
+                     f.learnable_count * r);
+    o += fmt::format("  learning workspace      {} reals ({} bytes of RAM{})\n", f.workspace_size, f.workspace_size * r,
+                     !f.through_continuous ? ""
+                     : opts.learn->way == LearnSpec::Way::steps
+                         ? "; grows with the step count: the state at every step is kept"
+                         : "; independent of the step count");
+    o += fmt::format("  gradient                {} bytes (learn_context::grad, for learn_step)\n", f.learnable_count * r);
+    o += fmt::format("  field evaluations       {} per learning step (forward and back)\n", f.field_evals);
+    o += fmt::format("  MACs                    {} per learning step (dense layers, forward and back)\n", f.macs);
+    if (f.through_continuous && opts.learn->way == LearnSpec::Way::adjoint)
+        o += "  gradient error          the adjoint's: it shrinks at the method's order as the step count grows\n";
+    o += "  cycles                  not measured (the emulated cores are measured for inference only)\n";
+    return o;
+}
+
 int cmd_compile(const std::string& model_path, const std::string& outdir, const std::string& precision, bool c_header,
                 const std::string& self_test, const std::string& dump, const std::string& learn,
                 const std::string& learn_by) {
@@ -277,28 +333,8 @@ int cmd_compile(const std::string& model_path, const std::string& outdir, const 
         return flush(diags), kModelError;
     }
     EmitOptions opts = emit_options(*loaded, p, c_header);
-    // What learns: --learn overrides the description's `learn` statement; --learn-by its way.
-    std::optional<LearnSpec> spec = loaded->model.learn;
-    const bool from_option = !learn.empty();
-    if (from_option) {
-        spec = learn_spec_from_option(learn, learn_by, diags);
-        if (!spec) return flush(diags), kUsageError;
-    } else if (!learn_by.empty()) {
-        if (!spec) {
-            diags.error("--learn-by", "needs --learn or a `learn` statement in the description");
-            return flush(diags), kUsageError;
-        }
-        auto way = learn_spec_from_option("all", learn_by, diags);
-        if (!way) return flush(diags), kUsageError;
-        spec->way = way->way;
-        spec->way_written = true;
-        spec->way_loc = Loc{};
-    }
-    if (spec) {
-        opts.learn = plan_learning(loaded->model, *spec, from_option ? nullptr : &loaded->source,
-                                   from_option ? std::string("--learn") : model_path, diags);
-        if (!opts.learn) return flush(diags), kModelError;
-    }
+    if (const int status = resolve_learning(*loaded, model_path, learn, learn_by, opts, diags); status != 0)
+        return flush(diags), status;
     if (!self_test.empty() && loaded->model.stream) {
         // A sequence file: each golden observation keeps its gap and where its sequence begins.
         auto rows = read_sequence_file(self_test, loaded->model.input_size, loaded->model.stream->largest_gap, diags,
@@ -444,7 +480,8 @@ int cmd_verify(const std::string& model_path, const std::string& input, const st
 }
 
 int cmd_cost(const std::string& model_path, const std::string& input, const std::string& precision,
-             const std::string& core, double cycles_per_mac, bool json, bool estimate_only) {
+             const std::string& core, double cycles_per_mac, bool json, bool estimate_only, const std::string& learn,
+             const std::string& learn_by) {
     Diagnostics diags;
     Precision p = precision_of(precision);
     auto loaded = load_model(model_path, p, diags);
@@ -455,6 +492,10 @@ int cmd_cost(const std::string& model_path, const std::string& input, const std:
     co.cycles_per_mac = cycles_per_mac;
     co.measure_cycles = !estimate_only;
     if (loaded->model.stream) {
+        if (!learn.empty() || loaded->model.learn) {
+            diags.error(model_path, "learning on the device is not emitted for streaming models yet");
+            return flush(diags), kModelError;
+        }
         // Per observation: the worst case at the largest gap, and the spread over a sequence file.
         std::vector<SequenceRow> rows;
         if (!input.empty()) {
@@ -474,10 +515,22 @@ int cmd_cost(const std::string& model_path, const std::string& input, const std:
         co.inputs = *rows;
     }
     co.emit = emit_options(*loaded, p, false);
+    EmitOptions learning = co.emit;
+    if (const int status = resolve_learning(*loaded, model_path, learn, learn_by, learning, diags); status != 0)
+        return flush(diags), status;
     auto rep = measure_cost(loaded->model, co, diags);
     flush(diags);
     if (!rep) return kModelError;
-    std::fputs((json ? render_cost_json(*rep) : render_cost_text(*rep)).c_str(), stdout);
+    std::string text = json ? render_cost_json(*rep) : render_cost_text(*rep);
+    if (learning.learn) {
+        if (json) {
+            const std::size_t close = text.rfind('}');
+            text.insert(close, ",\n  " + render_learn_cost(loaded->model, learning, true) + "\n");
+        } else {
+            text += render_learn_cost(loaded->model, learning, false);
+        }
+    }
+    std::fputs(text.c_str(), stdout);
     return 0;
 }
 
@@ -762,6 +815,8 @@ int main(int argc, char** argv) {
     cost->add_option("model", model, "description (.mnd)")->required();
     cost->add_option("--input", input, "CSV of input rows: measure field evaluations over them");
     cost->add_option("--precision", precision, "float32 (default) or float64")->check(CLI::IsMember(precisions));
+    cost->add_option("--learn", learn, "also what a learning step takes for these learnable parameters (as compile --learn)");
+    cost->add_option("--learn-by", learn_by, "steps or adjoint (as compile --learn-by)");
     cost->add_option("--core", core, "core class for the cycle estimate")
         ->check(CLI::IsMember({"cortex-m0", "cortex-m3", "cortex-m4f", "cortex-m7"}));
     cost->add_option("--cycles-per-mac", cycles_per_mac, "override the core's cycles per multiply-accumulate")
@@ -885,7 +940,7 @@ int main(int argc, char** argv) {
         if (*eval) return cmd_eval(model, input, output, stats, labels_path, keep_going);
         if (*compile) return cmd_compile(model, outdir, precision, c_header, self_test, dump, learn, learn_by);
         if (*verify) return cmd_verify(model, input, precision, tol, cxx, keep, show, boards);
-        if (*cost) return cmd_cost(model, input, precision, core, cycles_per_mac, json, estimate_only);
+        if (*cost) return cmd_cost(model, input, precision, core, cycles_per_mac, json, estimate_only, learn, learn_by);
         if (*tune)
             return cmd_tune(model, input, precision, target, methods, sweep, json, labels_path,
                             slack_opt->count() ? std::optional<double>(metric_slack) : std::nullopt, plot_path,

@@ -57,6 +57,16 @@ public:
 
     std::string header();
     std::string source();
+    LearnFigures figures() {
+        layout();
+        LearnFigures f;
+        f.learnable_count = plan_.count;
+        f.workspace_size = top_;
+        f.field_evals = field_evals_;
+        f.macs = macs_;
+        for (const LNode& nd : region_.nodes) f.through_continuous = f.through_continuous || nd.b->kind == Block::Kind::continuous;
+        return f;
+    }
 
 private:
     const Emission& e_;
@@ -1005,6 +1015,19 @@ std::string LearnRender::source() {
 }
 
 }  // namespace
+
+}  // namespace meander::emit_detail
+
+namespace meander {
+
+LearnFigures learn_figures(const Model& model, const EmitOptions& opts) {
+    const emit_detail::Emission e(model, opts);
+    return emit_detail::LearnRender(e).figures();
+}
+
+}  // namespace meander
+
+namespace meander::emit_detail {
 
 std::string render_learn_header(const Emission& e) { return e.opts.learn ? LearnRender(e).header() : std::string(); }
 std::string render_learn_source(const Emission& e) { return e.opts.learn ? LearnRender(e).source() : std::string(); }

@@ -481,6 +481,19 @@ TEST(Learn, CompileOption) {
     const std::string hpp = test::read_text(dir / "out" / "fan_balance.hpp");
     // lift 12 x 8 + 12, f1 16 x 15 + 16, f2 14 x 16 + 14
     EXPECT_NE(hpp.find("inline constexpr std::size_t learnable_count = 602;"), std::string::npos);
+    // cost states what the header states: the same plan, the same figures.
+    const auto grab = [](const std::string& text, const std::string& key) {
+        const std::size_t at = text.find(key);
+        return at == std::string::npos ? -1L : std::strtol(text.c_str() + at + key.size(), nullptr, 10);
+    };
+    const test::RunResult c = test::run(fmt::format("'{}' cost '{}' --estimate-only --learn lift,settle --learn-by adjoint",
+                                                    MEANDER_BINARY, mnd));
+    EXPECT_EQ(c.status, 0) << c.output;
+    EXPECT_EQ(grab(c.output, "learnable values        "), 602);
+    EXPECT_EQ(grab(c.output, "learning workspace      "), grab(hpp, "learn_workspace_size = "));
+    EXPECT_EQ(grab(c.output, "field evaluations       "), grab(hpp, "learn_field_evals = "));
+    EXPECT_EQ(grab(c.output, "MACs                    "), grab(hpp, "learn_macs = "));
+    EXPECT_NE(c.output.find("independent of the step count"), std::string::npos) << c.output;
 }
 
 }  // namespace
