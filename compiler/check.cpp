@@ -18,6 +18,7 @@
 #include "../runtime/stream.hpp"
 #include "../runtime/tableau.hpp"
 #include "format.hpp"
+#include "learn.hpp"
 
 namespace meander {
 
@@ -705,6 +706,8 @@ bool check_model(const Model& model, const Source& src, const CheckOptions& opts
     Checker c{model, src, opts, diags, {}, nullptr};
     c.run();
     check_vectors(model, src, diags);
+    // The `learn` statement's names and ways, against the model (compiler/learn.cpp).
+    if (model.learn && diags.error_count() == before) plan_learning(model, *model.learn, &src, src.path, diags);
     return diags.error_count() == before;
 }
 

@@ -87,7 +87,7 @@ namespace {
 namespace pegtl = tao::pegtl;
 namespace g = grammar;
 
-enum class Kind { model, weights, ignore, input, output, dense, augment, numbered, layout, solver, trained, header, close, state, gated, merge };
+enum class Kind { model, weights, ignore, learn, input, output, dense, augment, numbered, layout, solver, trained, header, close, state, gated, merge };
 
 struct Record {
     Kind kind;
@@ -117,6 +117,7 @@ template <> struct layout_action<g::output_line> : record_action<Kind::output> {
 template <> struct layout_action<g::dense_line> : record_action<Kind::dense> {};
 template <> struct layout_action<g::augment_line> : record_action<Kind::augment> {};
 template <> struct layout_action<g::ignore_line> : record_action<Kind::ignore> {};
+template <> struct layout_action<g::learn_line> : record_action<Kind::learn> {};
 template <> struct layout_action<g::numbered_line> : record_action<Kind::numbered> {};
 template <> struct layout_action<g::layout_line> : record_action<Kind::layout> {};
 template <> struct layout_action<g::solver_line> : record_action<Kind::solver> {};
@@ -293,6 +294,21 @@ private:
             case Kind::ignore: {
                 std::string out = "ignore";
                 for (std::size_t i = 0; i < model_.ignore.size(); ++i) out += (i ? ", " : " ") + quoted(model_.ignore[i]);
+                return out;
+            }
+            case Kind::learn: {
+                const LearnSpec& l = *model_.learn;
+                std::string out = "learn ";
+                switch (l.what) {
+                case LearnSpec::What::biases: out += "biases"; break;
+                case LearnSpec::What::head: out += "head"; break;
+                case LearnSpec::What::all: out += "all"; break;
+                case LearnSpec::What::layers:
+                    out += "layers";
+                    for (std::size_t i = 0; i < l.layers.size(); ++i) out += (i ? ", " : " ") + l.layers[i];
+                    break;
+                }
+                if (l.way_written) out += l.way == LearnSpec::Way::adjoint ? " by adjoint" : " by steps";
                 return out;
             }
             case Kind::numbered: return "numbered " + quoted(c.tensors->numbered);

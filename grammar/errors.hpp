@@ -13,9 +13,12 @@ inline constexpr const char* error_message = nullptr;
 
 // Statements
 template<> inline constexpr const char* error_message< model_first > = "expected 'model NAME' as the first statement";
-template<> inline constexpr const char* error_message< top_statement > = "expected a statement: weights, ignore, input, state, dense, residual, continuous, blend, gated, merge or output";
+template<> inline constexpr const char* error_message< top_statement > = "expected a statement: weights, ignore, learn, input, state, dense, residual, continuous, blend, gated, merge or output";
 template<> inline constexpr const char* error_message< body_statement > = "expected a statement inside the block: dense, residual, augment, numbered, layout, solver, trained-with or '}'";
 template<> inline constexpr const char* error_message< statement_end > = "expected the end of the statement";
+template<> inline constexpr const char* error_message< learn_what > = "expected what learns after 'learn': biases, head, all, or layers NAME, NAME ...";
+template<> inline constexpr const char* error_message< learn_layer > = "expected the name of a layer or block to learn";
+template<> inline constexpr const char* error_message< learn_way > = "expected how the gradient goes back after 'by': steps or adjoint";
 template<> inline constexpr const char* error_message< dense_end > = "expected ',' before another layer option, or the end of the layer";
 template<> inline constexpr const char* error_message< ignore_end > = "expected ',' before another pattern, or the end of the ignore statement";
 template<> inline constexpr const char* error_message< layout_end > = "expected ',' before another layout, or the end of the layout statement";

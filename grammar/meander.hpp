@@ -100,11 +100,15 @@ struct kw_classes : seq< TAO_PEGTL_STRING( "classes" ), word_end > {};
 struct kw_standardised : seq< TAO_PEGTL_STRING( "standardised" ), word_end > {};
 struct kw_mean : seq< TAO_PEGTL_STRING( "mean" ), word_end > {};
 struct kw_scale : seq< TAO_PEGTL_STRING( "scale" ), word_end > {};
+// Learning on the device
+struct kw_learn : seq< TAO_PEGTL_STRING( "learn" ), word_end > {};
+struct kw_by : seq< TAO_PEGTL_STRING( "by" ), word_end > {};
+struct kw_layers : seq< TAO_PEGTL_STRING( "layers" ), word_end > {};
 
 // Words that begin a statement; skipping after an error stops before them.
-struct statement_keyword : sor< kw_model, kw_weights, kw_ignore, kw_input, kw_output, kw_dense, kw_residual, kw_continuous, kw_augment, kw_numbered, kw_layout, kw_solver, kw_trained_with, kw_state, kw_gated, kw_merge, kw_blend > {};
+struct statement_keyword : sor< kw_model, kw_weights, kw_ignore, kw_learn, kw_input, kw_output, kw_dense, kw_residual, kw_continuous, kw_augment, kw_numbered, kw_layout, kw_solver, kw_trained_with, kw_state, kw_gated, kw_merge, kw_blend > {};
 // Statements that cannot appear inside a block: meeting one there means a '}' is missing.
-struct top_only_keyword : sor< kw_model, kw_weights, kw_ignore, kw_input, kw_output, kw_continuous, kw_state, kw_gated, kw_merge, kw_blend > {};
+struct top_only_keyword : sor< kw_model, kw_weights, kw_ignore, kw_learn, kw_input, kw_output, kw_continuous, kw_state, kw_gated, kw_merge, kw_blend > {};
 // A statement ends at the end of its line, or where the next statement (or a '}') begins;
 // an unknown word on a later line is then reported as an unknown statement.
 struct statement_boundary : sor< eof, close_brace, statement_keyword > {};
@@ -264,8 +268,21 @@ struct merge_line : seq< kw_merge, sep, must< layer_name >, sep, must< colon >, 
 struct blend_name : identifier {};
 struct blend_block : seq< kw_blend, sep, must< blend_name >, sep, must< colon >, sep, must< block_width >, sep, must< open_brace >, sep, star< body_item >, must< close_brace > > {};
 
+// ---- learning on the device -------------------------------------------------------
+struct learn_biases : seq< TAO_PEGTL_STRING( "biases" ), word_end > {};
+struct learn_head : seq< TAO_PEGTL_STRING( "head" ), word_end > {};
+struct learn_all : seq< TAO_PEGTL_STRING( "all" ), word_end > {};
+struct learn_layer : identifier {};
+struct learn_layers : seq< kw_layers, sep, must< learn_layer >, star< sep, comma, sep, must< learn_layer > > > {};
+struct learn_what : sor< learn_biases, learn_head, learn_all, learn_layers > {};
+struct learn_steps : seq< TAO_PEGTL_STRING( "steps" ), word_end > {};
+struct learn_adjoint : seq< TAO_PEGTL_STRING( "adjoint" ), word_end > {};
+struct learn_way : sor< learn_steps, learn_adjoint > {};
+struct learn_by : seq< kw_by, sep, must< learn_way > > {};
+struct learn_line : seq< kw_learn, sep, must< learn_what >, opt< sep, learn_by >, must< statement_end > > {};
+
 // ---- the description ------------------------------------------------------------
-struct top_statement : sor< model_line, weights_line, ignore_line, input_line, output_line, dense_line, residual_block, continuous_block, augment_line, numbered_line, layout_line, solver_line, trained_line, state_line, gated_line, merge_line, blend_block > {};
+struct top_statement : sor< model_line, weights_line, ignore_line, learn_line, input_line, output_line, dense_line, residual_block, continuous_block, augment_line, numbered_line, layout_line, solver_line, trained_line, state_line, gated_line, merge_line, blend_block > {};
 struct top_attempt : must< top_statement > {};
 struct top_item : seq< not_at< eof >, sor< top_attempt, top_skip >, sep > {};
 struct description : seq< sep, must< model_first >, star< top_item >, eof > {};

@@ -52,6 +52,57 @@ template <> struct action<g::ignore_line> {
     }
 };
 
+// learn WHAT [by WAY]: which parameters the emitted code may change on the device.
+template <> struct action<g::kw_learn> {
+    template <typename Input>
+    static void apply(const Input& in, State& s) {
+        s.learn = LearnSpec{};
+        s.learn.loc = loc_of(in, s);
+    }
+};
+template <> struct action<g::learn_biases> {
+    template <typename Input>
+    static void apply(const Input&, State& s) { s.learn.what = LearnSpec::What::biases; }
+};
+template <> struct action<g::learn_head> {
+    template <typename Input>
+    static void apply(const Input&, State& s) { s.learn.what = LearnSpec::What::head; }
+};
+template <> struct action<g::learn_all> {
+    template <typename Input>
+    static void apply(const Input&, State& s) { s.learn.what = LearnSpec::What::all; }
+};
+template <> struct action<g::learn_layer> {
+    template <typename Input>
+    static void apply(const Input& in, State& s) {
+        s.learn.what = LearnSpec::What::layers;
+        s.learn.layers.push_back(in.string());
+        s.learn.layer_locs.push_back(loc_of(in, s));
+    }
+};
+template <> struct action<g::learn_way> {
+    template <typename Input>
+    static void apply(const Input& in, State& s) {
+        s.learn.way = in.string_view() == "adjoint" ? LearnSpec::Way::adjoint : LearnSpec::Way::steps;
+        s.learn.way_loc = loc_of(in, s);
+        s.learn.way_written = true;
+    }
+};
+template <> struct action<g::learn_line> {
+    template <typename Input>
+    static void apply(const Input& in, State& s) {
+        const Loc stmt = loc_of(in, s);
+        top_level_statement(s, stmt);
+        if (s.model.learn) {
+            s.error(stmt, fmt::format("a second 'learn' statement (the first is on line {}); name everything that "
+                                      "learns in one",
+                                      s.model.learn->loc.line));
+            return;
+        }
+        s.model.learn = s.learn;
+    }
+};
+
 template <> struct action<g::model_line> {
     template <typename Input>
     static void apply(const Input& in, State& s) {

@@ -72,6 +72,7 @@ struct State {
     bool layout_transposed = false, layout_time_first = false;  // of the layout statement being read
     std::vector<std::string> ignore;  // patterns of the ignore statement being read
     std::vector<Loc> ignore_locs;
+    LearnSpec learn;                  // the learn statement being read
     std::string from;
     bool act_accepted = false;      // the activation just read was taken (not a second one)
     SolverSpec spec;

@@ -324,7 +324,7 @@ const std::vector<Row> kSyntaxRows = {
      "input x[4]\n"
      "layer a: 4 -> 2\n"
      "output y[2]\n",
-     "bad.mnd:3:1: error: expected a statement: weights, ignore, input, state, dense, residual, continuous, blend, gated, merge or output\n"
+     "bad.mnd:3:1: error: expected a statement: weights, ignore, learn, input, state, dense, residual, continuous, blend, gated, merge or output\n"
      "layer a: 4 -> 2\n"
      "^\n"},
     {"unknown statement in a block",

@@ -498,3 +498,57 @@ TEST(Learn, CompileOption) {
 
 }  // namespace
 }  // namespace meander
+
+namespace meander {
+namespace {
+
+// The description's `learn` statement: parsed, checked with carets, kept by format.
+TEST(Learn, Statement) {
+    const auto dir = test::scratch_dir("learn", "statement");
+    const std::string sample = std::string(MEANDER_SOURCE_DIR) + "/samples/fan_balance/";
+    std::filesystem::copy_file(sample + "fan_balance.npz", dir / "fan_balance.npz");
+    const std::string text = test::read_text(sample + "fan_balance.mnd");
+    auto with = [&](const std::string& line) {
+        std::string t = text;
+        t.insert(t.find("input vib"), line + "\n");
+        test::write_text(dir / "m.mnd", t);
+        const int at = static_cast<int>(std::count(t.begin(), t.begin() + static_cast<long>(t.find(line)), '\n')) + 1;
+        return std::make_pair(test::run(fmt::format("'{}' check '{}'", MEANDER_BINARY, (dir / "m.mnd").string())), at);
+    };
+    auto [r, line] = with("learn layers settle, hed by adjoint");
+    EXPECT_EQ(r.status, 1);
+    EXPECT_NE(r.output.find(fmt::format("m.mnd:{}:22: error: 'learn': no layer or block named 'hed'; did you mean 'head'?", line)),
+              std::string::npos)
+        << r.output;
+    std::tie(r, line) = with("learn all by sideways");
+    EXPECT_NE(r.output.find(fmt::format("m.mnd:{}:14: error: expected how the gradient goes back after 'by': steps or adjoint", line)),
+              std::string::npos)
+        << r.output;
+    std::tie(r, line) = with("learn everything");
+    EXPECT_NE(r.output.find(fmt::format("m.mnd:{}:7: error: expected what learns after 'learn'", line)), std::string::npos)
+        << r.output;
+    std::tie(r, line) = with("learn head\nlearn biases");
+    EXPECT_NE(r.output.find("a second 'learn' statement"), std::string::npos) << r.output;
+    std::tie(r, line) = with("learn layers lift, head by adjoint");
+    EXPECT_EQ(r.status, 0) << r.output;
+    const test::RunResult f = test::run(fmt::format("'{}' format '{}'", MEANDER_BINARY, (dir / "m.mnd").string()));
+    EXPECT_NE(f.output.find("\nlearn layers lift, head by adjoint\n"), std::string::npos) << f.output;
+    const test::RunResult c = test::run(fmt::format("'{}' compile '{}' -o '{}'", MEANDER_BINARY, (dir / "m.mnd").string(),
+                                                    (dir / "out").string()));
+    EXPECT_EQ(c.status, 0) << c.output;
+    EXPECT_NE(test::read_text(dir / "out" / "fan_balance.hpp").find("lift_weight_at = 0;"), std::string::npos);
+    // An adaptive block on the way back: the caret at the way.
+    Diagnostics diags;
+    Source src("m.mnd", "model m\nlearn all by steps\n");
+    Model m = fan_balance();
+    m.blocks[1].continuous.solver = test::adaptive_solver("dormand-prince", 1e-3, 1e-4, 24);
+    LearnSpec s = spec_of(LearnSpec::What::all);
+    s.loc = Loc{2, 1};
+    s.way_loc = Loc{2, 14};
+    s.way_written = true;
+    EXPECT_FALSE(plan_learning(m, s, &src, "m.mnd", diags).has_value());
+    EXPECT_NE(diags.render().find("m.mnd:2:14: error: 'learn ... by steps'"), std::string::npos) << diags.render();
+}
+
+}  // namespace
+}  // namespace meander
