@@ -75,7 +75,9 @@ private:
     std::size_t gz_ = 0;            // dL/dz of one dense layer
     std::size_t widest_out_ = 1;
     std::size_t region_in_ = 0;     // the region's input when the prefix computes it
-    std::size_t obar_ = 0;          // dL/doutput
+    std::size_t obar_ = 0;          // dL/doutput (of the network's last layer when the output is standardised)
+    std::size_t std_in_ = 0;        // the standardised input, when the input is standardised
+    std::size_t std_out_ = 0;       // the output, when it is standardised (the last layer's y * scale + mean)
     LChain region_;
     long field_evals_ = 0;          // per learning step
     long macs_ = 0;                 // per learning step
@@ -208,6 +210,11 @@ void LearnRender::layout() {
     const Model& m = e_.model;
     std::string in = "input";
     int width = m.input_size;
+    // infer's order (compiler/emit/entry.cpp): the input standardised before the first layer.
+    if (m.input_info.standardised) {
+        std_in_ = take(static_cast<std::size_t>(m.input_size));
+        in = W(std_in_);
+    }
     if (plan_.first_block > 0) {
         width = block_out_width(m.blocks[plan_.first_block - 1]);
         region_in_ = take(static_cast<std::size_t>(width));
@@ -245,6 +252,7 @@ void LearnRender::layout() {
         region_.bar[1] = take(widest);
     }
     obar_ = take(static_cast<std::size_t>(m.output_size));
+    if (m.output_info.standardised) std_out_ = take(static_cast<std::size_t>(m.output_size));
     gz_ = take(widest_out_);
 
     // Work per learning step: the prefix as inference, the region forward and back.
@@ -307,7 +315,8 @@ std::string LearnRender::grad_ptr(const Dense& d, bool weight, const std::string
 // ---- dense kernels -------------------------------------------------------------------
 
 // W(r, c) of a layer: the parameter block holds it row by row; flash holds a
-// frozen layer interleaved in blocks of kDenseBlockRows (compiler/emit/weights.cpp).
+// frozen layer in blocks of kDenseBlockRows rows, interleaved within a block,
+// the rows left over a last block interleaved alike (compiler/emit/weights.cpp).
 struct RowAddr {
     std::string base;   // pointer to W(r, 0) for the row variable `r`
     std::string step;   // distance between W(r, c) and W(r, c + 1)
@@ -316,11 +325,13 @@ struct RowAddr {
 RowAddr row_addr(const Dense& d, bool learnable) {
     const int C = d.in_total();
     const int R = kDenseBlockRows;
-    const int blocked = learnable ? 0 : d.out / R * R;
-    if (blocked == 0) return {fmt::format("W + r * {}", C), "1"};
-    if (blocked == d.out) return {fmt::format("W + r / {0} * {1} + r % {0}", R, R * C), fmt::format("{}", R)};
-    return {fmt::format("(r < {2} ? W + r / {0} * {1} + r % {0} : W + r * {3})", R, R * C, blocked, C),
-            fmt::format("(r < {} ? {} : 1)", blocked, R)};
+    if (learnable) return {fmt::format("W + r * {}", C), "1"};
+    const int blocked = d.out / R * R;
+    const int rest = d.out - blocked;
+    if (blocked == 0) return {"W + r", fmt::format("{}", rest)};
+    if (rest == 0) return {fmt::format("W + r / {0} * {1} + r % {0}", R, R * C), fmt::format("{}", R)};
+    return {fmt::format("(r < {2} ? W + r / {0} * {1} + r % {0} : W + {3} + (r - {2}))", R, R * C, blocked, blocked * C),
+            fmt::format("(r < {} ? {} : {})", blocked, R, rest)};
 }
 
 std::string LearnRender::render_dense_forward(const Dense& d) {
@@ -765,19 +776,35 @@ std::string LearnRender::render_prefix() {
 
 std::string LearnRender::render_passes() {
     std::string o;
-    o += "// The forward pass with its record in ctx.work; the output in the last block's buffer.\n";
+    const Model& m = e_.model;
+    o += "// The forward pass with its record in ctx.work; the output in the last block's buffer\n";
+    o += "// (the standardised output's buffer when the output is standardised).\n";
     o += "learn_result learn_forward(learn_context& ctx, const parameters& p, const real* input) noexcept {\n";
     o += "    real* const w = ctx.work;\n";
     o += "    static_cast<void>(p);\n";
     o += "    ctx.count = counters{0u, 0u, 0u};\n";
+    // Standardisation as infer does it (compiler/emit/entry.cpp), the same operations in the same order.
+    if (m.input_info.standardised) {
+        o += fmt::format("    for (std::size_t i = 0; i < input_size; ++i) w[{} + i] = (input[i] - input_mean[i]) / "
+                         "input_scale[i];\n",
+                         std_in_);
+        o += fmt::format("    if (!all_finite({}, input_size)) return learn_result::state_not_finite;\n", W(std_in_));
+    }
+    const std::string net_in = m.input_info.standardised ? W(std_in_) : std::string("input");
     if (plan_.first_block > 0) {
-        o += fmt::format("    const result r = learn_prefix(ctx.run, input, w + {});\n", region_in_);
+        o += fmt::format("    const result r = learn_prefix(ctx.run, {}, w + {});\n", net_in, region_in_);
         o += "    ctx.count = ctx.run.count;\n";
         o += "    if (r != result::ok) return static_cast<learn_result>(r);\n";
     } else {
         o += "    static_cast<void>(input);\n";
     }
     fwd_chain(o, region_, L(0), "    ", true);
+    if (m.output_info.standardised) {
+        o += fmt::format("    for (std::size_t i = 0; i < output_size; ++i) w[{} + i] = w[{} + i] * output_scale[i] + "
+                         "output_mean[i];\n",
+                         std_out_, region_.nodes.back().y);
+        o += fmt::format("    if (!all_finite({}, output_size)) return learn_result::state_not_finite;\n", W(std_out_));
+    }
     o += "    return learn_result::ok;\n}\n\n";
 
     o += "// The reverse pass from dL/doutput (or, with head_gz, from dL/dz of the softmax head) into g,\n";
@@ -792,7 +819,9 @@ std::string LearnRender::render_passes() {
 }
 
 std::string LearnRender::render_entries() {
-    const std::string out = W(region_.nodes.back().y);
+    const bool std_out = e_.model.output_info.standardised.has_value();
+    const std::size_t out_at = std_out ? std_out_ : region_.nodes.back().y;
+    const std::string out = W(out_at);
     std::string o;
     // init_parameters: the shipped values, from flash, row by row.
     o += "void init_parameters(parameters& p) noexcept {\n";
@@ -821,8 +850,7 @@ std::string LearnRender::render_entries() {
     o += "        if (!std::isfinite(input[i])) return learn_result::input_not_finite;\n";
     o += "    const learn_result r = learn_forward(ctx, p, input);\n";
     o += "    if (r != learn_result::ok) return r;\n";
-    o += fmt::format("    for (std::size_t i = 0; i < output_size; ++i) output[i] = ctx.work[{} + i];\n",
-                     region_.nodes.back().y);
+    o += fmt::format("    for (std::size_t i = 0; i < output_size; ++i) output[i] = ctx.work[{} + i];\n", out_at);
     o += "    return learn_result::ok;\n}\n\n";
 
     o += "learn_result gradient(learn_context& ctx, const parameters& p, const real* input, const real* target, "
@@ -839,9 +867,10 @@ std::string LearnRender::render_entries() {
     o += fmt::format("    real sum = {};\n", L(0));
     if (plan_.loss == LearnLoss::squared_error) {
         o += "    // L = sum_i (y_i - target_i)^2 / 2, dL/dy = y - target\n";
+        if (std_out) o += "    // (y = the last layer's output * scale + mean: its dL/d = (y - target) * scale)\n";
         o += "    for (std::size_t i = 0; i < output_size; ++i) {\n";
         o += "        const real d = y[i] - target[i];\n";
-        o += "        ybar[i] = d;\n";
+        o += std_out ? "        ybar[i] = d * output_scale[i];\n" : "        ybar[i] = d;\n";
         o += "        sum += d * d;\n    }\n";
         o += fmt::format("    loss = sum / {};\n", L(2));
     } else {
@@ -869,7 +898,14 @@ std::string LearnRender::render_entries() {
     o += "    const learn_result r = learn_forward(ctx, p, input);\n";
     o += "    if (r != learn_result::ok) return r;\n";
     o += "    for (std::size_t i = 0; i < learnable_count; ++i) grad.value[i] = " + L(0) + ";\n";
-    o += "    const learn_result rb = learn_backward(ctx, p, input, output_grad, false, grad.value);\n";
+    if (std_out) {
+        o += "    // dL/d(the last layer's output) = dL/doutput * scale\n";
+        o += fmt::format("    real* const ybar = ctx.work + {};\n", obar_);
+        o += "    for (std::size_t i = 0; i < output_size; ++i) ybar[i] = output_grad[i] * output_scale[i];\n";
+        o += "    const learn_result rb = learn_backward(ctx, p, input, ybar, false, grad.value);\n";
+    } else {
+        o += "    const learn_result rb = learn_backward(ctx, p, input, output_grad, false, grad.value);\n";
+    }
     o += "    if (rb != learn_result::ok) return rb;\n";
     o += "    if (!all_finite(grad.value, learnable_count)) return learn_result::gradient_not_finite;\n";
     o += "    return learn_result::ok;\n}\n\n";
@@ -930,11 +966,11 @@ std::string LearnRender::header() {
                              d.out, d.in_total(), d.in_total(), d.time_input ? ", t the last column" : "");
         if (l.bias) o += fmt::format("//   {:<24} {:>6}  bias {}\n", d.name, l.bias_at, d.out);
     }
-    o += fmt::format("inline constexpr std::size_t learnable_count = {};\n", plan_.count);
-    o += "inline constexpr std::size_t learnable_bytes = learnable_count * sizeof(real);\n";
+    o += fmt::format("constexpr std::size_t learnable_count = {};\n", plan_.count);
+    o += "constexpr std::size_t learnable_bytes = learnable_count * sizeof(real);\n";
     for (const LearnLayer& l : plan_.layers) {
-        if (l.weight) o += fmt::format("inline constexpr std::size_t {}_weight_at = {};\n", l.dense->name, l.weight_at);
-        if (l.bias) o += fmt::format("inline constexpr std::size_t {}_bias_at = {};\n", l.dense->name, l.bias_at);
+        if (l.weight) o += fmt::format("constexpr std::size_t {}_weight_at = {};\n", l.dense->name, l.weight_at);
+        if (l.bias) o += fmt::format("constexpr std::size_t {}_bias_at = {};\n", l.dense->name, l.bias_at);
     }
     o += "// learn_workspace: reals in learn_context::work (the record of the forward pass, the reverse\n";
     o += "// pass's buffers";
@@ -945,10 +981,10 @@ std::string LearnRender::header() {
                                                 : "; independent of the steps";
     o += ").\n";
     o += "// One learning step (gradient or learn_step): field evaluations and dense MACs, forward and back.\n";
-    o += fmt::format("inline constexpr std::size_t learn_workspace_size = {};\n", top_);
-    o += "inline constexpr std::size_t learn_workspace_bytes = learn_workspace_size * sizeof(real);\n";
-    o += fmt::format("inline constexpr std::uint32_t learn_field_evals = {}u;\n", field_evals_);
-    o += fmt::format("inline constexpr std::uint64_t learn_macs = {}u;\n\n", macs_);
+    o += fmt::format("constexpr std::size_t learn_workspace_size = {};\n", top_);
+    o += "constexpr std::size_t learn_workspace_bytes = learn_workspace_size * sizeof(real);\n";
+    o += fmt::format("constexpr std::uint32_t learn_field_evals = {}u;\n", field_evals_);
+    o += fmt::format("constexpr std::uint64_t learn_macs = {}u;\n\n", macs_);
     o += "struct parameters {\n    real value[learnable_count];\n};\n\n";
     o += R"(// What the learning entry points return; 0 to 4 as infer's result.
 //   target_not_finite    a target (or a given dL/doutput) value is NaN or infinite.
