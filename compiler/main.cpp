@@ -328,10 +328,6 @@ int cmd_compile(const std::string& model_path, const std::string& outdir, const 
     Precision p = precision_of(precision);
     auto loaded = load_model(model_path, p, diags);
     if (!loaded) return flush(diags), kModelError;
-    if (loaded->model.stream && c_header) {
-        diags.error(model_path, "a streaming model is compiled without --c-header (not emitted yet)");
-        return flush(diags), kModelError;
-    }
     EmitOptions opts = emit_options(*loaded, p, c_header);
     if (const int status = resolve_learning(*loaded, model_path, learn, learn_by, opts, diags); status != 0)
         return flush(diags), status;

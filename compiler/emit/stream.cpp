@@ -184,7 +184,7 @@ std::string observe_function(const Emission& e) {
     return o;
 }
 
-std::string stream_source(const Emission& e, const std::string& stamp) {
+std::string stream_source(const Emission& e, const std::string& stamp, const std::string& c_stamp) {
     const Model& m = e.model;
     const std::string M_ = e.M();
     std::string o = banner(m, e.opts, m.name + ".cpp");
@@ -221,6 +221,7 @@ std::string stream_source(const Emission& e, const std::string& stamp) {
     o += render_result_name(true);
     o += render_build_check(e.p);
     o += fmt::format("}}  // namespace {}\n", m.name);
+    if (e.opts.c_header) o += render_c_entry(e, c_stamp);
     return o;
 }
 
@@ -232,9 +233,11 @@ std::vector<EmittedFile> emit_stream(const Model& model, const EmitOptions& opts
     using namespace emit_detail;
     const Emission e(model, opts);
     const std::string hpp = stream_header(e);
+    const std::string h = opts.c_header ? render_c_header(e) : std::string();
     std::vector<EmittedFile> files;
     files.push_back({model.name + ".hpp", finish_header(hpp)});
-    files.push_back({model.name + ".cpp", stream_source(e, stamp_of(hpp))});
+    files.push_back({model.name + ".cpp", stream_source(e, stamp_of(hpp), opts.c_header ? stamp_of(h) : std::string())});
+    if (opts.c_header) files.push_back({model.name + ".h", finish_header(h)});
     if (!opts.self_test_inputs.empty()) {
         std::vector<EmittedFile> st = emit_self_test(model, opts);
         files.insert(files.end(), std::make_move_iterator(st.begin()), std::make_move_iterator(st.end()));
