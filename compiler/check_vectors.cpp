@@ -81,10 +81,6 @@ struct VectorChecker {
     void standardised(const VectorInfo& info, const Model& model) {
         if (!info.standardised) return;
         const Standardised& s = *info.standardised;
-        if (model.stream)
-            error(s.loc, fmt::format("'standardised' on {} of a streaming model is not supported yet; fold the scaling into "
-                                     "the first or last layer",
-                                     who()));
         if (std::string_view(kind) == "output" && !model.blocks.empty() &&
             model.blocks.back().kind == Block::Kind::dense && model.blocks.back().dense.act == Activation::softmax)
             error(s.loc, fmt::format("{} comes from softmax (probabilities): it cannot be 'standardised'", who()));

@@ -4,6 +4,7 @@
 
 #include "activation.hpp"
 #include "integrate.hpp"
+#include "standardise.hpp"
 #include "tableau.hpp"
 
 namespace meander {
@@ -85,6 +86,15 @@ EvalResult observe(const Model& model, Eigen::VectorXd& state, const Eigen::Vect
         r.status = EvalStatus::input_not_finite;
         return r;
     }
+    // A standardised observation is checked like a layer's result (a huge value over a
+    // tiny scale can overflow), before the evolution, as evaluate does before the first layer.
+    Eigen::VectorXd x = obs;
+    standardise_input(model, x);
+    if (!x.allFinite()) {
+        r.status = EvalStatus::state_not_finite;
+        r.block = model.input_name;
+        return r;
+    }
     Eigen::VectorXd h = state;
     const Continuous& c = st.evolve;
     if (c.blend) {
@@ -104,10 +114,10 @@ EvalResult observe(const Model& model, Eigen::VectorXd& state, const Eigen::Vect
         return r;
     }
     if (st.update == Stream::Update::gated) {
-        gated_update(st.update_layers[0].dense, st.update_layers[1].dense, obs, h);
+        gated_update(st.update_layers[0].dense, st.update_layers[1].dense, x, h);
     } else {
-        Eigen::VectorXd hx(h.size() + obs.size()), next;
-        hx << h, obs;
+        Eigen::VectorXd hx(h.size() + x.size()), next;
+        hx << h, x;
         apply_dense(st.update_layers[0].dense, 0.0, hx, next);
         h.swap(next);
     }
@@ -118,7 +128,14 @@ EvalResult observe(const Model& model, Eigen::VectorXd& state, const Eigen::Vect
     }
     EvalResult out = evaluate_blocks(model.blocks, h);
     add_stats(out.stats, r.stats);
-    if (out.status == EvalStatus::ok) state = h;
+    if (out.status != EvalStatus::ok) return out;
+    unstandardise_output(model, out.output);
+    if (!out.output.allFinite()) {
+        out.status = EvalStatus::state_not_finite;
+        out.block = model.output_name;
+        return out;
+    }
+    state = h;
     return out;
 }
 

@@ -37,7 +37,9 @@ void gated_update(const Dense& ih, const Dense& hh, const Eigen::VectorXd& x, Ei
 void blend_evolve(const Continuous& blend, double gap, Eigen::VectorXd& h);
 
 // One observation: checks the gap (finite, 0 <= gap <= largest-gap) and the observation,
-// evolves, updates and reads out. On any status but ok, `state` is left as it was.
+// standardises the observation (a `standardised` input), evolves, updates, reads out and
+// restores the readout's units (a `standardised` output), each standardised vector checked
+// for finiteness. On any status but ok, `state` is left as it was.
 EvalResult observe(const Model& model, Eigen::VectorXd& state, const Eigen::VectorXd& obs, double gap);
 
 }  // namespace meander

@@ -18,7 +18,9 @@ sequence file (sequence id, time stamp, observation); per row the state
 evolves over the gap since the previous row of its sequence (fixed-step
 methods: ceil(gap * steps-per-unit) steps; adaptive: solve_ivp), then a GRU
 cell written out after PyTorch's GRUCell documentation updates it (or a
-dense merge), then the readout; the state is zero where a sequence begins.
+dense merge) with the observation (standardised first when the input is),
+then the readout (its units restored when the output is standardised); the
+state is zero where a sequence begins.
 
 With --meander BIN it also runs `BIN eval <name>.mnd --input inputs.csv` and
 compares the numbers it prints (one row of outputs per input row) with
@@ -371,8 +373,13 @@ class Model:
     def sequences(self, rows):
         """A streaming model over sequence rows (id, time, values...): one output per row."""
         evolve, update, readout = self.m["blocks"][0], self.m["blocks"][1], self.m["blocks"][2:]
+        sx = self.scaling(self.m["input_options"], self.m["input"][1])
+        sy = self.scaling(self.m["output_options"], self.m["output"][1])
         out, h, prev = [], None, None
         for seq_id, t, x in rows:
+            x = np.asarray(x, dtype=np.float64)
+            if sx is not None:          # the cell reads the standardised observation
+                x = (x - sx[0]) / sx[1]
             if prev is None or seq_id != prev[0]:
                 h, gap = np.zeros(self.m["state"]["size"]), 0.0
             else:
@@ -381,10 +388,11 @@ class Model:
             if gap > 0:
                 h = self.continuous(evolve, h, gap)
             if update["kind"] == "gated":
-                h = self.gated(update, np.asarray(x, dtype=np.float64), h)
+                h = self.gated(update, x, h)
             else:
                 raise ValueError(f"update {update['kind']} is not handled here")
-            out.append(self.seq(readout, h))
+            y = self.seq(readout, h)
+            out.append(y if sy is None else y * sy[1] + sy[0])
         return np.array(out)
 
     def continuous(self, c, x, gap=None):

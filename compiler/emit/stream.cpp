@@ -93,6 +93,17 @@ const char* result_name(result r) noexcept;
 bool build_conditions_hold() noexcept;
 
 )";
+    if (const auto& s = m.input_info.standardised)
+        o += fmt::format("// observe standardises the observation before the update: (input[i] - mean[i]) / scale[i],\n"
+                         "// mean and scale from {}; the cell sees only standardised values. A standardised\n"
+                         "// value that is not finite returns state_not_finite.\n",
+                         s->mean_tensor.empty() ? "the description" : "the weights file");
+    if (const auto& s = m.output_info.standardised)
+        o += fmt::format("// observe writes the readout's y[i] as y[i] * scale[i] + mean[i] into output[i] (mean\n"
+                         "// and scale from {}): the output is in the units of the training targets (checked\n"
+                         "// for finiteness like a layer's result).\n",
+                         s->mean_tensor.empty() ? "the description" : "the weights file");
+    if (m.input_info.standardised || m.output_info.standardised) o += "\n";
     o += fmt::format("}}  // namespace {}\n", m.name);
     o += fmt::format("\n#endif  // MEANDER_GENERATED_{}_HPP\n", M_);
     return o;
@@ -141,6 +152,14 @@ std::string observe_function(const Emission& e) {
                      e.L(0));
     o += "    for (std::size_t i = 0; i < input_size; ++i)\n";
     o += "        if (!std::isfinite(input[i])) return result::input_not_finite;\n";
+    // Standardisation as DEVELOPERS.md "Operation order" states it, where runtime/stream does it.
+    std::string in = "input";
+    if (m.input_info.standardised) {
+        in = "standardised";
+        o += "    real standardised[input_size];\n";
+        o += "    for (std::size_t i = 0; i < input_size; ++i) standardised[i] = (input[i] - input_mean[i]) / input_scale[i];\n";
+        o += "    if (!all_finite(standardised, input_size)) return result::state_not_finite;\n";
+    }
     o += "    // The new state is built in the workspace and copied to the context only when the\n";
     o += "    // call succeeds: on any other result the state is as it was.\n";
     o += "    real* const work = ctx.work;\n";
@@ -161,7 +180,7 @@ std::string observe_function(const Emission& e) {
     if (st.update == Stream::Update::gated) {
         o += "    // GRU cell (PyTorch GRUCell; gates r, z, n).\n";
         o += fmt::format("    real* const gi = work + {};\n    real* const gh = work + {};\n", sp.gi, sp.gh);
-        o += call_dense(e, st.update_layers[0].dense, "input", "gi");
+        o += call_dense(e, st.update_layers[0].dense, in, "gi");
         o += call_dense(e, st.update_layers[1].dense, "h", "gh");
         o += "    for (std::size_t i = 0; i < state_size; ++i) {\n";
         o += "        const real rg = act_sigmoid(gi[i] + gh[i]);\n";
@@ -172,13 +191,17 @@ std::string observe_function(const Emission& e) {
         o += "    // Merge: a dense layer on [h; input].\n";
         o += fmt::format("    real* const hx = work + {};\n", sp.hx);
         o += "    for (std::size_t i = 0; i < state_size; ++i) hx[i] = h[i];\n";
-        o += "    for (std::size_t i = 0; i < input_size; ++i) hx[state_size + i] = input[i];\n";
+        o += fmt::format("    for (std::size_t i = 0; i < input_size; ++i) hx[state_size + i] = {}[i];\n", in);
         o += call_dense(e, st.update_layers[0].dense, "hx", "h");
     }
     o += fmt::format("    {}_BLOCK_HOOK(\"{}\", 1);\n", M_, st.update_name);
     o += "    if (!all_finite(h, state_size)) return result::state_not_finite;\n";
     if (e.low.top.ops.empty()) o += "    for (std::size_t i = 0; i < output_size; ++i) output[i] = h[i];\n";
     render_chain(e, o, e.low.top, "h", "output", "    ", true);
+    if (m.output_info.standardised) {
+        o += "    for (std::size_t i = 0; i < output_size; ++i) output[i] = output[i] * output_scale[i] + output_mean[i];\n";
+        o += "    if (!all_finite(output, output_size)) return result::state_not_finite;\n";
+    }
     o += "    for (std::size_t i = 0; i < state_size; ++i) ctx.state[i] = h[i];\n";
     o += "    return result::ok;\n}\n\n";
     return o;
@@ -207,6 +230,7 @@ std::string stream_source(const Emission& e, const std::string& stamp, const std
                      M_);
     o += fmt::format("namespace {} {{\n\nnamespace {{\n\n", m.name);
     o += render_weights(e);
+    o += render_standardisation_tables(e);
     o += render_activations(e);
     o += "bool all_finite(const real* v, std::size_t n) noexcept {\n"
          "    for (std::size_t i = 0; i < n; ++i)\n"
