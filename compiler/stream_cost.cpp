@@ -3,11 +3,14 @@
 #include <fmt/format.h>
 
 #include <algorithm>
+#include <functional>
+#include <map>
 #include <nlohmann/json.hpp>
 
 #include "../runtime/evaluate.hpp"
 #include "../runtime/integrate.hpp"
 #include "../runtime/stream.hpp"
+#include "../runtime/tableau.hpp"
 #include "cost_cycles.hpp"
 #include "cost_object.hpp"
 #include "emit.hpp"
@@ -48,15 +51,18 @@ nlohmann::json spread_json(const ObservationSpread& s) {
 // Field evaluations per part of every observation (evolution 0, update 1, readout
 // block i 2 + i), as the cycle measurement counts a layer's runs: the evolution's
 // from observe's total less the readout's, each readout block's from running the
-// readout block by block on the new state.
-std::vector<std::vector<long>> evals_per_part(const Model& model, const std::vector<std::vector<double>>& rows) {
+// readout block by block on the new state. `ok`: whether each observation was ok.
+std::vector<std::vector<long>> evals_per_part(const Model& model, const std::vector<std::vector<double>>& rows,
+                                              std::vector<bool>* ok = nullptr) {
     std::vector<std::vector<long>> out;
+    if (ok) ok->clear();
     Eigen::VectorXd state;
     for (const auto& row : rows) {
         std::vector<long> per(2 + model.blocks.size(), 0);
         if (row[0] > 0.5) state = Eigen::VectorXd::Zero(model.stream->state_size);
         const Eigen::Map<const Eigen::VectorXd> x(row.data() + 2, static_cast<Eigen::Index>(row.size() - 2));
         const EvalResult r = observe(model, state, x, row[1]);
+        if (ok) ok->push_back(r.status == EvalStatus::ok);
         if (r.status == EvalStatus::ok) {
             Eigen::VectorXd v = state;  // the new state; the readout again, block by block
             long readout = 0;
@@ -71,6 +77,214 @@ std::vector<std::vector<long>> evals_per_part(const Model& model, const std::vec
         out.push_back(per);
     }
     return out;
+}
+
+// ---------------------------------------------------------------------------
+// The static estimate per observation.
+//
+// Per core, float32: a dense layer costs cycles_per_mac per MAC plus cycles_per_output
+// per output (bias, store, loop), and its activation kernel's figure per output; a
+// continuous block (the evolution, or one in the readout) its field's layers per
+// evaluation plus, per state element and evaluation, cycles_per_state_eval (fixed-step
+// methods) or cycles_per_adaptive_state_eval (embedded pairs: the error norm and step
+// control too); a blend its layers once and a sigmoid per state element; a GRU cell its
+// two dense halves and cycles_per_gated_element per state element (the gate arithmetic
+// with two sigmoids and a tanh); observe itself cycles_per_observation plus
+// cycles_per_observation_state per state element (the checks, the copies of the state).
+//
+// The Cortex-M3, M4F and M7 figures were measured with `meander cost` itself (the
+// emitted code on qemu's MPS2 boards, arm-none-eabi-g++ 12.2.1 -Os -ffp-contract=off,
+// each instruction priced with the core's manual, compiler/cycle_prices.hpp), on the
+// two streaming models there are, samples/parcel_chill (rk4 evolution, GRU cell, dense
+// head) and tests/data/stream_parts (dormand-prince evolution with a residual field,
+// GRU cell, residual, rk4 and dense readout), the first 8 observations of each sequence
+// file, 2026-12-02. The dense figures solve the two models' measured dense-layer cycles
+// (dense_cycles_per_mac times their MACs) for a part per MAC and a part per output
+// (their layers have 1 to 16 inputs, where the per-output work weighs: 5.4 and 6.0
+// cycles per MAC on the M4F); tanh is the kernel's measured mean; the gated figure is
+// the cell's measured cycles less its dense halves, per state element (mean of the two);
+// the state figures are the evolution's and the readout's continuous blocks' cycles less
+// their layers, per state element and evaluation (fixed-step: the mean of parcel_chill's
+// rk4 and stream_parts' readout rk4; adaptive: stream_parts' evolution); the observe
+// figures solve the two models' cycles outside their parts (median) for a constant and
+// a part per state element. Kinds without a streaming measurement take the plain
+// figures (compiler/cost.cpp make_figures). The Cortex-M0 has no measurement: the plain
+// figures, no per-output part, the cell priced as three activations.
+// tests/target/cost_estimate.sh compares the estimate with the measurement (within 20%).
+struct StreamFigures {
+    double cycles_per_mac = 0.0;
+    double cycles_per_output = 0.0;
+    std::map<std::string, double> activation_cycles;  // overrides of the plain figures
+    double cycles_per_state_eval = 0.0;
+    double cycles_per_adaptive_state_eval = 0.0;
+    double cycles_per_gated_element = 0.0;
+    double cycles_per_observation = 0.0;
+    double cycles_per_observation_state = 0.0;
+};
+
+StreamFigures stream_figures(CoreClass core) {
+    const CoreFigures& plain = core_figures(core);
+    StreamFigures f;
+    f.cycles_per_mac = plain.cycles_per_mac;
+    f.activation_cycles = plain.activation_cycles;
+    f.cycles_per_state_eval = plain.cycles_per_state_eval;
+    f.cycles_per_adaptive_state_eval = plain.cycles_per_state_eval;
+    switch (core) {
+    case CoreClass::cortex_m0:
+        f.cycles_per_gated_element = 3.0 * plain.cycles_per_activation;
+        break;
+    case CoreClass::cortex_m3:
+        f.cycles_per_mac = 108.0;
+        f.cycles_per_output = 91.0;
+        f.activation_cycles["tanh"] = 1188.0;
+        f.cycles_per_state_eval = 200.0;
+        f.cycles_per_adaptive_state_eval = 760.0;
+        f.cycles_per_gated_element = 3720.0;
+        f.cycles_per_observation = 635.0;
+        f.cycles_per_observation_state = 176.0;
+        break;
+    case CoreClass::cortex_m4f:
+    case CoreClass::cortex_m7:  // priced with the Cortex-M4 table: the same figures
+        f.cycles_per_mac = 4.62;
+        f.cycles_per_output = 7.3;
+        f.activation_cycles["tanh"] = 80.0;
+        f.cycles_per_state_eval = 30.0;
+        f.cycles_per_adaptive_state_eval = 80.0;
+        f.cycles_per_gated_element = 248.0;
+        f.cycles_per_observation = 280.0;
+        f.cycles_per_observation_state = 28.0;
+        break;
+    }
+    return f;
+}
+
+// Activations that go through an exp or tanh kernel once per element.
+bool exp_based(Activation a) {
+    return a != Activation::identity && a != Activation::relu && a != Activation::leaky_relu;
+}
+
+struct Estimator {
+    const Model& model;
+    StreamFigures f;
+    double fallback_activation;
+    std::map<std::string, double> used;  // the activation figures this model uses
+
+    double activation(const std::string& kind) {
+        const auto k = f.activation_cycles.find(kind);
+        const double c = k != f.activation_cycles.end() ? k->second : fallback_activation;
+        used[kind] = c;
+        return c;
+    }
+    double state_eval(const Continuous& c) const {
+        const Tableau* t = find_tableau(c.solver.method);
+        return t != nullptr && t->adaptive() ? f.cycles_per_adaptive_state_eval : f.cycles_per_state_eval;
+    }
+    // One pass through `blocks`; a continuous block with `evals(block)` field evaluations.
+    double pass(const std::vector<Block>& blocks, const std::function<double(const Block&)>& evals) {
+        double c = 0.0;
+        for (const Block& b : blocks) {
+            switch (b.kind) {
+            case Block::Kind::dense:
+                c += static_cast<double>(dense_macs(b.dense)) * f.cycles_per_mac + b.dense.out * f.cycles_per_output;
+                if (exp_based(b.dense.act)) c += b.dense.out * activation(std::string(activation_name(b.dense.act)));
+                break;
+            case Block::Kind::residual: c += pass(b.residual.body, evals); break;
+            case Block::Kind::continuous:
+                c += evals(b) * (pass(b.continuous.field, evals) + static_cast<double>(block_out_width(b)) * state_eval(b.continuous));
+                break;
+            }
+        }
+        return c;
+    }
+    // One observation: the evolution's evaluations, and those of each readout block.
+    double observation(double evolve_evals, const std::vector<double>& readout_evals) {
+        const Stream& st = *model.stream;
+        const auto none = [](const Block&) { return 0.0; };
+        const double s = st.state_size;
+        double c = f.cycles_per_observation + s * f.cycles_per_observation_state;
+        if (st.evolve.blend)
+            c += pass(st.evolve.field, none) + s * activation("sigmoid");
+        else
+            c += evolve_evals * (pass(st.evolve.field, none) + s * state_eval(st.evolve));
+        c += pass(st.update_layers, none);
+        if (st.update == Stream::Update::gated) c += s * f.cycles_per_gated_element;
+        for (std::size_t i = 0; i < model.blocks.size(); ++i)
+            c += pass({model.blocks[i]}, [&](const Block&) { return i < readout_evals.size() ? readout_evals[i] : 0.0; });
+        return c;
+    }
+    double observation(const std::vector<long>& per_part) {
+        std::vector<double> readout;
+        for (std::size_t i = 2; i < per_part.size(); ++i) readout.push_back(static_cast<double>(per_part[i]));
+        return observation(per_part.empty() ? 0.0 : static_cast<double>(per_part[0]), readout);
+    }
+};
+
+double median_of(std::vector<double> v) {
+    std::sort(v.begin(), v.end());
+    const std::size_t m = v.size() / 2;
+    return v.size() % 2 ? v[m] : 0.5 * (v[m - 1] + v[m]);
+}
+
+// The observation measured at the largest gap: after a reset, the values of the file's
+// row with the largest gap (zeros without a file).
+std::vector<double> largest_gap_row(const Model& model, const std::vector<SequenceRow>& seq) {
+    std::vector<double> row(2 + static_cast<std::size_t>(model.input_size), 0.0);
+    const SequenceRow* widest = nullptr;
+    for (const SequenceRow& s : seq)
+        if (!widest || s.gap > widest->gap) widest = &s;
+    if (widest) std::copy(widest->values.begin(), widest->values.end(), row.begin() + 2);
+    row[0] = 1.0;
+    row[1] = model.stream->largest_gap;
+    return row;
+}
+
+std::vector<std::vector<double>> driver_rows(const std::vector<SequenceRow>& seq) {
+    std::vector<std::vector<double>> rows;
+    for (const SequenceRow& s : seq) {
+        std::vector<double> row{s.first ? 1.0 : 0.0, s.gap};
+        row.insert(row.end(), s.values.begin(), s.values.end());
+        rows.push_back(std::move(row));
+    }
+    return rows;
+}
+
+// `cycles_per_mac` >= 0: the chosen core's figure given with --cycles-per-mac.
+void estimate_cycles(const Model& model, const std::vector<SequenceRow>& seq, Precision p, double cycles_per_mac,
+                     StreamCost& c) {
+    std::vector<CoreClass> order{c.core};
+    for (CoreClass k : all_cores())
+        if (k != c.core) order.push_back(k);
+    const std::vector<std::vector<double>> rows = driver_rows(seq);
+    std::vector<bool> ok;
+    const std::vector<std::vector<long>> per_row = evals_per_part(model, rows, &ok);
+    const std::vector<std::vector<long>> at_gap = evals_per_part(model, {largest_gap_row(model, seq)});
+    // The worst case: the evolution's and every readout block's worst-case evaluations.
+    std::vector<double> worst_readout;
+    for (const Block& b : model.blocks)
+        worst_readout.push_back(b.kind == Block::Kind::continuous ? static_cast<double>(worst_field_evals(b.continuous.solver)) : 0.0);
+    for (CoreClass k : order) {
+        StreamCoreCycles cc;
+        cc.core = k;
+        cc.estimated = p == Precision::float32;
+        if (cc.estimated) {
+            Estimator e{model, stream_figures(k), core_figures(k).cycles_per_activation, {}};
+            if (k == c.core && cycles_per_mac >= 0) e.f.cycles_per_mac = cycles_per_mac;
+            cc.cycles_per_mac = e.f.cycles_per_mac;
+            cc.cycles_per_output = e.f.cycles_per_output;
+            cc.cycles_per_state_eval = e.f.cycles_per_state_eval;
+            cc.cycles_per_adaptive_state_eval = e.f.cycles_per_adaptive_state_eval;
+            cc.cycles_per_gated_element = e.f.cycles_per_gated_element;
+            cc.cycles_per_observation = e.f.cycles_per_observation + e.f.cycles_per_observation_state * model.stream->state_size;
+            cc.worst = e.observation(static_cast<double>(worst_evolve_field_evals(*model.stream)), worst_readout);
+            std::vector<double> each;
+            for (std::size_t r = 0; r < per_row.size(); ++r)
+                if (ok[r]) each.push_back(e.observation(per_row[r]));
+            if (!each.empty()) cc.median = median_of(each);
+            cc.at_largest_gap = e.observation(at_gap[0]);
+            cc.activation_cycles = e.used;
+        }
+        c.cycles.push_back(cc);
+    }
 }
 
 // The emitted code's RAM; its code, constants and stack compiled for the core; the
@@ -106,12 +320,7 @@ bool measure_code(const Model& model, const std::vector<SequenceRow>& seq, const
         o.cycles_not_measured = "no cross compiler";
         return true;
     }
-    std::vector<std::vector<double>> rows;
-    for (const SequenceRow& s : seq) {
-        std::vector<double> row{s.first ? 1.0 : 0.0, s.gap};
-        row.insert(row.end(), s.values.begin(), s.values.end());
-        rows.push_back(std::move(row));
-    }
+    std::vector<std::vector<double>> rows = driver_rows(seq);
     if (rows.empty()) {
         rows.push_back(std::vector<double>(2 + static_cast<std::size_t>(model.input_size), 0.0));
         rows[0][0] = 1.0;
@@ -132,13 +341,7 @@ bool measure_code(const Model& model, const std::vector<SequenceRow>& seq, const
     // The worst case's gap: the largest (a fixed-step evolution's most steps), after a reset,
     // with the observation of the file's row with the largest gap (zeros without a file).
     // Cycles depend on the values too (the kernels' paths): this is one such observation.
-    std::vector<std::vector<double>> worst{std::vector<double>(2 + static_cast<std::size_t>(model.input_size), 0.0)};
-    const SequenceRow* widest = nullptr;
-    for (const SequenceRow& s : seq)
-        if (!widest || s.gap > widest->gap) widest = &s;
-    if (widest) std::copy(widest->values.begin(), widest->values.end(), worst[0].begin() + 2);
-    worst[0][0] = 1.0;
-    worst[0][1] = model.stream->largest_gap;
+    const std::vector<std::vector<double>> worst{largest_gap_row(model, seq)};
     co.keep_dir = opts.keep_dir.empty() ? "" : opts.keep_dir + "/largest-gap";
     return measure_cycles(model, files, {CoreClass::cortex_m4f, CoreClass::cortex_m3, CoreClass::cortex_m7}, worst,
                           evals_per_part(model, worst), co, c.at_largest_gap, missing, diags);
@@ -194,6 +397,8 @@ std::optional<StreamCost> measure_stream_cost(const Model& model, const std::vec
         c.field_evals = spread(evals, failed);
         if (!readout_fields) c.macs = spread(macs, failed);
     }
+    estimate_cycles(model, rows, opts.precision, opts.cycles_per_mac, c);
+    if (c.cycles.front().estimated) c.worst_cycles = c.cycles.front().worst;
     if (!measure_code(model, rows, opts, c, diags)) return std::nullopt;
     return c;
 }
@@ -205,8 +410,14 @@ std::string render_stream_cost_text(const StreamCost& c) {
     o += fmt::format("  worst case, at the largest gap {}:\n", format_number(c.largest_gap));
     o += fmt::format("    field evaluations: {}\n", c.worst_field_evals);
     o += fmt::format("    multiply-accumulates: {:.0Lf}\n", c.worst_macs);
-    o += fmt::format("    estimated cycles on {}: {:.0f} (multiply-accumulates only, {} cycles each: {})\n",
-                     core_name(c.core), c.worst_cycles, c.cycles_per_mac, c.mac_source);
+    const StreamCoreCycles& chosen = c.cycles.front();
+    if (chosen.estimated)
+        o += fmt::format("    estimated cycles on {}: {:.0f} (compiler/stream_cost.cpp states the figures)\n", core_name(c.core),
+                         c.worst_cycles);
+    else
+        o += fmt::format("    estimated cycles on {}: {:.0f} (multiply-accumulates only, {} cycles each: {}; no other "
+                         "figures in float64)\n",
+                         core_name(c.core), c.worst_cycles, c.cycles_per_mac, c.mac_source);
     if (c.field_evals) {
         o += fmt::format("  measured over {} observations{}:\n", c.field_evals->rows,
                          c.field_evals->failed_rows ? fmt::format(" ({} not ok, left out)", c.field_evals->failed_rows) : "");
@@ -226,6 +437,18 @@ std::string render_stream_cost_text(const StreamCost& c) {
                              ob.stack_bytes, fmt::join(ob.stack_chain, " -> "), ob.entry_stack_bytes);
     } else {
         o += "  flash and stack: not measured (no cross compiler on PATH)\n";
+    }
+    o += "estimated cycles per observation (float32 figures: MACs, activation kernels, Runge-Kutta work per state\n"
+         "element and evaluation, the GRU cell per state element, observe's own work):\n";
+    for (const StreamCoreCycles& e : c.cycles) {
+        if (!e.estimated) {
+            o += fmt::format("  {}: no figures in float64\n", core_name(e.core));
+            continue;
+        }
+        o += fmt::format("  {}: worst case {:.0f}", core_name(e.core), e.worst);
+        if (e.at_largest_gap) o += fmt::format(", the observation measured at the largest gap {:.0f}", *e.at_largest_gap);
+        if (e.median) o += fmt::format(", median over the file {:.0f}", *e.median);
+        o += "\n";
     }
     o += render_measured_text(ob);
     if (!c.at_largest_gap.empty()) {
@@ -252,6 +475,24 @@ std::string render_stream_cost_json(const StreamCost& c) {
         {"cycles_per_mac", c.cycles_per_mac},
         {"worst_cycles_per_observation", c.worst_cycles},
     };
+    nlohmann::json est = nlohmann::json::array();
+    for (const StreamCoreCycles& e : c.cycles) {
+        nlohmann::json o = {{"core", std::string(core_name(e.core))}, {"estimated", e.estimated}};
+        if (e.estimated) {
+            o["worst"] = e.worst;
+            if (e.median) o["median"] = *e.median;
+            if (e.at_largest_gap) o["at_largest_gap"] = *e.at_largest_gap;
+            o["cycles_per_mac"] = e.cycles_per_mac;
+            o["cycles_per_output"] = e.cycles_per_output;
+            o["cycles_per_state_eval"] = e.cycles_per_state_eval;
+            o["cycles_per_adaptive_state_eval"] = e.cycles_per_adaptive_state_eval;
+            o["cycles_per_gated_element"] = e.cycles_per_gated_element;
+            o["cycles_per_observation"] = e.cycles_per_observation;
+            o["activation_cycles"] = e.activation_cycles;
+        }
+        est.push_back(o);
+    }
+    j["cycles"] = est;
     if (c.field_evals) j["measured_field_evals"] = spread_json(*c.field_evals);
     if (c.macs) j["measured_macs"] = spread_json(*c.macs);
     const CostReport& ob = c.object;

@@ -7,6 +7,7 @@
 // sequence; one sequence of one observation of zeros without a file).
 #pragma once
 
+#include <map>
 #include <optional>
 #include <string>
 #include <vector>
@@ -23,6 +24,24 @@ struct ObservationSpread {
     int rows = 0;
     int failed_rows = 0;            // observations whose result was not ok
     double min = 0, median = 0, p95 = 0, max = 0;
+};
+
+// The static cycle estimate of one observation on one core (float32 figures; float64 has
+// none): from the model's counts and the core's figures (compiler/stream_cost.cpp,
+// stream_figures), with the field evaluations each observation takes.
+struct StreamCoreCycles {
+    CoreClass core = CoreClass::cortex_m4f;
+    bool estimated = false;
+    double cycles_per_mac = 0.0;
+    double cycles_per_output = 0.0;
+    double cycles_per_state_eval = 0.0;            // fixed-step methods
+    double cycles_per_adaptive_state_eval = 0.0;   // embedded pairs
+    double cycles_per_gated_element = 0.0;
+    double cycles_per_observation = 0.0;           // observe's own work, with its state-size part
+    std::map<std::string, double> activation_cycles;  // by kind, the model's kinds
+    double worst = 0.0;                     // at the largest gap with the worst-case evaluations
+    std::optional<double> median;           // median over the sequence file's observations
+    std::optional<double> at_largest_gap;   // the observation measured at the largest gap
 };
 
 struct StreamCost {
@@ -49,6 +68,8 @@ struct StreamCost {
     // Cycles of one observation at the largest gap after a reset (the values of the file's row
     // with the largest gap, or zeros), per emulated core.
     std::vector<MeasuredCycles> at_largest_gap;
+    // The estimate per core, the chosen core first.
+    std::vector<StreamCoreCycles> cycles;
 };
 
 // `rows`: a sequence file's rows, or empty.
