@@ -93,6 +93,7 @@ extern "C" int LLVMFuzzerTestOneInput(const std::uint8_t* data, std::size_t size
         opts.content_hash = "fnv1a64:0000000000000000";
         opts.meander_version = "fuzz";
         if (model->stream) {
+            opts.c_header = p == Precision::float64;  // the streaming C header in one precision
             (void)emit_stream(*model, opts);
         } else {
             // The C entry point in one precision, a self-test of one vector in the other.
