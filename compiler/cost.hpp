@@ -142,6 +142,10 @@ struct MeasuredCycles {
     double dense_cycles_total = 0.0;     // over all rows: the dense layers' own code
     double activation_cycles_total = 0.0;  // over all rows: the activation kernels
     std::vector<std::string> unpriced;   // mnemonics not in the table (priced 1 cycle each)
+    // Learning (compiler/learn_cost.cpp): `cycles` and `instructions` are per learning
+    // step, these per forward part (the learning infer with the step's parameters).
+    CycleSpread forward_cycles;
+    CycleSpread forward_instructions;
 };
 
 struct CostReport {

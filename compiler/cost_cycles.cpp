@@ -47,6 +47,9 @@ std::string board_of(CoreClass core) {
 namespace {
 
 constexpr std::size_t kSoftFloatRows = 8;
+// A learning step runs the model forward about three times and back once: fewer rows.
+constexpr std::size_t kLearnRows = 16;
+constexpr std::size_t kLearnSoftFloatRows = 4;
 
 // One instruction as the translation log lists it, its price, and what the
 // rows spent on it.
@@ -477,7 +480,10 @@ bool measure_cycles(const Model& model, const std::vector<EmittedFile>& files, c
         if (machine.empty()) return true;
         // Software float runs about 20 times the instructions: the Cortex-M3 takes the first rows only,
         // so that one cost run stays within a minute or so.
-        const std::size_t n_rows = core == CoreClass::cortex_m3 ? std::min(rows.size(), kSoftFloatRows) : rows.size();
+        const std::size_t row_cap = opts.learning ? (core == CoreClass::cortex_m3 ? kLearnSoftFloatRows : kLearnRows)
+                                                  : (core == CoreClass::cortex_m3 ? kSoftFloatRows : rows.size());
+        const std::size_t n_rows = std::min(rows.size(), row_cap);
+        const std::size_t marked = opts.learning ? 2 * n_rows : n_rows;  // learning: the forward part, then the step
         std::string inputs;
         for (std::size_t r = 0; r < n_rows; ++r) {
             inputs += "    {";
@@ -494,10 +500,12 @@ bool measure_cycles(const Model& model, const std::vector<EmittedFile>& files, c
         const fs::path dir = folder->path();
         for (const EmittedFile& f : files)
             if (!write_file_atomic((dir / f.name).string(), f.text, core_diags)) return false;
-        if (!write_file_atomic((dir / "board_main.cpp").string(), kBoardMainText, core_diags) ||
+        const char* const driver = opts.learning ? "board_learn_main.cpp" : "board_main.cpp";
+        if (!write_file_atomic((dir / driver).string(), opts.learning ? kBoardLearnMainText : kBoardMainText, core_diags) ||
             !write_file_atomic((dir / "startup.cpp").string(), kStartupText, core_diags) ||
             !write_file_atomic((dir / "mps2.ld").string(), kLinkerScriptText, core_diags) ||
-            !write_file_atomic((dir / "board_inputs.inc").string(), inputs, core_diags) ||
+            !write_file_atomic((dir / (opts.learning ? "learn_rows.inc" : "board_inputs.inc")).string(), inputs,
+                               core_diags) ||
             !write_file_atomic((dir / "cycle_marks.hpp").string(), marks, core_diags))
             return false;
 
@@ -506,10 +514,13 @@ bool measure_cycles(const Model& model, const std::vector<EmittedFile>& files, c
         flags += "-std=c++17 -Os -fno-exceptions -fno-rtti -ffunction-sections -fdata-sections -ffp-contract=off";
         const std::string build = fmt::format(
             "cd {} && {} {} -g -I. -DMEANDER_MODEL={} '-DMEANDER_MODEL_HEADER=\"{}.hpp\"' -DMEANDER_CYCLE_MARKS{} "
-            "-include cycle_marks.hpp startup.cpp board_main.cpp {}.cpp -T mps2.ld -nostartfiles --specs=rdimon.specs "
+            "-include cycle_marks.hpp startup.cpp {} {}.cpp -T mps2.ld -nostartfiles --specs=rdimon.specs "
             "-Wl,--gc-sections -o app.elf",
-            shell_quote(dir.string()), cxx, flags, model.name, model.name, model.stream ? " -DMEANDER_STREAMING" : "",
-            shell_quote(model.name));
+            shell_quote(dir.string()), cxx, flags, model.name, model.name,
+            model.stream     ? " -DMEANDER_STREAMING"
+            : opts.learning ? fmt::format(" -DMEANDER_RATE={} -DMEANDER_CLIP={}", opts.rate, opts.clip)
+                            : std::string(),
+            driver, shell_quote(model.name));
         if (!run_logged(build, dir / "build.log")) {
             core_diags.error(cxx, fmt::format("building the emitted code with the board driver for {} failed:{}",
                                          core_name(core), tail_of(dir / "build.log", 12)));
@@ -540,6 +551,12 @@ bool measure_cycles(const Model& model, const std::vector<EmittedFile>& files, c
             }
         }
         for (const char* m : {"meander_mark_row_begin", "meander_mark_row_end", "meander_mark_block_begin", "meander_mark_block_end"}) {
+            // A learning image calls the block marks only from the blocks before the first learnable
+            // layer: without them the linker drops the marks; address 1 is never a block's start.
+            if (opts.learning && !marks_at.count(m) && std::string(m).find("block") != std::string::npos) {
+                marks_at[m] = 1u;
+                continue;
+            }
             if (!marks_at.count(m)) {
                 core_diags.error("cost", fmt::format("the measured image has no {} (the board driver was not built with its marks)", m));
                 return false;
@@ -638,9 +655,10 @@ bool measure_cycles(const Model& model, const std::vector<EmittedFile>& files, c
             }
         }
         auto& measured_rows = reader.rows();
-        if (measured_rows.size() != n_rows || results.size() != n_rows) {
-            core_diags.error("cost", fmt::format("the run on {} marked {} inferences and printed {} rows; {} were given",
-                                            machine, measured_rows.size(), results.size(), n_rows));
+        if (measured_rows.size() != marked || results.size() != marked) {
+            core_diags.error("cost", fmt::format("the run on {} marked {} {} and printed {} rows; {} were given",
+                                            machine, measured_rows.size(), opts.learning ? "calls" : "inferences",
+                                            results.size(), marked));
             return false;
         }
 
@@ -653,6 +671,23 @@ bool measure_cycles(const Model& model, const std::vector<EmittedFile>& files, c
             mc.timings = "the Cortex-M4 table (no per-instruction table is published for the Cortex-M7; an upper "
                          "bound for its dual-issue pipeline): " + mc.timings;
         mc.rows = static_cast<int>(n_rows);
+        const std::set<std::string> unpriced = reader.unpriced();
+        mc.unpriced.assign(unpriced.begin(), unpriced.end());
+        if (opts.learning) {
+            // Even rows: the forward part; odd rows: the learning step. Per-layer figures stay unknown
+            // (the learning passes' layers are not the dense kernels the charges follow).
+            std::vector<double> fc, fi, sc, si;
+            for (std::size_t r = 0; r < measured_rows.size(); ++r) {
+                (r % 2 ? sc : fc).push_back(measured_rows[r].cycles);
+                (r % 2 ? si : fi).push_back(static_cast<double>(measured_rows[r].instructions));
+                if (results[r] != "ok") ++mc.failed_rows;
+            }
+            mc.cycles = spread_of(sc);
+            mc.instructions = spread_of(si);
+            mc.forward_cycles = spread_of(fc);
+            mc.forward_instructions = spread_of(fi);
+            return true;
+        }
         std::vector<double> cyc, ins;
         std::size_t nblocks = 0;
         for (std::size_t r = 0; r < measured_rows.size(); ++r) {
@@ -669,8 +704,6 @@ bool measure_cycles(const Model& model, const std::vector<EmittedFile>& files, c
                 if (b < rc.blocks.size()) v.push_back(rc.blocks[b]);
             mc.blocks.push_back({part_names[b], spread_of(v)});
         }
-        const std::set<std::string> unpriced = reader.unpriced();
-        mc.unpriced.assign(unpriced.begin(), unpriced.end());
 
         double all_total = 0.0;
         for (const auto& [a, in] : reader.insns()) all_total += in.cycles;

@@ -19,6 +19,12 @@ struct CyclesOptions {
     std::string qemu = "qemu-system-arm";
     std::string keep_dir;                // non-empty: build there (one folder per core) and keep the files
     double timeout_seconds = 600.0;      // per emulator run
+    // Learning on the device (files emitted with --learn): each row is {inputs..., targets...};
+    // the driver is tests/target/board_learn_main.cpp, which runs per row the learning infer
+    // (the forward part) and one learn_step with `rate` and `clip` (real literals).
+    bool learning = false;
+    std::string rate = "0.01f";
+    std::string clip = "1.0f";
 };
 
 // Builds and runs `files` (the emitted float32 or float64 code) on each core in
@@ -29,6 +35,9 @@ struct CyclesOptions {
 // the model has more than one continuous block; with one, the emitted code's own
 // count, which the driver prints, is used). Returns false with a diagnostic when a build or run
 // fails; tools missing is not an error: `missing` then names the first one.
+// With opts.learning, each MeasuredCycles' cycles and instructions are per learning
+// step, `forward_cycles` and `forward_instructions` those of the forward part (the
+// learning infer with the same parameters), and the per-layer figures are unknown.
 bool measure_cycles(const Model& model, const std::vector<EmittedFile>& files, const std::vector<CoreClass>& cores,
                     const std::vector<std::vector<double>>& rows,
                     const std::vector<std::vector<long>>& evals_per_block, const CyclesOptions& opts,

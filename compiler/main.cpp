@@ -20,6 +20,7 @@
 #include "compiler/format.hpp"
 #include "compiler/labels.hpp"
 #include "compiler/learn.hpp"
+#include "compiler/learn_cost.hpp"
 #include "compiler/load.hpp"
 #include "compiler/lower.hpp"
 #include "compiler/npz_writer.hpp"
@@ -292,7 +293,7 @@ int resolve_learning(const LoadedModel& loaded, const std::string& model_path, c
 }
 
 // The learning figures `cost` adds (the static counts of compiler/emit/learn.cpp).
-std::string render_learn_cost(const Model& model, const EmitOptions& opts, bool json) {
+std::string render_learn_cost(const Model& model, const EmitOptions& opts, const LearnCycles& cycles, bool json) {
     const LearnFigures f = learn_figures(model, opts);
     const std::size_t r = opts.precision == Precision::float32 ? 4 : 8;
     const char* way = learn_way_name(opts.learn->way);
@@ -300,10 +301,11 @@ std::string render_learn_cost(const Model& model, const EmitOptions& opts, bool 
         return fmt::format("\"learning\": {{\"way\": \"{}\", \"learnable_values\": {}, \"parameter_bytes\": {}, "
                            "\"workspace_reals\": {}, \"workspace_bytes\": {}, \"gradient_bytes\": {}, "
                            "\"field_evals_per_step\": {}, \"macs_per_step\": {}, \"workspace_grows_with_steps\": {}, "
-                           "\"cycles_per_step\": null}}",
+                           "{}}}",
                            way, f.learnable_count, f.learnable_count * r, f.workspace_size, f.workspace_size * r,
                            f.learnable_count * r, f.field_evals, f.macs,
-                           f.through_continuous && opts.learn->way == LearnSpec::Way::steps ? "true" : "false");
+                           f.through_continuous && opts.learn->way == LearnSpec::Way::steps ? "true" : "false",
+                           render_learn_cycles_json(cycles));
     std::string o = fmt::format("\nlearning on the device (by {})\n", way);
     o += fmt::format("  learnable values        {} ({} bytes of RAM in the parameter block)\n", f.learnable_count,
                      f.learnable_count * r);
@@ -317,7 +319,7 @@ std::string render_learn_cost(const Model& model, const EmitOptions& opts, bool 
     o += fmt::format("  MACs                    {} per learning step (dense layers, forward and back)\n", f.macs);
     if (f.through_continuous && opts.learn->way == LearnSpec::Way::adjoint)
         o += "  gradient error          the adjoint's: it shrinks at the method's order as the step count grows\n";
-    o += "  cycles                  not measured (the emulated cores are measured for inference only)\n";
+    o += render_learn_cycles_text(cycles);
     return o;
 }
 
@@ -477,7 +479,7 @@ int cmd_verify(const std::string& model_path, const std::string& input, const st
 
 int cmd_cost(const std::string& model_path, const std::string& input, const std::string& precision,
              const std::string& core, double cycles_per_mac, bool json, bool estimate_only, const std::string& learn,
-             const std::string& learn_by) {
+             const std::string& learn_by, const std::string& labels_path) {
     Diagnostics diags;
     Precision p = precision_of(precision);
     auto loaded = load_model(model_path, p, diags);
@@ -514,18 +516,33 @@ int cmd_cost(const std::string& model_path, const std::string& input, const std:
     EmitOptions learning = co.emit;
     if (const int status = resolve_learning(*loaded, model_path, learn, learn_by, learning, diags); status != 0)
         return flush(diags), status;
+    std::optional<Labels> labels;
+    if (!labels_path.empty()) {
+        if (!learning.learn) {
+            diags.error("--labels", "gives the targets of the measured learning steps: it needs --learn or a `learn` "
+                                    "statement in the description");
+            return flush(diags), kUsageError;
+        }
+        if (input.empty()) {
+            diags.error("--labels", "needs --input (a label row per input row)");
+            return flush(diags), kUsageError;
+        }
+        if (!(labels = read_labels(labels_path, loaded->model, co.inputs.size(), diags))) return flush(diags), kModelError;
+    }
     auto rep = measure_cost(loaded->model, co, diags);
-    flush(diags);
-    if (!rep) return kModelError;
+    if (!rep) return flush(diags), kModelError;
     std::string text = json ? render_cost_json(*rep) : render_cost_text(*rep);
     if (learning.learn) {
+        const auto cycles = measure_learn_cycles(loaded->model, learning, co.inputs, labels, co, diags);
+        if (!cycles) return flush(diags), kModelError;
         if (json) {
             const std::size_t close = text.rfind('}');
-            text.insert(close, ",\n  " + render_learn_cost(loaded->model, learning, true) + "\n");
+            text.insert(close, ",\n  " + render_learn_cost(loaded->model, learning, *cycles, true) + "\n");
         } else {
-            text += render_learn_cost(loaded->model, learning, false);
+            text += render_learn_cost(loaded->model, learning, *cycles, false);
         }
     }
+    flush(diags);
     std::fputs(text.c_str(), stdout);
     return 0;
 }
@@ -813,6 +830,8 @@ int main(int argc, char** argv) {
     cost->add_option("--precision", precision, "float32 (default) or float64")->check(CLI::IsMember(precisions));
     cost->add_option("--learn", learn, "also what a learning step takes for these learnable parameters (as compile --learn)");
     cost->add_option("--learn-by", learn_by, "steps or adjoint (as compile --learn-by)");
+    cost->add_option("--labels", labels_path,
+                     "CSV of targets, a row per input row, for the measured learning steps (default: eval's outputs)");
     cost->add_option("--core", core, "core class for the cycle estimate")
         ->check(CLI::IsMember({"cortex-m0", "cortex-m3", "cortex-m4f", "cortex-m7"}));
     cost->add_option("--cycles-per-mac", cycles_per_mac, "override the core's cycles per multiply-accumulate")
@@ -936,7 +955,8 @@ int main(int argc, char** argv) {
         if (*eval) return cmd_eval(model, input, output, stats, labels_path, keep_going);
         if (*compile) return cmd_compile(model, outdir, precision, c_header, self_test, dump, learn, learn_by);
         if (*verify) return cmd_verify(model, input, precision, tol, cxx, keep, show, boards);
-        if (*cost) return cmd_cost(model, input, precision, core, cycles_per_mac, json, estimate_only, learn, learn_by);
+        if (*cost) return cmd_cost(model, input, precision, core, cycles_per_mac, json, estimate_only, learn, learn_by,
+                                  labels_path);
         if (*tune)
             return cmd_tune(model, input, precision, target, methods, sweep, json, labels_path,
                             slack_opt->count() ? std::optional<double>(metric_slack) : std::nullopt, plot_path,
