@@ -494,6 +494,16 @@ TEST(Learn, CompileOption) {
     EXPECT_EQ(grab(c.output, "field evaluations       "), grab(hpp, "learn_field_evals = "));
     EXPECT_EQ(grab(c.output, "MACs                    "), grab(hpp, "learn_macs = "));
     EXPECT_NE(c.output.find("independent of the step count"), std::string::npos) << c.output;
+    EXPECT_NE(c.output.find("cycles                  not measured: measurement turned off (--estimate-only)"),
+              std::string::npos)
+        << c.output;
+    // --labels gives the measured learning steps' targets: nothing to give them to without learning.
+    const test::RunResult nl = test::run(fmt::format("'{}' cost '{}' --estimate-only --input '{}' --labels '{}'",
+                                                     MEANDER_BINARY, mnd, std::string(MEANDER_SOURCE_DIR) + "/samples/fan_balance/inputs.csv",
+                                                     std::string(MEANDER_SOURCE_DIR) + "/samples/fan_balance/expected.csv"));
+    EXPECT_EQ(nl.status, 2) << nl.output;
+    EXPECT_NE(nl.output.find("--labels: error: gives the targets of the measured learning steps"), std::string::npos)
+        << nl.output;
 }
 
 }  // namespace
