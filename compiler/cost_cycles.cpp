@@ -461,7 +461,9 @@ bool measure_cycles(const Model& model, const std::vector<EmittedFile>& files, c
     }
     std::set<std::string> kernels;  // the math kernels' function names (runtime/math_float.inc)
     {
-        static const std::regex def(R"(\ninline [A-Za-z_:0-9]+ ([A-Za-z_0-9]+)\()");
+        // "inline float NAME(", also after an attribute ("[[gnu::noinline, gnu::cold]] inline ..."):
+        // an out-of-line kernel's cycles are its caller's activation, not the rest.
+        static const std::regex def(R"(\n(?:\[\[[a-z_:, ]+\]\] )?inline [A-Za-z_:0-9]+ ([A-Za-z_0-9]+)\()");
         const std::string text = emit_detail::kMathFloatText;
         for (auto it = std::sregex_iterator(text.begin(), text.end(), def); it != std::sregex_iterator(); ++it)
             kernels.insert((*it)[1].str());
