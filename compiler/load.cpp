@@ -19,7 +19,7 @@ std::string weights_path_of(const Model& model, const std::string& description_p
 }
 
 std::optional<LoadedModel> load_model(const std::string& path, Precision precision, Diagnostics& diags,
-                                      bool with_weights) {
+                                      bool with_weights, std::optional<WeightStorage> storage) {
     auto src = load_source(path, diags);
     if (!src) return std::nullopt;
     auto model = parse_description(*src, diags);
@@ -27,7 +27,7 @@ std::optional<LoadedModel> load_model(const std::string& path, Precision precisi
     CheckOptions copts;
     copts.precision = precision;
     if (!check_model(*model, *src, copts, diags)) return std::nullopt;
-    LoadedModel out{std::move(*src), std::move(*model), {}};
+    LoadedModel out{std::move(*src), std::move(*model), {}, {}};
     std::uint64_t hash = fnv1a64(out.source.text);
     if (with_weights) {
         if (out.model.weights_path.empty()) {
@@ -47,9 +47,15 @@ std::optional<LoadedModel> load_model(const std::string& path, Precision precisi
         auto bytes = weights_bytes(weights, diags);
         if (!bytes) return named_here();
         hash = fnv1a64(*bytes, hash);
+        out.storage_notes = quantise_model(out.model, precision, storage);
     }
     out.content_hash = fmt::format("fnv1a64:{:016x}", hash);
     return out;
+}
+
+void report_storage_notes(const LoadedModel& loaded, Diagnostics& diags) {
+    for (const StorageNote& n : loaded.storage_notes)
+        diags.note(loaded.source, n.layer->loc, fmt::format("layer '{}': {}", n.layer->name, n.text));
 }
 
 }  // namespace meander

@@ -6,6 +6,7 @@
 #include <string>
 
 #include "../runtime/model.hpp"
+#include "quantise.hpp"
 #include "source.hpp"
 
 namespace meander {
@@ -14,6 +15,7 @@ struct LoadedModel {
     Source source;
     Model model;
     std::string content_hash;       // "fnv1a64:<16 hex digits>" of description and weights bytes
+    std::vector<StorageNote> storage_notes;  // layers asked for integer weights that stay real, zero rows
 };
 
 // Weights are read from the model's `weights` path, relative to the
@@ -23,7 +25,12 @@ struct LoadedModel {
 // The model's weights path as the description names it, relative to its folder.
 std::string weights_path_of(const Model& model, const std::string& description_path);
 
+// With weights, the dense layers take the storage the description asks for
+// (`weights-as`), or `storage` for every layer when given (quantise_model).
 std::optional<LoadedModel> load_model(const std::string& path, Precision precision, Diagnostics& diags,
-                                      bool with_weights = true);
+                                      bool with_weights = true, std::optional<WeightStorage> storage = std::nullopt);
+
+// The storage notes as diagnostic notes at each layer's name.
+void report_storage_notes(const LoadedModel& loaded, Diagnostics& diags);
 
 }  // namespace meander

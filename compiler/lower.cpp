@@ -1,5 +1,7 @@
 #include "lower.hpp"
 
+#include "quantise.hpp"
+
 #include <fmt/format.h>
 
 #include <algorithm>
@@ -218,6 +220,11 @@ Lowered lower_model(const Model& model, Precision precision) {
     low.parameter_count = count_params(model.blocks);
     if (model.stream)
         low.parameter_count += count_params(model.stream->evolve.field) + count_params(model.stream->update_layers);
+    for_each_model_dense(model, [&](const Dense& d) {
+        low.parameter_bytes += weight_table_bytes(d, d.storage, precision) +
+                               (d.has_bias ? d.out * storage_bytes(WeightStorage::real, precision) : 0);
+        low.integer_weights = low.integer_weights || d.storage != WeightStorage::real;
+    });
     low.worst_macs += low.macs_outside_fields;
     return low;
 }

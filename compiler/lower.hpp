@@ -95,6 +95,8 @@ struct Lowered {
     std::size_t workspace_size = 0; // reals
     std::size_t workspace_bytes = 0;
     long parameter_count = 0;       // weights and biases
+    long parameter_bytes = 0;       // their tables' bytes: integer weights with their scales, reals, biases
+    bool integer_weights = false;   // some layer stores its weights as integers
     long macs_per_field_eval = 0;   // summed over the continuous blocks' fields (one evaluation each)
     long macs_outside_fields = 0;   // dense layers outside continuous blocks, one inference
     long worst_field_evals = 0;     // summed over continuous blocks (runtime/integrate.hpp worst_field_evals)

@@ -32,4 +32,20 @@ std::optional<Activation> activation_from_name(std::string_view s) {
     return std::nullopt;
 }
 
+std::string_view weight_storage_name(WeightStorage s) {
+    switch (s) {
+    case WeightStorage::int8: return "int8";
+    case WeightStorage::int16: return "int16";
+    case WeightStorage::real: break;
+    }
+    return "float";
+}
+
+std::optional<WeightStorage> weight_storage_from_name(std::string_view s) {
+    if (s == "float") return WeightStorage::real;
+    if (s == "int8") return WeightStorage::int8;
+    if (s == "int16") return WeightStorage::int16;
+    return std::nullopt;
+}
+
 }  // namespace meander

@@ -4,6 +4,7 @@
 #pragma once
 
 #include <Eigen/Dense>
+#include <cstdint>
 #include <optional>
 #include <string>
 #include <string_view>
@@ -18,6 +19,21 @@ struct Loc {
 };
 
 enum class Precision { float32, float64 };
+
+// How a dense layer's weights are stored in the emitted code: as reals, or as
+// 8- or 16-bit integers with one scale per output row (compiler/quantise.hpp).
+// Biases, state and activations stay in the working precision.
+enum class WeightStorage { real, int8, int16 };
+
+// Spelling used in descriptions and on the command line ("float", "int8", "int16").
+std::string_view weight_storage_name(WeightStorage s);
+std::optional<WeightStorage> weight_storage_from_name(std::string_view s);
+
+// A `weights-as` statement or option as written.
+struct StorageChoice {
+    WeightStorage storage = WeightStorage::real;
+    Loc loc;                        // position of the storage's name
+};
 
 enum class Activation { identity, relu, leaky_relu, tanh, sigmoid, softplus, silu, gelu, elu, softmax };
 
@@ -42,6 +58,13 @@ struct Dense {
     bool time_first = false;        // the time column ('+ t') first instead of last
     Eigen::MatrixXd weight;         // out x (in + time_input); filled by bind_weights
     Eigen::VectorXd bias;           // out (size 0 when !has_bias); filled by bind_weights
+    std::optional<StorageChoice> storage_asked;  // the layer's own `weights-as` option
+    // Filled by quantise_model (compiler/quantise.hpp) when the layer is stored as integers:
+    // `weight` then holds the dequantised weights fl(q * s) in the working precision.
+    WeightStorage storage = WeightStorage::real;
+    std::vector<std::int32_t> qweight;  // out x in_total, row-major
+    std::vector<double> qscale;     // out: one scale per row, a value of the working precision
+    std::string kept_real;          // asked for integers but kept in the working precision: why
 
     int in_total() const { return in + (time_input ? 1 : 0); }
 };
@@ -83,6 +106,7 @@ struct Residual {
     std::string name;
     Loc loc;
     int width = 0;
+    std::optional<StorageChoice> storage_asked;  // `weights-as` in the body: its layers' default
     std::vector<Block> body;        // dense layers and residual blocks; output width == width
     BodyTensors tensors;
 };
@@ -92,6 +116,7 @@ struct Continuous {
     Loc loc;
     int width = 0;                  // width of the incoming state
     int augment = 0;                // zero-filled extra state dimensions (Dupont et al. 2019)
+    std::optional<StorageChoice> storage_asked;  // `weights-as` in the block: its layers' default
     double t0 = 0.0;
     double t1 = 1.0;
     Loc interval_loc;
@@ -209,6 +234,7 @@ struct Model {
     Loc output_loc;
     VectorInfo input_info;          // names, units and standardisation of the input's values
     VectorInfo output_info;         // of the output's values, and class labels
+    std::optional<StorageChoice> storage_asked;  // the model's `weights-as` statement: every layer's default
     std::vector<Block> blocks;
     std::optional<Stream> stream;   // set for a streaming model; `blocks` is then its readout
     std::optional<LearnSpec> learn; // what may learn on the device; none: nothing (inference only)

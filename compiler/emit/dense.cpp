@@ -10,7 +10,10 @@
 // compiled: SSE2 registers on x86, VLDM + VMUL + VADD on an ARMv7E-M FPU, plain
 // C++ elsewhere. A block's loop over the inputs is written out in full when
 // the layer has at most kUnrollInputs input columns (DEVELOPERS.md states the
-// measured trade).
+// measured trade). An integer layer (compiler/quantise.hpp) goes through the
+// same blocks with `qlanesR` steps, plain C++ on every target: each holds its
+// rows' scales and adds fl(real(q) * s) * x, the dequantised real layer's
+// product, so the bits are the real layer's; it keeps the loop over the inputs.
 #include <fmt/format.h>
 
 #include <set>
@@ -21,9 +24,11 @@ namespace meander::emit_detail {
 
 namespace {
 
-std::set<int> block_sizes(const Model& m) {
+// The block sizes of the real layers (integer ones: false) or of the integer layers (true).
+std::set<int> block_sizes(const Model& m, bool integer) {
     std::set<int> sizes;
     for_each_model_dense(m, [&](const Dense& d) {
+        if ((d.storage != WeightStorage::real) != integer) return;
         if (d.out >= kDenseBlockRows) sizes.insert(kDenseBlockRows);
         if (d.out % kDenseBlockRows) sizes.insert(d.out % kDenseBlockRows);
     });
@@ -47,6 +52,33 @@ std::string portable_steps(const Emission& e, int R, const std::string& inl) {
     for (int r = 0; r < R; ++r) o += fmt::format(" s.{} += b[{}];", kLane[r], r);
     o += " }\n";
     o += fmt::format("{} void lanes{}_store(const lanes{}& s, real* y) noexcept {{", inl, R, R);
+    for (int r = 0; r < R; ++r) o += fmt::format(" y[{}] = s.{};", r, kLane[r]);
+    o += " }\n";
+    return o;
+}
+
+// An integer layer's steps: the R sums and their rows' scales; qlanesR_mac
+// dequantises each weight as the real layer holds it, fl(real(q) * s), then
+// multiplies and adds as lanesR_mac does. One mac per integer type in use.
+std::string integer_steps(const Emission& e, int R, const std::set<WeightStorage>& types, const std::string& inl) {
+    std::string o = fmt::format("struct qlanes{} {{ real", R);
+    for (int r = 0; r < R; ++r) o += fmt::format("{} {}", r ? "," : "", kLane[r]);
+    for (int r = 0; r < R; ++r) o += fmt::format(", s{}", kLane[r]);
+    o += "; };\n";
+    o += fmt::format("{} void qlanes{}_zero(qlanes{}& s, const real* scale) noexcept {{", inl, R, R);
+    for (int r = 0; r < R; ++r) o += fmt::format(" s.{} = {}; s.s{} = scale[{}];", kLane[r], e.L(0), kLane[r], r);
+    o += " }\n";
+    for (WeightStorage st : types) {
+        o += fmt::format("{} void qlanes{}_mac(qlanes{}& s, const std::{}_t*& w, real x) noexcept {{\n", inl, R, R,
+                         weight_storage_name(st));
+        for (int r = 0; r < R; ++r)
+            o += fmt::format("    s.{0} += (static_cast<real>(w[{1}]) * s.s{0}) * x;\n", kLane[r], r);
+        o += fmt::format("    w += {};\n}}\n", R);
+    }
+    o += fmt::format("{} void qlanes{}_add(qlanes{}& s, const real* b) noexcept {{", inl, R, R);
+    for (int r = 0; r < R; ++r) o += fmt::format(" s.{} += b[{}];", kLane[r], r);
+    o += " }\n";
+    o += fmt::format("{} void qlanes{}_store(const qlanes{}& s, real* y) noexcept {{", inl, R, R);
     for (int r = 0; r < R; ++r) o += fmt::format(" y[{}] = s.{};", r, kLane[r]);
     o += " }\n";
     return o;
@@ -130,12 +162,13 @@ std::string arm_steps(int R, const std::string& inl) {
 }  // namespace
 
 std::string render_dense_includes(const Emission& e) {
-    return block_sizes(e.model).empty() ? "" : "#if defined(__SSE2__)\n#include <emmintrin.h>\n#endif\n\n";
+    return block_sizes(e.model, false).empty() ? "" : "#if defined(__SSE2__)\n#include <emmintrin.h>\n#endif\n\n";
 }
 
 std::string render_dense_steps(const Emission& e) {
-    const std::set<int> sizes = block_sizes(e.model);
-    if (sizes.empty()) return "";
+    const std::set<int> sizes = block_sizes(e.model, false);
+    const std::set<int> int_sizes = block_sizes(e.model, true);
+    if (sizes.empty() && int_sizes.empty()) return "";
     const bool f32 = e.p == Precision::float32;
     const std::string inl = e.M() + "_STEP";
     std::string o;
@@ -163,6 +196,16 @@ std::string render_dense_steps(const Emission& e) {
         o += portable_steps(e, R, inl);
         if (sse || f32) o += "#endif\n";
     }
+    if (!int_sizes.empty()) {
+        std::set<WeightStorage> types;
+        for_each_model_dense(e.model, [&](const Dense& d) {
+            if (d.storage != WeightStorage::real) types.insert(d.storage);
+        });
+        o += "// Integer layers: qlanesR keeps R sums and their rows' scales; qlanesR_mac adds\n"
+             "// (real(q[r]) * scale r) * x to sum r, the product of the weight the real layer\n"
+             "// would hold (W = real(q) * scale, rounded), so the sums are the real layer's bits.\n";
+        for (int R : int_sizes) o += integer_steps(e, R, types, inl);
+    }
     o += "\n";
     return o;
 }
@@ -175,33 +218,45 @@ std::string render_dense_layers(const Emission& e) {
         const int cols = d.in_total();
         const int blocks = d.out / R;
         const int rest = d.out % R;
-        const bool unroll = cols <= kUnrollInputs;
-        o += fmt::format("// dense {}: {}{} -> {}, {}; {} block{} of {} outputs{}{}\n", sym, d.in,
-                         d.time_input ? " + t" : "", d.out, activation_name(d.act), blocks, blocks == 1 ? "" : "s", R,
-                         rest ? fmt::format(", one of {}", rest) : "", unroll ? ", inputs written out" : "");
+        const bool ints = d.storage != WeightStorage::real;
+        // Integer layers keep the loop: written out, each weight's load, conversion and scaling
+        // would cost more code than the integers save (tests/target/storage_threshold.sh).
+        const bool unroll = cols <= kUnrollInputs && !ints;
+        const std::string steps = ints ? "qlanes" : "lanes";
+        o += fmt::format("// dense {}: {}{} -> {}, {}{}; {} block{} of {} outputs{}{}\n", sym, d.in,
+                         d.time_input ? " + t" : "", d.out, activation_name(d.act),
+                         ints ? fmt::format(", weights as {}", weight_storage_name(d.storage)) : "", blocks,
+                         blocks == 1 ? "" : "s", R, rest ? fmt::format(", one of {}", rest) : "",
+                         unroll ? ", inputs written out" : "");
         o += fmt::format("void dense_{}(const real* __restrict x, {}real* __restrict y) noexcept {{\n", sym,
                          d.time_input ? "real t, " : "");
         // Through volatile copies of the addresses: where the indices are
         // constants (inputs written out, a single block) the compiler would
         // otherwise fold weights and biases into the code, out of their
         // arrays and the NAME_WEIGHTS_ATTR section.
-        o += fmt::format("    const real* const volatile w_at = w_{};\n", sym);
-        o += "    const real* w = w_at;  // advanced by the steps\n";
+        const std::string wt = ints ? fmt::format("std::{}_t", weight_storage_name(d.storage)) : "real";
+        o += fmt::format("    const {}* const volatile w_at = w_{};\n", wt, sym);
+        o += fmt::format("    const {}* w = w_at;  // advanced by the steps\n", wt);
+        if (ints) {
+            o += fmt::format("    const real* const volatile s_at = s_{};\n", sym);
+            o += "    const real* __restrict sc = s_at;\n";
+        }
         if (d.has_bias) {
             o += fmt::format("    const real* const volatile b_at = b_{};\n", sym);
             o += "    const real* __restrict b = b_at;\n";
         }
         // One block of n outputs starting at `at` (an expression).
         auto block = [&](int n, const std::string& at, const std::string& pad) {
-            o += fmt::format("{}lanes{} s;\n{}lanes{}_zero(s);\n", pad, n, pad, n);
+            o += fmt::format("{}{}{} s;\n{}{}{}_zero(s{});\n", pad, steps, n, pad, steps, n,
+                             ints ? fmt::format(", sc + {}", at) : "");
             if (unroll) {
-                for (int i = 0; i < d.in; ++i) o += fmt::format("{}lanes{}_mac(s, w, x[{}]);\n", pad, n, i);
+                for (int i = 0; i < d.in; ++i) o += fmt::format("{}{}{}_mac(s, w, x[{}]);\n", pad, steps, n, i);
             } else {
-                o += fmt::format("{}for (std::size_t i = 0; i < {}; ++i) lanes{}_mac(s, w, x[i]);\n", pad, d.in, n);
+                o += fmt::format("{}for (std::size_t i = 0; i < {}; ++i) {}{}_mac(s, w, x[i]);\n", pad, d.in, steps, n);
             }
-            if (d.time_input) o += fmt::format("{}lanes{}_mac(s, w, t);\n", pad, n);
-            if (d.has_bias) o += fmt::format("{}lanes{}_add(s, b + {});\n", pad, n, at);
-            o += fmt::format("{}lanes{}_store(s, y + {});\n", pad, n, at);
+            if (d.time_input) o += fmt::format("{}{}{}_mac(s, w, t);\n", pad, steps, n);
+            if (d.has_bias) o += fmt::format("{}{}{}_add(s, b + {});\n", pad, steps, n, at);
+            o += fmt::format("{}{}{}_store(s, y + {});\n", pad, steps, n, at);
         };
         if (blocks > 1) {
             o += fmt::format("    for (std::size_t o = 0; o < {}; o += {}) {{\n", blocks * R, R);

@@ -214,7 +214,11 @@ std::string render_header(const Emission& e) {
     o += fmt::format("constexpr std::size_t workspace_size = {};\n", e.low.workspace_size);
     o += "constexpr std::size_t workspace_bytes = workspace_size * sizeof(real);\n";
     o += fmt::format("constexpr std::uint32_t parameter_count = {}u;\n", e.low.parameter_count);
-    o += "constexpr std::size_t parameter_bytes = parameter_count * sizeof(real);\n";
+    if (e.low.integer_weights)
+        o += fmt::format("constexpr std::size_t parameter_bytes = {};  // integer weights with their scales, the rest real\n",
+                         e.low.parameter_bytes);
+    else
+        o += "constexpr std::size_t parameter_bytes = parameter_count * sizeof(real);\n";
     o += fmt::format("constexpr std::uint32_t macs_per_field_eval = {}u;  // one evaluation of every field\n",
                      e.low.macs_per_field_eval);
     o += fmt::format("constexpr std::uint32_t worst_field_evals = {}u;\n", e.low.worst_field_evals);

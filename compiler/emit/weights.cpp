@@ -3,6 +3,8 @@
 // dense kernels (dense.cpp) read them: rows in blocks of kDenseBlockRows,
 // interleaved within a block (column by column, the block's rows side by
 // side); the rows left over form a last, smaller block interleaved alike.
+// An integer layer's table holds its int8 or int16 values in the same order,
+// followed by one scale per output row (compiler/quantise.hpp).
 #include <fmt/format.h>
 
 #include <algorithm>
@@ -11,6 +13,21 @@
 #include "render.hpp"
 
 namespace meander::emit_detail {
+
+namespace {
+
+// Integer tables: 16 values a line.
+std::string integer_rows(const std::vector<double>& values) {
+    std::string out;
+    for (std::size_t i = 0; i < values.size(); ++i) {
+        if (i % 16 == 0) out += "    ";
+        out += fmt::format("{},", static_cast<long>(values[i]));
+        out += (i + 1) % 16 == 0 || i + 1 == values.size() ? '\n' : ' ';
+    }
+    return out;
+}
+
+}  // namespace
 
 std::string layer_symbol(const Model& m, const Dense& d) {
     if (!m.stream || m.stream->update != Stream::Update::gated || m.stream->update_layers.size() != 2) return d.name;
@@ -31,9 +48,13 @@ std::string render_weights(const Emission& e) {
     for_each_model_dense(e.model, [&](const Dense& d) {
         const std::string sym = layer_symbol(e.model, d);
         const int cols = d.in_total();
+        const bool ints = d.storage != WeightStorage::real;
         std::vector<double> w;
         w.reserve(static_cast<std::size_t>(d.out * cols));
-        auto at = [&](int r, int c) { return d.weight.size() == 0 ? 0.0 : d.weight(r, c); };
+        auto at = [&](int r, int c) {
+            if (ints) return static_cast<double>(d.qweight[static_cast<std::size_t>(r * cols + c)]);
+            return d.weight.size() == 0 ? 0.0 : d.weight(r, c);
+        };
         const int R = kDenseBlockRows;
         const int blocked = d.out / R * R;
         const int rest = d.out - blocked;
@@ -49,9 +70,22 @@ std::string render_weights(const Emission& e) {
             o += fmt::format("//   W[{} + r][c] at {} + {}*c + r after them\n", blocked, blocked * cols, rest);
         else if (rest > 0)
             o += fmt::format("//   W[r][c] at {}*c + r\n", rest);
-        o += fmt::format("{}_WEIGHTS_ATTR const real w_{}[{}] = {{\n", M_, sym, w.size());
-        o += array_rows(w, e.p);
-        o += "};\n";
+        if (ints) {
+            o += fmt::format("//   as {}: W[j][i] = real(q[j][i]) * s_{}[j], q rounded to nearest (ties away from zero)\n",
+                             weight_storage_name(d.storage), sym);
+            o += fmt::format("{}_WEIGHTS_ATTR const std::{}_t w_{}[{}] = {{\n", M_, weight_storage_name(d.storage), sym,
+                             w.size());
+            o += integer_rows(w);
+            o += "};\n";
+            o += fmt::format("// {}: scale per row {}\n", sym, d.out);
+            o += fmt::format("{}_WEIGHTS_ATTR const real s_{}[{}] = {{\n", M_, sym, d.qscale.size());
+            o += array_rows(d.qscale, e.p);
+            o += "};\n";
+        } else {
+            o += fmt::format("{}_WEIGHTS_ATTR const real w_{}[{}] = {{\n", M_, sym, w.size());
+            o += array_rows(w, e.p);
+            o += "};\n";
+        }
         if (d.has_bias) {
             std::vector<double> b(d.bias.data(), d.bias.data() + d.bias.size());
             if (b.empty()) b.assign(static_cast<std::size_t>(d.out), 0.0);
