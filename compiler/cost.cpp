@@ -22,6 +22,7 @@
 #include "cost_object.hpp"
 #include "emit.hpp"
 #include "lower.hpp"
+#include "quantise.hpp"
 
 namespace meander {
 
@@ -312,6 +313,18 @@ std::optional<CostReport> measure_cost(const Model& model, const CostOptions& op
     }
 
     const Lowered low = lower_model(model, opts.precision);
+    for_each_dense(model.blocks, [&](const Dense& d) {
+        LayerStorage ls;
+        ls.name = d.name;
+        ls.storage = d.storage;
+        ls.weights = dense_macs(d);
+        ls.bytes = weight_table_bytes(d, d.storage, opts.precision);
+        ls.real_bytes = weight_table_bytes(d, WeightStorage::real, opts.precision);
+        ls.int8_bytes = weight_table_bytes(d, WeightStorage::int8, opts.precision);
+        ls.int16_bytes = weight_table_bytes(d, WeightStorage::int16, opts.precision);
+        ls.kept_real = d.kept_real;
+        rep.layers.push_back(ls);
+    });
     Measured measured;
     if (!opts.inputs.empty()) measured = measure_evals(model, opts.inputs);
 
@@ -328,7 +341,9 @@ std::optional<CostReport> measure_cost(const Model& model, const CostOptions& op
         kinds[i] = c.by_kind;
         widths[i] = block_out_width(b);
         bc.parameters = c.params;
-        bc.weight_bytes = c.params * rep.real_bytes;
+        for_each_dense(std::vector<Block>{b}, [&](const Dense& d) {
+            bc.weight_bytes += weight_table_bytes(d, d.storage, opts.precision) + (d.has_bias ? d.out * rep.real_bytes : 0);
+        });
         bc.macs = c.macs;
         bc.activations = c.activations;
         switch (b.kind) {

@@ -81,7 +81,7 @@ struct BlockCost {
     std::string solver;                     // continuous: "rk4, 8 steps", "dormand-prince, max-steps 64"
     bool adaptive = false;
     long parameters = 0;                    // weights and biases
-    long weight_bytes = 0;                  // parameters * sizeof(real), in flash
+    long weight_bytes = 0;                  // weight tables as emitted and biases, in flash
     long code_bytes = -1;                   // .text of the functions named after this block; -1: none attributable
     long workspace_bytes = 0;               // the block's own buffers in the workspace (lowering plan)
     long macs_per_field_eval = 0;           // continuous only
@@ -148,6 +148,17 @@ struct MeasuredCycles {
     CycleSpread forward_instructions;
 };
 
+// One dense layer's weight table in each storage (compiler/quantise.hpp): the
+// weights and, for integers, one scale per row; biases are not counted.
+struct LayerStorage {
+    std::string name;
+    WeightStorage storage = WeightStorage::real;   // as emitted
+    long weights = 0;
+    long bytes = 0;                         // as emitted
+    long real_bytes = 0, int8_bytes = 0, int16_bytes = 0;
+    std::string kept_real;                  // asked for integers, kept real: why
+};
+
 struct CostReport {
     std::string model;
     Precision precision = Precision::float32;
@@ -156,7 +167,8 @@ struct CostReport {
     std::vector<BlockCost> blocks;          // top-level blocks in model order
 
     long parameters = 0;
-    long weight_bytes = 0;
+    long weight_bytes = 0;                  // weight tables as emitted (integers with their scales) and biases
+    std::vector<LayerStorage> layers;       // every dense layer, in description order
 
     bool code_measured = false;             // false: code_bytes is an estimate
     std::string code_tool;                  // "arm-none-eabi-g++ 12.2.1 -mcpu=cortex-m4 ... -Os" when measured

@@ -160,6 +160,25 @@ std::string render_cost_text(const CostReport& r) {
         t += fmt::format("  code       {:>8} B  estimated (no cross compiler on PATH)\n", r.code_bytes);
         t += fmt::format("  weights    {:>8} B  parameters x {} bytes\n", r.weight_bytes, r.real_bytes);
     }
+    if (!r.layers.empty()) {
+        // Weight tables per dense layer in each storage, so the saving can be read before choosing.
+        t += "weight tables per dense layer (weights, and one scale per row for integers; biases apart)\n";
+        std::vector<std::vector<std::string>> rows{{"layer", "stored as", "weights", "bytes", "float", "int8", "int16", "saved"}};
+        long bytes = 0, real_bytes = 0;
+        bool any_int = false;
+        for (const LayerStorage& l : r.layers) {
+            bytes += l.bytes;
+            real_bytes += l.real_bytes;
+            any_int = any_int || l.storage != WeightStorage::real;
+            rows.push_back({l.name, std::string(weight_storage_name(l.storage)), num(l.weights), num(l.bytes), num(l.real_bytes),
+                            num(l.int8_bytes), num(l.int16_bytes), num(l.real_bytes - l.bytes)});
+        }
+        rows.push_back({"total", "", "", num(bytes), num(real_bytes), "", "", num(real_bytes - bytes)});
+        t += table(rows, 2);
+        for (const LayerStorage& l : r.layers)
+            if (!l.kept_real.empty()) t += fmt::format("  {}: {}\n", l.name, l.kept_real);
+        if (!any_int) t += "  (every layer stores reals; weights-as int8 or --weights-as int8 stores integers)\n";
+    }
     t += "RAM\n";
     t += fmt::format("  workspace  {:>8} B  workspace_bytes of the emitted header\n", r.workspace_bytes);
     t += fmt::format("  context    {:>8} B  workspace and counters, caller owned\n", r.context_bytes);
@@ -256,6 +275,15 @@ std::string render_cost_json(const CostReport& r) {
         blocks.push_back(o);
     }
     j["blocks"] = blocks;
+    json layers = json::array();
+    for (const LayerStorage& l : r.layers) {
+        json o{{"name", l.name},           {"storage", weight_storage_name(l.storage)}, {"weights", l.weights},
+               {"bytes", l.bytes},         {"float_bytes", l.real_bytes},                {"int8_bytes", l.int8_bytes},
+               {"int16_bytes", l.int16_bytes}};
+        if (!l.kept_real.empty()) o["kept_real"] = l.kept_real;
+        layers.push_back(o);
+    }
+    j["weight_tables"] = layers;
     json total{{"parameters", r.parameters},
                {"weight_bytes", r.weight_bytes},
                {"code_bytes", r.code_bytes},

@@ -13,6 +13,7 @@
 #include <filesystem>
 
 #include "compiler/cost.hpp"
+#include "compiler/deviation.hpp"
 #include "compiler/diff.hpp"
 #include "compiler/dump.hpp"
 #include "compiler/emit.hpp"
@@ -82,6 +83,10 @@ bool flush(const Diagnostics& diags) {
 
 Precision precision_of(const std::string& s) { return s == "float64" ? Precision::float64 : Precision::float32; }
 
+// `--weights-as`: empty keeps what the description asks for.
+using StorageOverride = std::optional<WeightStorage>;
+StorageOverride storage_of(const std::string& s) { return s.empty() ? std::nullopt : weight_storage_from_name(s); }
+
 // Commands that do not handle streaming models yet refuse them plainly.
 bool refuse_stream(const LoadedModel& l, const std::string& path, std::string_view command, Diagnostics& diags) {
     if (!l.model.stream) return false;
@@ -100,8 +105,9 @@ struct LoadedWithRows {
 
 // `float32_inputs`: the rows feed emitted float32 code, so they must fit a float.
 std::optional<LoadedWithRows> load_with_rows(const std::string& path, Precision p, const std::string& input,
-                                             Diagnostics& diags, std::string_view command, bool float32_inputs = false) {
-    auto loaded = load_model(path, p, diags);
+                                             Diagnostics& diags, std::string_view command, bool float32_inputs = false,
+                                             StorageOverride storage = std::nullopt) {
+    auto loaded = load_model(path, p, diags, true, storage);
     if (!loaded || refuse_stream(*loaded, path, command, diags)) return std::nullopt;
     std::vector<int> lines;
     auto rows = read_csv_rows(input, loaded->model.input_size, diags, float32_inputs, &lines, loaded->model.input_name);
@@ -158,10 +164,11 @@ int cmd_tensors(const std::string& file, const std::string& under) {
 // With `expect`: the reference evaluation over `input` against the training
 // framework's outputs for the same rows (compiler/expect.hpp).
 int cmd_check(const std::string& model_path, const std::string& precision, const std::string& input,
-              const std::string& expect, double tolerance) {
+              const std::string& expect, double tolerance, StorageOverride storage) {
     Diagnostics diags;
-    auto loaded = load_model(model_path, precision_of(precision), diags);
+    auto loaded = load_model(model_path, precision_of(precision), diags, true, storage);
     if (!loaded) return flush(diags), kModelError;
+    report_storage_notes(*loaded, diags);
     std::string summary;
     if (!expect.empty() && !check_expected(*loaded, input, expect, tolerance, diags, summary))
         return flush(diags), kModelError;
@@ -179,9 +186,9 @@ int cmd_check(const std::string& model_path, const std::string& precision, const
 // `keep_going`: a row that does not evaluate gets NaN outputs and its result in the
 // last column (`result`: ok, input_not_finite, ...) instead of failing the run.
 int cmd_eval(const std::string& model_path, const std::string& input, const std::string& output, bool stats,
-             const std::string& labels_path, bool keep_going) {
+             const std::string& labels_path, bool keep_going, StorageOverride storage) {
     Diagnostics diags;
-    auto loaded = load_model(model_path, Precision::float64, diags);
+    auto loaded = load_model(model_path, Precision::float64, diags, true, storage);
     if (!loaded) return flush(diags), kModelError;
     const Model& model = loaded->model;
     // One result per row: a row of inputs, or an observation of a sequence file (streaming models).
@@ -325,11 +332,12 @@ std::string render_learn_cost(const Model& model, const EmitOptions& opts, const
 
 int cmd_compile(const std::string& model_path, const std::string& outdir, const std::string& precision, bool c_header,
                 const std::string& self_test, const std::string& dump, const std::string& learn,
-                const std::string& learn_by) {
+                const std::string& learn_by, StorageOverride storage) {
     Diagnostics diags;
     Precision p = precision_of(precision);
-    auto loaded = load_model(model_path, p, diags);
+    auto loaded = load_model(model_path, p, diags, true, storage);
     if (!loaded) return flush(diags), kModelError;
+    report_storage_notes(*loaded, diags);
     EmitOptions opts = emit_options(*loaded, p, c_header);
     if (const int status = resolve_learning(*loaded, model_path, learn, learn_by, opts, diags); status != 0)
         return flush(diags), status;
@@ -439,7 +447,8 @@ int verify_on_boards(const std::vector<std::string>& boards, const VerifyReport&
 }
 
 int cmd_verify(const std::string& model_path, const std::string& input, const std::string& precision, double tol,
-               const std::string& cxx, const std::string& keep, bool show, const std::vector<std::string>& boards) {
+               const std::string& cxx, const std::string& keep, bool show, const std::vector<std::string>& boards,
+               StorageOverride storage, const std::string& labels_path) {
     Diagnostics diags;
     Precision p = precision_of(precision);
     VerifyOptions vo;
@@ -450,7 +459,7 @@ int cmd_verify(const std::string& model_path, const std::string& input, const st
         // A streaming model: its emitted observe() over a sequence file.
         // (Any other model is loaded again below, with its rows; these diagnostics are then dropped.)
         Diagnostics sd;
-        auto loaded = load_model(model_path, p, sd);
+        auto loaded = load_model(model_path, p, sd, true, storage);
         if (loaded && loaded->model.stream) {
             auto rows = read_sequence_file(input, loaded->model.input_size, loaded->model.stream->largest_gap, sd,
                                            p == Precision::float32);
@@ -465,13 +474,31 @@ int cmd_verify(const std::string& model_path, const std::string& input, const st
             }, vo);
         }
     }
-    auto in = load_with_rows(model_path, p, input, diags, "verify", p == Precision::float32);
+    auto in = load_with_rows(model_path, p, input, diags, "verify", p == Precision::float32, storage);
     if (!in) return flush(diags), kModelError;
+    report_storage_notes(in->loaded, diags);
+    std::optional<Labels> labels;
+    if (!labels_path.empty() && !(labels = read_labels(labels_path, in->loaded.model, in->rows.size(), diags)))
+        return flush(diags), kModelError;
+    // Integer weights: what they cost against the same model with real weights, both in eval.
+    std::optional<StorageDeviation> deviation;
+    {
+        StorageDeviation layers = measure_storage_deviation(in->loaded.model, in->loaded.model, in->loaded.storage_notes, p, {}, {});
+        if (layers.any_integer()) {
+            auto real = load_model(model_path, p, diags, true, WeightStorage::real);
+            if (!real) return flush(diags), kModelError;
+            deviation = measure_storage_deviation(in->loaded.model, real->model, in->loaded.storage_notes, p, in->rows, labels);
+        } else if (labels) {
+            diags.warning(labels_path, "the labels serve the weight storage report, and every layer's weights are real here "
+                                       "(ask for integers with weights-as or --weights-as)");
+        }
+    }
     auto rep = verify_model(in->loaded.model, emit_options(in->loaded, p, false), in->rows, vo, diags);
     flush(diags);
     if (!rep) return kModelError;
     if (show) std::fputs(render_verify_rows(*rep).c_str(), stdout);
     std::fputs(render_verify(*rep, p).c_str(), stdout);
+    if (deviation) std::fputs(render_storage_deviation(*deviation, in->loaded.model).c_str(), stdout);
     return verify_on_boards(boards, *rep, p, show, [&](const VerifyOptions& o, Diagnostics& d) {
         return verify_model(in->loaded.model, emit_options(in->loaded, p, false), in->rows, o, d);
     }, vo);
@@ -479,10 +506,10 @@ int cmd_verify(const std::string& model_path, const std::string& input, const st
 
 int cmd_cost(const std::string& model_path, const std::string& input, const std::string& precision,
              const std::string& core, double cycles_per_mac, bool json, bool estimate_only, const std::string& learn,
-             const std::string& learn_by, const std::string& labels_path) {
+             const std::string& learn_by, const std::string& labels_path, StorageOverride storage) {
     Diagnostics diags;
     Precision p = precision_of(precision);
-    auto loaded = load_model(model_path, p, diags);
+    auto loaded = load_model(model_path, p, diags, true, storage);
     if (!loaded) return flush(diags), kModelError;
     CostOptions co;
     co.precision = p;
@@ -547,9 +574,70 @@ int cmd_cost(const std::string& model_path, const std::string& input, const std:
     return 0;
 }
 
+// Bytes of every weight table as the model stores them (integers with their scales) and of the biases.
+long stored_weight_bytes(const Model& m, Precision p) {
+    long n = 0;
+    for_each_model_dense(m, [&](const Dense& d) {
+        n += weight_table_bytes(d, d.storage, p) + (d.has_bias ? d.out * storage_bytes(WeightStorage::real, p) : 0);
+    });
+    return n;
+}
+
+// tune over the weight storage too: each storage's model tuned against the reference
+// of the model with real weights; the choice is the storage with the fewest weight
+// bytes whose every block meets the target, on a tie the fewer field evaluations.
+struct StorageTune {
+    WeightStorage storage = WeightStorage::real;
+    long weight_bytes = 0;
+    TuneReport report;
+    bool meets = false;             // every block has a chosen candidate
+    long field_evals = 0;           // the chosen candidates' worst case, summed over blocks
+};
+
+std::string render_storage_choice(const std::vector<StorageTune>& runs, bool json) {
+    std::optional<std::size_t> best;
+    for (std::size_t i = 0; i < runs.size(); ++i) {
+        if (!runs[i].meets) continue;
+        if (!best || runs[i].weight_bytes < runs[*best].weight_bytes ||
+            (runs[i].weight_bytes == runs[*best].weight_bytes && runs[i].field_evals < runs[*best].field_evals))
+            best = i;
+    }
+    if (json) {
+        std::string o = "{\n  \"storages\": [\n";
+        for (std::size_t i = 0; i < runs.size(); ++i) {
+            std::string rep = render_tune_json(runs[i].report);
+            while (!rep.empty() && rep.back() == '\n') rep.pop_back();
+            o += fmt::format("    {{\"storage\": \"{}\", \"weight_bytes\": {}, \"meets\": {}, \"field_evals\": {}, \"report\": {}}}{}\n",
+                             weight_storage_name(runs[i].storage), runs[i].weight_bytes, runs[i].meets ? "true" : "false",
+                             runs[i].field_evals, rep, i + 1 < runs.size() ? "," : "");
+        }
+        o += fmt::format("  ],\n  \"chosen\": {}\n}}\n",
+                         best ? fmt::format("\"{}\"", weight_storage_name(runs[*best].storage)) : std::string("null"));
+        return o;
+    }
+    std::string o;
+    for (const StorageTune& r : runs)
+        o += fmt::format("==== weights as {} ({} B of weights, scales and biases)\n{}\n", weight_storage_name(r.storage),
+                         r.weight_bytes, render_tune_text(r.report));
+    o += "weight storage and solver (each storage against the reference of the model with real weights)\n";
+    o += fmt::format("  {:<8} {:>12} {:>12}  {}\n", "storage", "weight bytes", "field evals", "meets the target");
+    for (const StorageTune& r : runs)
+        o += fmt::format("  {:<8} {:>12} {:>12}  {}\n", weight_storage_name(r.storage), r.weight_bytes,
+                         r.meets ? std::to_string(r.field_evals) : "-", r.meets ? "yes" : "no");
+    if (best) {
+        o += fmt::format("recommended: weights-as {}", weight_storage_name(runs[*best].storage));
+        for (const TuneBlock& b : runs[*best].report.blocks) o += fmt::format("; {}: {}", b.name, b.solver_line);
+        o += " (the fewest weight bytes that meet the target; a tie goes to the fewer field evaluations)\n";
+    } else {
+        o += "recommended: none (no storage meets the target with the solvers swept)\n";
+    }
+    return o;
+}
+
 int cmd_tune(const std::string& model_path, const std::string& input, const std::string& precision, double target,
              const std::vector<std::string>& methods, int sweep, bool json, const std::string& labels_path,
-             std::optional<double> metric_slack, const std::string& plot_path, bool whole_sweep, int threads) {
+             std::optional<double> metric_slack, const std::string& plot_path, bool whole_sweep, int threads,
+             StorageOverride storage, bool storage_sweep) {
     Diagnostics diags;
     Precision p = precision_of(precision);
     TuneOptions to;
@@ -575,8 +663,9 @@ int cmd_tune(const std::string& model_path, const std::string& input, const std:
             return 0;
         }
     }
-    auto in = load_with_rows(model_path, p, input, diags, "tune");
+    auto in = load_with_rows(model_path, p, input, diags, "tune", false, storage_sweep ? WeightStorage::real : storage);
     if (!in) return flush(diags), kModelError;
+    report_storage_notes(in->loaded, diags);
     if (!labels_path.empty() && !(to.labels = read_labels(labels_path, in->loaded.model, in->rows.size(), diags)))
         return flush(diags), kModelError;
     to.classification = is_classifier(in->loaded.model);
@@ -589,6 +678,42 @@ int cmd_tune(const std::string& model_path, const std::string& input, const std:
                          g.block_index, g.blocks, g.done, g.planned, g.seconds);
             std::fflush(stderr);
         };
+    // Integer weights: the reference comes from the same description with real weights.
+    std::optional<LoadedModel> real;
+    bool integers = false;
+    for_each_model_dense(in->loaded.model, [&](const Dense& d) { integers = integers || d.storage != WeightStorage::real; });
+    if (storage_sweep && !plot_path.empty()) {
+        std::fprintf(stderr, "meander tune: --plot draws one sweep; leave it out with --weights-sweep\n");
+        return kUsageError;
+    }
+    if (storage_sweep || integers) {
+        real = load_model(model_path, p, diags, true, WeightStorage::real);
+        if (!real) return flush(diags), kModelError;
+        to.reference_model = &real->model;
+    }
+    if (storage_sweep) {
+        std::vector<StorageTune> runs;
+        for (WeightStorage st : {WeightStorage::real, WeightStorage::int16, WeightStorage::int8}) {
+            auto m = load_model(model_path, p, diags, true, st);
+            if (!m) return flush(diags), kModelError;
+            auto r = tune_model(m->model, to, diags);
+            if (!r) return flush(diags), kModelError;
+            StorageTune t;
+            t.storage = st;
+            t.weight_bytes = stored_weight_bytes(m->model, p);
+            t.meets = true;
+            for (const TuneBlock& b : r->blocks) {
+                if (!b.chosen) t.meets = false;
+                else t.field_evals += b.candidates[*b.chosen].worst_field_evals;
+            }
+            t.report = std::move(*r);
+            runs.push_back(std::move(t));
+        }
+        if (tty) std::fputs("\n", stderr);
+        flush(diags);
+        std::fputs(render_storage_choice(runs, json).c_str(), stdout);
+        return 0;
+    }
     auto rep = tune_model(in->loaded.model, to, diags);
     if (tty) std::fputs("\n", stderr);
     if (rep && !plot_path.empty() && !write_file_atomic(plot_path, render_tune_svg(*rep), diags)) rep.reset();
@@ -765,6 +890,13 @@ int main(int argc, char** argv) {
     std::vector<std::string> boards;
     double tol = -1.0, cycles_per_mac = -1.0;
     bool stats = false, show = false, c_header = false, json = false, in_place = false, check_only = false, estimate_only = false;
+    std::string weights_as;
+    const auto add_weights_as = [&](CLI::App* sub) {
+        sub->add_option("--weights-as", weights_as,
+                        "store every dense layer's weights as float, int8 or int16 (one scale per row), whatever the "
+                        "description's weights-as says")
+            ->check(CLI::IsMember({"float", "int8", "int16"}));
+    };
 
     auto* check = app.add_subcommand("check", "parse the description, check shapes, read and bind the weights");
     check->add_option("model", model, "description (.mnd)")->required();
@@ -783,6 +915,7 @@ int main(int argc, char** argv) {
                                   kExpectTolerance))
         ->check(kFinitePositive)
         ->needs(check_expect);
+    add_weights_as(check);
 
     auto* eval = app.add_subcommand("eval", "evaluate the model in double precision; CSV in, CSV out");
     eval->add_option("model", model, "description (.mnd)")->required();
@@ -794,6 +927,7 @@ int main(int argc, char** argv) {
     bool keep_going = false;
     eval->add_flag("--keep-going", keep_going,
                    "a row that does not evaluate gets nan outputs and its result in a last column, 'result', instead of failing the run");
+    add_weights_as(eval);
 
     auto* compile = app.add_subcommand("compile", "emit standalone C++ for the model");
     compile->add_option("model", model, "description (.mnd)")->required();
@@ -808,6 +942,7 @@ int main(int argc, char** argv) {
     compile->add_option("--self-test", self_test, "CSV of golden inputs: emit a self-test with eval's outputs for them");
     compile->add_option("--dump", dump, "print an intermediate form: parse, lower, emit")
         ->check(CLI::IsMember({"parse", "lower", "emit"}));
+    add_weights_as(compile);
 
     auto* verify = app.add_subcommand("verify", "build the emitted code with the host compiler and compare it with eval");
     verify->add_option("model", model, "description (.mnd)")->required();
@@ -823,6 +958,10 @@ int main(int argc, char** argv) {
                        "cortex-m7 (qemu-system-arm MPS2 boards), arm-linux (qemu-arm)")
         ->check(CLI::IsMember(verify_boards()));
     verify->add_flag("--show", show, "print every output beside eval's");
+    add_weights_as(verify);
+    verify->add_option("--labels", labels_path,
+                       "CSV of held-out labels, a row per input row: with integer weights, the task metric of the model "
+                       "with real and with integer weights");
 
     auto* cost = app.add_subcommand("cost", "flash, RAM, stack, multiply-accumulates and field evaluations");
     cost->add_option("model", model, "description (.mnd)")->required();
@@ -839,6 +978,7 @@ int main(int argc, char** argv) {
     cost->add_flag("--json", json, "JSON for tools instead of text");
     cost->add_flag("--estimate-only", estimate_only,
                    "do not measure cycles on the emulated cores (no cross build, no emulator run)");
+    add_weights_as(cost);
 
     double target = 1e-4;
     int sweep = 256;
@@ -862,6 +1002,12 @@ int main(int argc, char** argv) {
         ->check(CLI::NonNegativeNumber);
     tune->add_option("--precision", precision, "float32 (default) or float64")->check(CLI::IsMember(precisions));
     tune->add_flag("--json", json, "JSON for tools instead of text");
+    add_weights_as(tune);
+    bool storage_sweep = false;
+    tune->add_flag("--weights-sweep", storage_sweep,
+                   "tune with the weights as float, int16 and int8 in turn (each against the reference of real weights) "
+                   "and recommend the storage with the fewest weight bytes that meets the target")
+        ->excludes("--weights-as");
     std::string plot_path;
     tune->add_option("--plot", plot_path, "also draw deviation (or the metric) against field evaluations as an SVG file");
     auto* tune_labels =
@@ -951,16 +1097,17 @@ int main(int argc, char** argv) {
     }
 
     try {
-        if (*check) return cmd_check(model, precision, input, expect, expect_tol);
-        if (*eval) return cmd_eval(model, input, output, stats, labels_path, keep_going);
-        if (*compile) return cmd_compile(model, outdir, precision, c_header, self_test, dump, learn, learn_by);
-        if (*verify) return cmd_verify(model, input, precision, tol, cxx, keep, show, boards);
+        const StorageOverride storage = storage_of(weights_as);
+        if (*check) return cmd_check(model, precision, input, expect, expect_tol, storage);
+        if (*eval) return cmd_eval(model, input, output, stats, labels_path, keep_going, storage);
+        if (*compile) return cmd_compile(model, outdir, precision, c_header, self_test, dump, learn, learn_by, storage);
+        if (*verify) return cmd_verify(model, input, precision, tol, cxx, keep, show, boards, storage, labels_path);
         if (*cost) return cmd_cost(model, input, precision, core, cycles_per_mac, json, estimate_only, learn, learn_by,
-                                  labels_path);
+                                  labels_path, storage);
         if (*tune)
             return cmd_tune(model, input, precision, target, methods, sweep, json, labels_path,
                             slack_opt->count() ? std::optional<double>(metric_slack) : std::nullopt, plot_path,
-                            whole_sweep, tune_threads);
+                            whole_sweep, tune_threads, storage, storage_sweep);
         if (*refit) return cmd_refit(model, input, refit_out, ra);
         if (*diff) return cmd_diff(model, other, weight_tol, json);
         if (*format) return cmd_format(model, in_place, check_only);

@@ -309,19 +309,27 @@ bool tune_block(const Model& model, std::size_t index, const TuneOptions& opts, 
     out.trained = c.trained;
     const int threads = threads_of(opts);
 
-    std::vector<EvalResult> befores(rows.size());
-    parallel_for(rows.size(), threads, [&](std::size_t r) { befores[r] = evaluate(sp.before, rows[r]); });
-    std::vector<Eigen::VectorXd> xs;
-    for (std::size_t r = 0; r < rows.size(); ++r) {
-        const EvalResult& before = befores[r];
-        if (before.status != EvalStatus::ok) {
-            diags.error(kWhere, fmt::format("input row {}: block {} (before {}) ends with {} under its deployed solver",
-                                            r + 1, before.block, c.name, eval_status_name(before.status)));
-            return false;
+    // The block's inputs: what the blocks before it give, in the model and (when the
+    // model stores integer weights) in the same model with real weights, the reference's.
+    const Split ref_sp = opts.reference_model ? split_at(*opts.reference_model, index) : sp;
+    const auto block_inputs = [&](const Split& from, std::vector<Eigen::VectorXd>& into) {
+        std::vector<EvalResult> befores(rows.size());
+        parallel_for(rows.size(), threads, [&](std::size_t r) { befores[r] = evaluate(from.before, rows[r]); });
+        for (std::size_t r = 0; r < rows.size(); ++r) {
+            const EvalResult& before = befores[r];
+            if (before.status != EvalStatus::ok) {
+                diags.error(kWhere, fmt::format("input row {}: block {} (before {}) ends with {} under its deployed solver",
+                                                r + 1, before.block, c.name, eval_status_name(before.status)));
+                return false;
+            }
+            into.push_back(before.output);
         }
-        xs.push_back(before.output);
-    }
-    befores.clear();
+        return true;
+    };
+    std::vector<Eigen::VectorXd> xs, ref_xs;
+    if (!block_inputs(sp, xs)) return false;
+    if (opts.reference_model && !block_inputs(ref_sp, ref_xs)) return false;
+    const std::vector<Eigen::VectorXd>& reference_inputs = opts.reference_model ? ref_xs : xs;
 
     out.reference.method = "dormand-prince";
     out.reference.rtol = kReferenceTol;
@@ -329,7 +337,8 @@ bool tune_block(const Model& model, std::size_t index, const TuneOptions& opts, 
     out.reference.max_steps = kReferenceMaxSteps;
     out.reference.written = {"rtol", "atol", "max-steps"};
     std::vector<Run> ref_runs(xs.size());
-    parallel_for(xs.size(), threads, [&](std::size_t r) { ref_runs[r] = run_block(sp, xs[r], out.reference); });
+    parallel_for(xs.size(), threads,
+                 [&](std::size_t r) { ref_runs[r] = run_block(ref_sp, reference_inputs[r], out.reference); });
     std::vector<Eigen::VectorXd> refs;
     for (std::size_t r = 0; r < xs.size(); ++r) {
         const Run& run = ref_runs[r];

@@ -51,6 +51,10 @@ struct TuneOptions {
     bool whole_sweep = false;
     // Threads for the rows (0: every core). The report does not depend on it.
     int threads = 0;
+    // The same description with real weights when `model` stores some as integers
+    // (load_model's storage argument): the reference then comes from it, so each
+    // candidate's deviation holds the integer weights' error beside the solver's.
+    const Model* reference_model = nullptr;
     // Called after each candidate (and the reference) of each block, from the calling thread.
     std::function<void(const TuneProgress&)> progress;
 };
