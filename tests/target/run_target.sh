@@ -27,6 +27,13 @@
 #   cost            `meander cost --json` states the code bytes arm-none-eabi-size
 #                   and the entry frame the .su file give for the emitted object,
 #                   and the header's workspace_bytes
+#   cortex-m4f-int8 | cortex-m3-int8
+#                   as cortex-m4f / cortex-m3 with every layer's weights as int8
+#                   (--weights-as int8), compared with `meander eval --weights-as
+#                   int8` (the quantised model's reference) instead of expected.csv
+#   flash-int8      the emitted object for the Cortex-M4F (-Os) with float and with
+#                   int8 weights: .text and .rodata from arm-none-eabi-size; fails
+#                   unless the int8 object is smaller
 #
 # The run modes compare every printed output with the sample's expected.csv
 # (outputs of `meander eval`, double precision): an output passes when
@@ -84,9 +91,16 @@ precision=float32
 if [ "$precision" = float32 ]; then tol_default=1e-4; else tol_default=1e-10; fi
 tol=${MEANDER_TARGET_TOL:-$tol_default}
 
+# Integer weight modes: the storage, and the plain mode they run as.
+storage_args=()
 case "$mode" in
-    cortex-m4f|cortex-m3|cortex-m7|image|stack|warnings-arm|contracting-m4f) need arm-none-eabi-g++ ;;
+    cortex-m4f-int8|cortex-m3-int8) storage_args=(--weights-as int8) ;;
+esac
+
+case "$mode" in
+    cortex-m4f|cortex-m3|cortex-m7|image|stack|warnings-arm|contracting-m4f|cortex-m4f-int8|cortex-m3-int8) need arm-none-eabi-g++ ;;
     contracting-host) need g++ objdump ;;
+    flash-int8) need arm-none-eabi-g++ arm-none-eabi-size ;;
     cost) need arm-none-eabi-g++ arm-none-eabi-size ;;
     arm-linux|arm-linux-f64) need arm-linux-gnueabihf-g++ qemu-arm ;;
     warnings-gcc|host-gcc) need g++ ;;
@@ -96,7 +110,7 @@ case "$mode" in
     *) echo "run_target.sh: unknown mode '$mode'" >&2; exit 2 ;;
 esac
 case "$mode" in
-    cortex-m4f|cortex-m3|cortex-m7|contracting-m4f) need qemu-system-arm ;;
+    cortex-m4f|cortex-m3|cortex-m7|contracting-m4f|cortex-m4f-int8|cortex-m3-int8) need qemu-system-arm ;;
     image) need arm-none-eabi-nm ;;
 esac
 command -v timeout > /dev/null 2>&1 || { echo "SKIP: timeout (coreutils) is not installed"; exit 77; }
@@ -138,10 +152,15 @@ mkdir -p "$work/gen" || fail "cannot create $work"
 inputs=$sample_dir/inputs.csv
 expected=$sample_dir/expected.csv
 [ -f "$inputs" ] || fail "$inputs is missing"
+if [ ${#storage_args[@]} -gt 0 ]; then
+    # The quantised model's own reference: eval with the same integers and scales.
+    expected=$work/expected-int8.csv
+    run "$meander" eval "$mnd" --input "$inputs" "${storage_args[@]}" --output "$expected" || fail "meander eval failed"
+fi
 
 streaming=0
 sed -e 's/#.*//' "$mnd" | grep -Eq '^[[:space:]]*state[[:space:]]' && streaming=1
-run "$meander" compile "$mnd" -o "$work/gen" --self-test "$inputs" --precision "$precision" ||
+run "$meander" compile "$mnd" -o "$work/gen" --self-test "$inputs" --precision "$precision" "${storage_args[@]}" ||
     fail "meander compile failed"
 for f in "$name.hpp" "$name.cpp" "${name}_selftest.hpp" "${name}_selftest.cpp"; do
     [ -f "$work/gen/$f" ] || fail "meander compile did not write $f"
@@ -198,7 +217,7 @@ compare() {
     # header naming the columns). In float64 the emitted code must take the
     # very same steps; in float32 rounding may tip an adaptive step decision,
     # so differing rows are only counted.
-    "$meander" eval "$mnd" --input "$inputs" --stats > /dev/null 2> "$work/eval.stats" ||
+    "$meander" eval "$mnd" --input "$inputs" --stats "${storage_args[@]}" > /dev/null 2> "$work/eval.stats" ||
         fail "meander eval --stats failed"
     awk -v streaming="$streaming" -v tol="$tol" -v rows_file="$work/expected.rows" -v stats_file="$work/eval.stats" -v strict="$([ "$precision" = float64 ] && echo 1 || echo 0)" '
         function abs(x) { return x < 0 ? -x : x }
@@ -309,8 +328,8 @@ contracting-m4f)
     contract=-ffp-contract=fast
     board mps2-an386 "${m4f_flags[@]}"
     ;;
-cortex-m4f) board mps2-an386 "${m4f_flags[@]}" ;;
-cortex-m3)  board mps2-an385 "${m3_flags[@]}" ;;
+cortex-m4f|cortex-m4f-int8) board mps2-an386 "${m4f_flags[@]}" ;;
+cortex-m3|cortex-m3-int8)  board mps2-an385 "${m3_flags[@]}" ;;
 cortex-m7)  board mps2-an500 "${m7_flags[@]}" ;;
 arm-linux|arm-linux-f64)
     write_inputs
@@ -381,6 +400,25 @@ stack)
         fi
     done
     [ "$status" -eq 0 ] || fail "some emitted function's stack use is not static"
+    echo "PASS: $mode"
+    ;;
+flash-int8)
+    # The same object with float and with int8 weights (layers too small to gain stay float).
+    mkdir -p "$work/gen-int8"
+    run "$meander" compile "$mnd" -o "$work/gen-int8" --weights-as int8 || fail "meander compile --weights-as int8 failed"
+    for kind in gen gen-int8; do
+        run arm-none-eabi-g++ "${m4f_flags[@]}" "${common_cross[@]}" -c "$work/$kind/$name.cpp" -o "$work/$kind.o" ||
+            fail "cross build of $kind/$name.cpp failed"
+    done
+    sizes() { arm-none-eabi-size -A "$1" | awk '$1 ~ /^\.text/ { t += $2 } $1 ~ /^\.rodata/ { r += $2 } END { print t + 0, r + 0 }'; }
+    read -r text_f rodata_f <<< "$(sizes "$work/gen.o")"
+    read -r text_q rodata_q <<< "$(sizes "$work/gen-int8.o")"
+    total_f=$((text_f + rodata_f))
+    total_q=$((text_q + rodata_q))
+    echo "float: .text $text_f B, .rodata $rodata_f B, $total_f B"
+    echo "int8:  .text $text_q B, .rodata $rodata_q B, $total_q B"
+    echo "saved: $((total_f - total_q)) B of $total_f B ($(awk -v a="$total_f" -v b="$total_q" 'BEGIN { printf "%.1f", 100 * (a - b) / a }')%)"
+    [ "$total_q" -lt "$total_f" ] || fail "int8 weights do not make the object smaller"
     echo "PASS: $mode"
     ;;
 cost)
