@@ -24,7 +24,11 @@ state is zero where a sequence begins.
 
 With --meander BIN it also runs `BIN eval <name>.mnd --input inputs.csv` and
 compares the numbers it prints (one row of outputs per input row) with
-expected.csv.
+expected.csv; and, for integer weight storage, quantises every weight matrix of
+16 or more weights here, row by row as grammar/LANGUAGE.md "Weight storage"
+states it (scale max|w| / 127 or / 32767, q rounded to nearest with ties away
+from zero, the weight taken as q * scale), runs the same forward pass and
+compares it with `BIN eval ... --weights-as int8` (and int16).
 
 Exit status 0 when every comparison is within tolerance, 1 otherwise.
 """
@@ -324,12 +328,29 @@ def read_tensors(path):
     raise ValueError(f"{path}: no reader for this weights file here")
 
 
+def quantised(w, top):
+    """Row by row: q = round(w / s), ties away from zero, s = max|w| / top; returns q * s."""
+    out = np.zeros_like(w)
+    for j, row in enumerate(w):
+        s = np.max(np.abs(row)) / top
+        if s == 0:
+            continue
+        x = row / s
+        q = np.clip(np.where(x >= 0, np.floor(x + 0.5), -np.floor(-x + 0.5)), -top, top)
+        out[j] = q * s
+    return out
+
+
 class Model:
-    def __init__(self, mnd_path):
+    def __init__(self, mnd_path, top=None):
         with open(mnd_path) as fh:
             self.m = Parser(fh.read()).model()
         wpath = os.path.join(os.path.dirname(mnd_path), self.m["weights"])
         self.tensors = read_tensors(wpath)
+        if top:
+            for k, t in self.tensors.items():
+                if t.ndim == 2 and t.size >= 16:
+                    self.tensors[k] = quantised(t, top)
         self.used = set()
         self.attempts = {}
 
@@ -529,6 +550,17 @@ def check(name, meander=None):
             ok = False
         else:
             ok &= compare("meander eval vs expected.csv", numeric_rows(r.stdout), want)
+        for storage, top in (("int8", 127), ("int16", 32767)):
+            qmodel = Model(mnd, top)
+            qgot = np.array(qmodel.sequences(x) if m["state"] else [qmodel(row) for row in x])
+            r = subprocess.run([meander, "eval", mnd, "--input", os.path.join(folder, "inputs.csv"), "--weights-as", storage],
+                               capture_output=True, text=True, cwd=folder)
+            if r.returncode != 0:
+                print(f"  meander eval --weights-as {storage} exited {r.returncode}: {r.stderr.strip()}: FAIL")
+                ok = False
+            else:
+                ok &= compare(f"meander eval --weights-as {storage} vs this forward pass with {storage} weights",
+                              numeric_rows(r.stdout), qgot)
     return ok
 
 
