@@ -2,6 +2,7 @@
 
 #include <fmt/format.h>
 
+#include <algorithm>
 #include <cmath>
 
 #include "../runtime/evaluate.hpp"
@@ -17,6 +18,18 @@ bool StorageDeviation::any_integer() const {
 StorageDeviation measure_storage_deviation(const Model& quantised, const Model& real, const std::vector<StorageNote>& notes,
                                            Precision p, const std::vector<std::vector<double>>& inputs,
                                            const std::optional<Labels>& labels) {
+    std::vector<EvalResult> q, f;
+    for (const auto& row : inputs) {
+        const Eigen::Map<const Eigen::VectorXd> x(row.data(), static_cast<Eigen::Index>(row.size()));
+        q.push_back(evaluate(quantised, x));
+        f.push_back(evaluate(real, x));
+    }
+    return storage_deviation_of(quantised, notes, p, q, f, labels);
+}
+
+StorageDeviation storage_deviation_of(const Model& quantised, const std::vector<StorageNote>& notes, Precision p,
+                                      const std::vector<EvalResult>& quantised_results,
+                                      const std::vector<EvalResult>& real_results, const std::optional<Labels>& labels) {
     StorageDeviation d;
     for_each_model_dense(quantised, [&](const Dense& l) {
         StorageDeviation::Layer row;
@@ -36,10 +49,9 @@ StorageDeviation measure_storage_deviation(const Model& quantised, const Model& 
     std::vector<Eigen::VectorXd> out_q, out_f;
     Labels kept;
     if (labels) kept.path = labels->path;
-    for (std::size_t r = 0; r < inputs.size(); ++r) {
-        const Eigen::Map<const Eigen::VectorXd> x(inputs[r].data(), static_cast<Eigen::Index>(inputs[r].size()));
-        const EvalResult q = evaluate(quantised, x);
-        const EvalResult f = evaluate(real, x);
+    for (std::size_t r = 0; r < quantised_results.size() && r < real_results.size(); ++r) {
+        const EvalResult& q = quantised_results[r];
+        const EvalResult& f = real_results[r];
         if (q.status != EvalStatus::ok || f.status != EvalStatus::ok) {
             ++d.failed_rows;
             continue;

@@ -8,6 +8,7 @@
 #include <string>
 #include <vector>
 
+#include "../runtime/evaluate.hpp"
 #include "../runtime/model.hpp"
 #include "labels.hpp"
 #include "quantise.hpp"
@@ -36,6 +37,12 @@ struct StorageDeviation {
 StorageDeviation measure_storage_deviation(const Model& quantised, const Model& real, const std::vector<StorageNote>& notes,
                                            Precision p, const std::vector<std::vector<double>>& inputs,
                                            const std::optional<Labels>& labels);
+
+// The same for results already computed: `quantised` and `real` hold one result per
+// row (a streaming model's observations through evaluate_sequences).
+StorageDeviation storage_deviation_of(const Model& quantised, const std::vector<StorageNote>& notes, Precision p,
+                                      const std::vector<EvalResult>& quantised_results,
+                                      const std::vector<EvalResult>& real_results, const std::optional<Labels>& labels);
 
 std::string render_storage_deviation(const StorageDeviation& d, const Model& model);
 

@@ -464,11 +464,24 @@ int cmd_verify(const std::string& model_path, const std::string& input, const st
             auto rows = read_sequence_file(input, loaded->model.input_size, loaded->model.stream->largest_gap, sd,
                                            p == Precision::float32);
             if (!rows) return flush(sd), kModelError;
+            report_storage_notes(*loaded, sd);
+            std::optional<StorageDeviation> deviation;
+            if (measure_storage_deviation(loaded->model, loaded->model, loaded->storage_notes, p, {}, {}).any_integer()) {
+                auto real = load_model(model_path, p, sd, true, WeightStorage::real);
+                if (!real) return flush(sd), kModelError;
+                std::optional<Labels> labels;
+                if (!labels_path.empty() && !(labels = read_labels(labels_path, loaded->model, rows->size(), sd)))
+                    return flush(sd), kModelError;
+                deviation = storage_deviation_of(loaded->model, loaded->storage_notes, p,
+                                                 evaluate_sequences(loaded->model, *rows),
+                                                 evaluate_sequences(real->model, *rows), labels);
+            }
             auto rep = verify_stream(loaded->model, emit_options(*loaded, p, false), *rows, vo, sd);
             flush(sd);
             if (!rep) return kModelError;
             if (show) std::fputs(render_verify_rows(*rep).c_str(), stdout);
             std::fputs(render_verify(*rep, p).c_str(), stdout);
+            if (deviation) std::fputs(render_storage_deviation(*deviation, loaded->model).c_str(), stdout);
             return verify_on_boards(boards, *rep, p, show, [&](const VerifyOptions& o, Diagnostics& d) {
                 return verify_stream(loaded->model, emit_options(*loaded, p, false), *rows, o, d);
             }, vo);
