@@ -1,0 +1,121 @@
+// Integer weight storage from the command line: the layers kept real and
+// why, a row of zeros, a non-finite weight, a storage that does not exist,
+// eval's arithmetic, and the reports of verify and cost.
+#include <gtest/gtest.h>
+
+#include <cmath>
+#include <sstream>
+#include <string>
+
+#include "test_support.hpp"
+
+using namespace meander::test;
+
+namespace {
+
+meander::test::RunResult meander_run(const std::string& args) { return run(std::string(MEANDER_BINARY) + " " + args); }
+
+// tiny: 2 -> 3 (6 weights, under the 16 below which a layer stays real);
+// big: 3 -> 8 with its row 2 all zero; weights invented: w = (i + 2 j) / 10 - 1.
+const char* kListing = R"(meander-weights 1
+tensor tiny.weight float32 3 2
+-1 -0.8
+-0.9 -0.7
+-0.8 -0.6
+tensor tiny.bias float32 3
+0.1 0.2 0.3
+tensor big.weight float32 8 3
+-1 -0.8 -0.6
+-0.9 -0.7 -0.5
+0 0 0
+-0.7 -0.5 -0.3
+-0.6 -0.4 -0.2
+-0.5 -0.3 -0.1
+-0.4 -0.2 0
+-0.3 -0.1 0.1
+tensor big.bias float32 8
+0 0 0 0 0 0 0 0
+)";
+
+std::filesystem::path small_model(const std::string& name, const std::string& storage_lines, const std::string& listing = kListing) {
+    const auto dir = scratch_dir("quantise_commands", name);
+    write_text(dir / "w.mnw", listing);
+    write_text(dir / "m.mnd", "model small\nweights \"w.mnw\"\n" + storage_lines +
+                                  "input x[2]\ndense tiny: 2 -> 3, tanh\ndense big: 3 -> 8\noutput y[8]\n");
+    write_text(dir / "in.csv", "0.5,-0.25\n1,2\n-3,0.125\n");
+    return dir;
+}
+
+}  // namespace
+
+TEST(QuantiseCommands, SmallLayerAndZeroRowAreStated) {
+    const auto dir = small_model("notes", "");
+    const auto r = meander_run("compile " + (dir / "m.mnd").string() + " -o " + (dir / "out").string() + " --weights-as int8");
+    EXPECT_EQ(r.status, 0) << r.output;
+    EXPECT_NE(r.output.find("m.mnd:4:7: note: layer 'tiny': kept in float32: 6 weights, fewer than the 16 below which int8 "
+                            "scales and code take more flash than they save"),
+              std::string::npos)
+        << r.output;
+    EXPECT_NE(r.output.find("m.mnd:5:7: note: layer 'big': row 2 all zero: scale 0, stored exactly"), std::string::npos)
+        << r.output;
+    const std::string cpp = read_text(dir / "out" / "small.cpp");
+    EXPECT_NE(cpp.find("const real w_tiny[6]"), std::string::npos);
+    EXPECT_NE(cpp.find("const std::int8_t w_big[24]"), std::string::npos);
+    // Row 2's scale is 0; row 0's is 1/127 (its largest magnitude is 1), printed shortest for float.
+    EXPECT_NE(cpp.find("const real s_big[8]"), std::string::npos);
+    EXPECT_NE(cpp.find("0.007874016f"), std::string::npos);
+}
+
+TEST(QuantiseCommands, NonFiniteWeightIsRefusedAtBinding) {
+    std::string listing = kListing;
+    listing.replace(listing.find("-0.7 -0.5 -0.3"), 4, "nan ");
+    const auto dir = small_model("nan", "", listing);
+    const auto r = meander_run("compile " + (dir / "m.mnd").string() + " -o " + (dir / "out").string() + " --weights-as int8");
+    EXPECT_EQ(r.status, 1) << r.output;
+    EXPECT_NE(r.output.find("layer 'big': tensor 'big.weight' holds NaN at flat index 9 [3, 0]"), std::string::npos) << r.output;
+    EXPECT_FALSE(std::filesystem::exists(dir / "out" / "small.cpp"));
+}
+
+TEST(QuantiseCommands, UnknownStorageIsAUsageError) {
+    const auto dir = small_model("usage", "");
+    const auto r = meander_run("compile " + (dir / "m.mnd").string() + " -o " + (dir / "out").string() + " --weights-as int4");
+    EXPECT_EQ(r.status, 2) << r.output;
+    EXPECT_NE(r.output.find("int4"), std::string::npos) << r.output;
+}
+
+// eval --weights-as int8 by hand for row 0 of big (tiny stays real): the row
+// [-1, -0.8, -0.6] has scale 1/127, q = [-127, -102 (-101.6), -76 (-76.2)].
+TEST(QuantiseCommands, EvalUsesTheIntegers) {
+    const auto dir = small_model("eval", "");
+    const auto r = meander_run("eval " + (dir / "m.mnd").string() + " --input " + (dir / "in.csv").string() +
+                               " --weights-as int8");
+    ASSERT_EQ(r.status, 0) << r.output;
+    // Row 1 of in.csv: x = (0.5, -0.25); tiny: tanh(W x + b) with the real weights.
+    // The listing's values are float32: the weights are those floats.
+    const auto f = [](float v) { return static_cast<double>(v); };
+    const double h0 = std::tanh((f(-1.0f) * 0.5 + f(-0.8f) * -0.25) + f(0.1f)),
+                 h1 = std::tanh((f(-0.9f) * 0.5 + f(-0.7f) * -0.25) + f(0.2f)),
+                 h2 = std::tanh((f(-0.8f) * 0.5 + f(-0.6f) * -0.25) + f(0.3f));
+    const double s = 1.0 / 127;
+    const double y0 = ((-127 * s) * h0 + (-102 * s) * h1) + (-76 * s) * h2;
+    std::istringstream lines(r.output);
+    std::string header, first;
+    std::getline(lines, header);
+    std::getline(lines, first);
+    EXPECT_NEAR(std::stod(first.substr(0, first.find(','))), y0, 1e-15);
+}
+
+TEST(QuantiseCommands, VerifyAndCostReportTheStorage) {
+    const auto dir = small_model("reports", "");
+    const auto v = meander_run("verify " + (dir / "m.mnd").string() + " --input " + (dir / "in.csv").string() +
+                               " --weights-as int8 --precision float64");
+    EXPECT_EQ(v.status, 0) << v.output;
+    EXPECT_NE(v.output.find("required             equal bits for every output, equal counters"), std::string::npos);
+    EXPECT_NE(v.output.find("verdict              agrees"), std::string::npos) << v.output;
+    // big as int8: 24 weights and 8 float64 scales, 88 B against 192 B as reals; tiny stays real (48 B).
+    EXPECT_NE(v.output.find("weights and scales 136 B, as reals 240 B: 104 B saved (43.3%)"), std::string::npos) << v.output;
+    const auto c = meander_run("cost " + (dir / "m.mnd").string() + " --weights-as int8 --estimate-only");
+    EXPECT_EQ(c.status, 0) << c.output;
+    EXPECT_NE(c.output.find("weight tables per dense layer"), std::string::npos) << c.output;
+    EXPECT_NE(c.output.find("tiny: kept in float32: 6 weights"), std::string::npos) << c.output;
+}
