@@ -667,6 +667,11 @@ int cmd_tune(const std::string& model_path, const std::string& input, const std:
         Diagnostics sd;
         auto loaded = load_model(model_path, p, sd);
         if (loaded && loaded->model.stream) {
+            if (storage || storage_sweep) {
+                std::fprintf(stderr, "meander tune: --weights-as and --weights-sweep do not handle streaming models yet (the "
+                                     "description's weights-as statements apply)\n");
+                return kUsageError;
+            }
             auto rows = read_sequence_file(input, loaded->model.input_size, loaded->model.stream->largest_gap, sd);
             if (!rows) return flush(sd), kModelError;
             auto rep = tune_stream(loaded->model, *rows, to, sd);
