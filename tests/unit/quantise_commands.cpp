@@ -7,6 +7,8 @@
 #include <sstream>
 #include <string>
 
+#include <fmt/format.h>
+
 #include "test_support.hpp"
 
 using namespace meander::test;
@@ -118,4 +120,29 @@ TEST(QuantiseCommands, VerifyAndCostReportTheStorage) {
     EXPECT_EQ(c.status, 0) << c.output;
     EXPECT_NE(c.output.find("weight tables per dense layer"), std::string::npos) << c.output;
     EXPECT_NE(c.output.find("tiny: kept in float32: 6 weights"), std::string::npos) << c.output;
+}
+
+// tune over the storage: three sweeps, each against the real-weight reference,
+// and a table whose weight bytes fall from float to int16 to int8.
+TEST(QuantiseCommands, TuneSweepsTheStorage) {
+    const std::string sample = std::string(MEANDER_SOURCE_DIR) + "/samples/boiler_ahead/boiler_ahead.mnd";
+    const std::string inputs = std::string(MEANDER_SOURCE_DIR) + "/samples/boiler_ahead/inputs.csv";
+    const auto r = meander_run("tune " + sample + " --input " + inputs +
+                               " --method rk4 --max-steps-sweep 4 --target 1e-2 --weights-sweep --threads 1");
+    ASSERT_EQ(r.status, 0) << r.output;
+    long bytes[3] = {0, 0, 0};
+    const char* names[3] = {"float", "int16", "int8"};
+    for (int i = 0; i < 3; ++i) {
+        const std::string head = fmt::format("==== weights as {} (", names[i]);
+        const auto at = r.output.find(head);
+        ASSERT_NE(at, std::string::npos) << r.output;
+        bytes[i] = std::stol(r.output.substr(at + head.size()));
+    }
+    EXPECT_GT(bytes[0], bytes[1]);
+    EXPECT_GT(bytes[1], bytes[2]);
+    EXPECT_NE(r.output.find("weight storage and solver (each storage against the reference of the model with real weights)"),
+              std::string::npos);
+    EXPECT_NE(r.output.find("recommended: "), std::string::npos);
+    // int8 moves boiler_ahead's outputs by up to 0.06 of max(1, |output|) (README): it cannot meet 1e-2.
+    EXPECT_NE(r.output.find(fmt::format("  {:<8} {:>12} {:>12}  no\n", "int8", bytes[2], "-")), std::string::npos) << r.output;
 }
