@@ -87,7 +87,7 @@ namespace {
 namespace pegtl = tao::pegtl;
 namespace g = grammar;
 
-enum class Kind { model, weights, ignore, learn, input, output, dense, augment, numbered, layout, solver, trained, header, close, state, gated, merge };
+enum class Kind { model, weights, ignore, learn, input, output, dense, augment, numbered, layout, storage, solver, trained, header, close, state, gated, merge };
 
 struct Record {
     Kind kind;
@@ -120,6 +120,7 @@ template <> struct layout_action<g::ignore_line> : record_action<Kind::ignore> {
 template <> struct layout_action<g::learn_line> : record_action<Kind::learn> {};
 template <> struct layout_action<g::numbered_line> : record_action<Kind::numbered> {};
 template <> struct layout_action<g::layout_line> : record_action<Kind::layout> {};
+template <> struct layout_action<g::storage_line> : record_action<Kind::storage> {};
 template <> struct layout_action<g::solver_line> : record_action<Kind::solver> {};
 template <> struct layout_action<g::trained_line> : record_action<Kind::trained> {};
 template <> struct layout_action<g::close_brace> : record_action<Kind::close> {};
@@ -211,6 +212,7 @@ std::string dense_options(const Dense& d, bool block_transposed, bool block_time
     if (!d.has_bias) out += ", no-bias";
     if (d.transposed && !block_transposed) out += ", transposed";
     if (d.time_first && !block_time_first) out += ", time-first";
+    if (d.storage_asked) out += fmt::format(", weights-as {}", weight_storage_name(d.storage_asked->storage));
     return out;
 }
 
@@ -219,7 +221,7 @@ class Printer {
 public:
     Printer(const Source& src, const Model& model, const Layout& layout) : src_(src), model_(model), layout_(layout) {
         comment_ = layout_.comments.begin();
-        cursors_.push_back(Cursor{&model_.blocks, 0, nullptr, &model_.tensors});
+        cursors_.push_back(Cursor{&model_.blocks, 0, nullptr, &model_.tensors, &model_.storage_asked});
     }
 
     std::string run() {
@@ -261,6 +263,7 @@ private:
         std::size_t next;
         const Continuous* continuous;   // the block whose body this is, if continuous
         const BodyTensors* tensors = nullptr;  // the block's numbered and layout statements (none at the top)
+        const std::optional<StorageChoice>* storage = nullptr;  // the block's weights-as statement (the model's at the top)
     };
 
     int line_of(std::size_t offset) const { return src_.loc_of(offset).line; }
@@ -318,6 +321,7 @@ private:
                 if (c.tensors->time_first) out += ", time-first";
                 return "layout " + out.substr(2);
             }
+            case Kind::storage: return fmt::format("weights-as {}", weight_storage_name((*c.storage)->storage));
             case Kind::input:
                 return fmt::format("input {}[{}]", model_.input_name, model_.input_size) + vector_options(model_.input_info);
             case Kind::output:
@@ -359,17 +363,17 @@ private:
                     // A streaming model's first block is its evolution, kept apart from the readout.
                     evolve_done_ = true;
                     const Continuous& k = model_.stream->evolve;
-                    cursors_.push_back(Cursor{&k.field, 0, &k, &k.tensors});
+                    cursors_.push_back(Cursor{&k.field, 0, &k, &k.tensors, &k.storage_asked});
                     if (k.blend) return fmt::format("blend {}: {} {{", k.name, k.width);
                     return fmt::format("continuous {}: {}, t in [{}, gap] {{", k.name, k.width, format_number(k.t0));
                 }
                 const Block& b = (*c.body)[c.next++];
                 if (b.kind == Block::Kind::residual) {
-                    cursors_.push_back(Cursor{&b.residual.body, 0, nullptr, &b.residual.tensors});
+                    cursors_.push_back(Cursor{&b.residual.body, 0, nullptr, &b.residual.tensors, &b.residual.storage_asked});
                     return fmt::format("residual {}: {} {{", b.residual.name, b.residual.width);
                 }
                 const Continuous& k = b.continuous;
-                cursors_.push_back(Cursor{&k.field, 0, &k, &k.tensors});
+                cursors_.push_back(Cursor{&k.field, 0, &k, &k.tensors, &k.storage_asked});
                 return fmt::format("continuous {}: {}, t in [{}, {}] {{", k.name, k.width, format_number(k.t0), format_number(k.t1));
             }
             case Kind::close: cursors_.pop_back(); return "}";

@@ -21,6 +21,7 @@
 #include "../grammar/errors.hpp"
 #include "../grammar/meander.hpp"
 #include "parse/actions_blocks.hpp"
+#include "parse/actions_storage.hpp"
 #include "parse/actions_layers.hpp"
 #include "parse/actions_solver.hpp"
 #include "parse/actions_stream.hpp"

@@ -13,8 +13,8 @@ inline constexpr const char* error_message = nullptr;
 
 // Statements
 template<> inline constexpr const char* error_message< model_first > = "expected 'model NAME' as the first statement";
-template<> inline constexpr const char* error_message< top_statement > = "expected a statement: weights, ignore, learn, input, state, dense, residual, continuous, blend, gated, merge or output";
-template<> inline constexpr const char* error_message< body_statement > = "expected a statement inside the block: dense, residual, augment, numbered, layout, solver, trained-with or '}'";
+template<> inline constexpr const char* error_message< top_statement > = "expected a statement: weights, weights-as, ignore, learn, input, state, dense, residual, continuous, blend, gated, merge or output";
+template<> inline constexpr const char* error_message< body_statement > = "expected a statement inside the block: dense, residual, augment, numbered, layout, weights-as, solver, trained-with or '}'";
 template<> inline constexpr const char* error_message< statement_end > = "expected the end of the statement";
 template<> inline constexpr const char* error_message< learn_what > = "expected what learns after 'learn': biases, head, all, or layers NAME, NAME ...";
 template<> inline constexpr const char* error_message< learn_layer > = "expected the name of a layer or block to learn";
@@ -89,7 +89,9 @@ template<> inline constexpr const char* error_message< obs_width > = "expected t
 template<> inline constexpr const char* error_message< steps_per_unit_value > = "expected a number after 'steps-per-unit'";
 
 // Layer options
-template<> inline constexpr const char* error_message< dense_option > = "expected a layer option: an activation (identity, relu, leaky-relu, tanh, sigmoid, softplus, silu, gelu, elu, softmax), 'weight', 'bias', 'from', 'no-bias', 'transposed' or 'time-first'";
+template<> inline constexpr const char* error_message< dense_option > = "expected a layer option: an activation (identity, relu, leaky-relu, tanh, sigmoid, softplus, silu, gelu, elu, softmax), 'weight', 'bias', 'from', 'no-bias', 'transposed', 'time-first' or 'weights-as'";
+template<> inline constexpr const char* error_message< storage_name > = "expected a weight storage: 'float', 'int8' or 'int16' (integers with one scale per output row)";
+template<> inline constexpr const char* error_message< storage_line_name > = "expected a weight storage: 'float', 'int8' or 'int16' (integers with one scale per output row)";
 template<> inline constexpr const char* error_message< layout_option > = "expected a layout: 'transposed' (weights stored (in, out)) or 'time-first' (the time column first)";
 
 // Solver lines

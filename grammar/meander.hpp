@@ -86,6 +86,11 @@ struct kw_pi_alpha : seq< TAO_PEGTL_STRING( "pi-alpha" ), word_end > {};
 struct kw_pi_beta : seq< TAO_PEGTL_STRING( "pi-beta" ), word_end > {};
 struct kw_integral : seq< TAO_PEGTL_STRING( "integral" ), word_end > {};
 struct kw_pi : seq< TAO_PEGTL_STRING( "pi" ), word_end > {};
+// Weight storage
+struct kw_weights_as : seq< TAO_PEGTL_STRING( "weights-as" ), word_end > {};
+struct kw_float : seq< TAO_PEGTL_STRING( "float" ), word_end > {};
+struct kw_int8 : seq< TAO_PEGTL_STRING( "int8" ), word_end > {};
+struct kw_int16 : seq< TAO_PEGTL_STRING( "int16" ), word_end > {};
 // Streaming models
 struct kw_state : seq< TAO_PEGTL_STRING( "state" ), word_end > {};
 struct kw_largest_gap : seq< TAO_PEGTL_STRING( "largest-gap" ), word_end > {};
@@ -106,7 +111,7 @@ struct kw_by : seq< TAO_PEGTL_STRING( "by" ), word_end > {};
 struct kw_layers : seq< TAO_PEGTL_STRING( "layers" ), word_end > {};
 
 // Words that begin a statement; skipping after an error stops before them.
-struct statement_keyword : sor< kw_model, kw_weights, kw_ignore, kw_learn, kw_input, kw_output, kw_dense, kw_residual, kw_continuous, kw_augment, kw_numbered, kw_layout, kw_solver, kw_trained_with, kw_state, kw_gated, kw_merge, kw_blend > {};
+struct statement_keyword : sor< kw_model, kw_weights, kw_weights_as, kw_ignore, kw_learn, kw_input, kw_output, kw_dense, kw_residual, kw_continuous, kw_augment, kw_numbered, kw_layout, kw_solver, kw_trained_with, kw_state, kw_gated, kw_merge, kw_blend > {};
 // Statements that cannot appear inside a block: meeting one there means a '}' is missing.
 struct top_only_keyword : sor< kw_model, kw_weights, kw_ignore, kw_learn, kw_input, kw_output, kw_continuous, kw_state, kw_gated, kw_merge, kw_blend > {};
 // A statement ends at the end of its line, or where the next statement (or a '}') begins;
@@ -187,7 +192,9 @@ struct from_option : seq< kw_from, sep, must< from_prefix > > {};
 struct no_bias_option : kw_no_bias {};
 struct transposed_option : kw_transposed {};
 struct time_first_option : kw_time_first {};
-struct dense_option : sor< activation_option, weight_option, bias_option, from_option, no_bias_option, transposed_option, time_first_option > {};
+struct storage_name : sor< kw_float, kw_int8, kw_int16 > {};
+struct storage_option : seq< kw_weights_as, sep, must< storage_name > > {};
+struct dense_option : sor< activation_option, weight_option, bias_option, from_option, no_bias_option, transposed_option, time_first_option, storage_option > {};
 struct dense_line : seq< kw_dense, sep, must< layer_name >, sep, must< colon >, sep, must< in_width >, sep, opt< time_input, sep >, must< arrow >, sep, must< out_width >, star< sep, comma, sep, must< dense_option > >, must< dense_end > > {};
 
 // ---- solver lines ---------------------------------------------------------------
@@ -230,6 +237,9 @@ struct layout_transposed : kw_transposed {};
 struct layout_time_first : kw_time_first {};
 struct layout_option : sor< layout_transposed, layout_time_first > {};
 struct layout_line : seq< kw_layout, sep, must< layout_option >, star< sep, comma, sep, must< layout_option > >, must< layout_end > > {};
+// How the layers (of the model, or of a block) store their weights.
+struct storage_line_name : storage_name {};
+struct storage_line : seq< kw_weights_as, sep, must< storage_line_name >, must< statement_end > > {};
 
 // ---- error recovery: skip to the next statement keyword, over braced groups ----
 struct skip_string : seq< one< '"' >, star< sor< seq< one< '\\' >, not_one< '\n' > >, not_one< '"', '\n' > > >, opt< one< '"' > > > {};
@@ -241,7 +251,7 @@ struct body_skip : seq< skip_unit, star< not_at< sor< statement_keyword, close_b
 
 // ---- blocks ------------------------------------------------------------------------
 struct residual_block;
-struct body_statement : sor< dense_line, residual_block, augment_line, numbered_line, layout_line, solver_line, trained_line > {};
+struct body_statement : sor< dense_line, residual_block, augment_line, numbered_line, layout_line, storage_line, solver_line, trained_line > {};
 struct body_attempt : must< body_statement > {};
 struct body_item : seq< not_at< sor< close_brace, top_only_keyword, eof > >, sor< body_attempt, body_skip >, sep > {};
 struct block_width : integer {};
@@ -282,7 +292,7 @@ struct learn_by : seq< kw_by, sep, must< learn_way > > {};
 struct learn_line : seq< kw_learn, sep, must< learn_what >, opt< sep, learn_by >, must< statement_end > > {};
 
 // ---- the description ------------------------------------------------------------
-struct top_statement : sor< model_line, weights_line, ignore_line, learn_line, input_line, output_line, dense_line, residual_block, continuous_block, augment_line, numbered_line, layout_line, solver_line, trained_line, state_line, gated_line, merge_line, blend_block > {};
+struct top_statement : sor< model_line, weights_line, storage_line, ignore_line, learn_line, input_line, output_line, dense_line, residual_block, continuous_block, augment_line, numbered_line, layout_line, solver_line, trained_line, state_line, gated_line, merge_line, blend_block > {};
 struct top_attempt : must< top_statement > {};
 struct top_item : seq< not_at< eof >, sor< top_attempt, top_skip >, sep > {};
 struct description : seq< sep, must< model_first >, star< top_item >, eof > {};

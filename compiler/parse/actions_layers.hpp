@@ -18,7 +18,7 @@ template <> struct action<g::layer_name> {
         s.dense.name = in.string();
         s.dense.loc = loc_of(in, s);
         s.act_given = s.weight_given = s.bias_given = s.from_given = s.no_bias_given = false;
-        s.transposed_given = s.time_first_given = false;
+        s.transposed_given = s.time_first_given = s.storage_given = false;
         s.from.clear();
     }
 };

@@ -69,6 +69,8 @@ struct State {
     Dense dense;
     bool act_given = false, weight_given = false, bias_given = false, from_given = false, no_bias_given = false;
     bool transposed_given = false, time_first_given = false;
+    bool storage_given = false;      // a weights-as option on the layer being read
+    StorageChoice storage_read;      // the storage just read (statement or option)
     bool layout_transposed = false, layout_time_first = false;  // of the layout statement being read
     std::vector<std::string> ignore;  // patterns of the ignore statement being read
     std::vector<Loc> ignore_locs;

@@ -116,7 +116,7 @@ const std::vector<Row> kSyntaxRows = {
      "input x[4]\n"
      "dense a: 4 -> 2, tanhh\n"
      "output y[2]\n",
-     "bad.mnd:3:18: error: expected a layer option: an activation (identity, relu, leaky-relu, tanh, sigmoid, softplus, silu, gelu, elu, softmax), 'weight', 'bias', 'from', 'no-bias', 'transposed' or 'time-first'\n"
+     "bad.mnd:3:18: error: expected a layer option: an activation (identity, relu, leaky-relu, tanh, sigmoid, softplus, silu, gelu, elu, softmax), 'weight', 'bias', 'from', 'no-bias', 'transposed', 'time-first' or 'weights-as'\n"
      "dense a: 4 -> 2, tanhh\n"
      "                 ^\n"},
     {"unterminated string",
@@ -324,7 +324,7 @@ const std::vector<Row> kSyntaxRows = {
      "input x[4]\n"
      "layer a: 4 -> 2\n"
      "output y[2]\n",
-     "bad.mnd:3:1: error: expected a statement: weights, ignore, learn, input, state, dense, residual, continuous, blend, gated, merge or output\n"
+     "bad.mnd:3:1: error: expected a statement: weights, weights-as, ignore, learn, input, state, dense, residual, continuous, blend, gated, merge or output\n"
      "layer a: 4 -> 2\n"
      "^\n"},
     {"unknown statement in a block",
@@ -334,7 +334,7 @@ const std::vector<Row> kSyntaxRows = {
      "  dens a: 4 -> 4\n"
      "}\n"
      "output y[4]\n",
-     "bad.mnd:4:3: error: expected a statement inside the block: dense, residual, augment, numbered, layout, solver, trained-with or '}'\n"
+     "bad.mnd:4:3: error: expected a statement inside the block: dense, residual, augment, numbered, layout, weights-as, solver, trained-with or '}'\n"
      "  dens a: 4 -> 4\n"
      "  ^\n"},
     {"plus without t",
@@ -1352,7 +1352,7 @@ TEST(SeveralErrors, SyntaxErrorsInSeparateStatements) {
               "dense a 4 -> 8\n"
               "        ^\n"
               "bad.mnd:4:18: error: expected a layer option: an activation (identity, relu, leaky-relu, tanh, sigmoid, "
-              "softplus, silu, gelu, elu, softmax), 'weight', 'bias', 'from', 'no-bias', 'transposed' or 'time-first'\n"
+              "softplus, silu, gelu, elu, softmax), 'weight', 'bias', 'from', 'no-bias', 'transposed', 'time-first' or 'weights-as'\n"
               "dense b: 8 -> 2, tanhh\n"
               "                 ^\n");
 }

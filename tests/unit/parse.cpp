@@ -255,7 +255,7 @@ TEST(Parse, KeywordsNeedAWordBoundary) {
     Diagnostics diags;
     EXPECT_FALSE(parse_description(src, diags).has_value());
     ASSERT_EQ(diags.error_count(), 1);
-    EXPECT_EQ(diags.all()[0].message, "expected a statement: weights, ignore, learn, input, state, dense, residual, continuous, blend, gated, merge or output");
+    EXPECT_EQ(diags.all()[0].message, "expected a statement: weights, weights-as, ignore, learn, input, state, dense, residual, continuous, blend, gated, merge or output");
     expect_loc(diags.all()[0].loc, 3, 1);
 }
 

@@ -1,6 +1,7 @@
 // Integer weight storage from the command line: the layers kept real and
 // why, a row of zeros, a non-finite weight, a storage that does not exist,
-// eval's arithmetic, and the reports of verify and cost.
+// eval's arithmetic, the statement and option of the description language,
+// and the reports of verify, cost and tune.
 #include <gtest/gtest.h>
 
 #include <cmath>
@@ -105,6 +106,60 @@ TEST(QuantiseCommands, EvalUsesTheIntegers) {
     std::getline(lines, header);
     std::getline(lines, first);
     EXPECT_NEAR(std::stod(first.substr(0, first.find(','))), y0, 1e-15);
+}
+
+TEST(QuantiseCommands, StatementAndOptionInTheDescription) {
+    // The model's statement; the option on a layer wins over it.
+    {
+        const auto dir = small_model("statement", "weights-as int16\n");
+        const auto r = meander_run("compile " + (dir / "m.mnd").string() + " -o " + (dir / "out").string());
+        EXPECT_EQ(r.status, 0) << r.output;
+        EXPECT_NE(read_text(dir / "out" / "small.cpp").find("const std::int16_t w_big[24]"), std::string::npos);
+        // format keeps it
+        const auto f = meander_run("format " + (dir / "m.mnd").string());
+        EXPECT_NE(f.output.find("weights-as int16\n"), std::string::npos) << f.output;
+    }
+    {
+        const auto dir = scratch_dir("quantise_commands", "option");
+        write_text(dir / "w.mnw", kListing);
+        write_text(dir / "m.mnd", "model small\nweights \"w.mnw\"\nweights-as int8\ninput x[2]\ndense tiny: 2 -> 3, tanh\n"
+                                  "dense big: 3 -> 8, weights-as float\noutput y[8]\n");
+        const auto r = meander_run("compile " + (dir / "m.mnd").string() + " -o " + (dir / "out").string());
+        EXPECT_EQ(r.status, 0) << r.output;
+        EXPECT_NE(read_text(dir / "out" / "small.cpp").find("const real w_big[24]"), std::string::npos);
+        const auto f = meander_run("format " + (dir / "m.mnd").string());
+        EXPECT_NE(f.output.find("dense big: 3 -> 8, weights-as float\n"), std::string::npos) << f.output;
+        // --weights-as overrides the description.
+        const auto o = meander_run("compile " + (dir / "m.mnd").string() + " -o " + (dir / "out2").string() + " --weights-as int16");
+        EXPECT_EQ(o.status, 0) << o.output;
+        EXPECT_NE(read_text(dir / "out2" / "small.cpp").find("const std::int16_t w_big[24]"), std::string::npos);
+    }
+}
+
+TEST(QuantiseCommands, DescriptionMistakes) {
+    struct Case {
+        std::string text, message;
+    };
+    const std::vector<Case> cases{
+        {"model m\nweights-as int4\ninput x[2]\ndense a: 2 -> 2\noutput y[2]\n",
+         "m.mnd:2:12: error: expected a weight storage: 'float', 'int8' or 'int16' (integers with one scale per output row)"},
+        {"model m\ninput x[2]\ndense a: 2 -> 2\nweights-as int8\ndense b: 2 -> 2\noutput y[2]\n",
+         "m.mnd:4:1: error: 'weights-as' for the whole model must come before the first layer or block"},
+        {"model m\nweights-as int8\nweights-as int16\ninput x[2]\ndense a: 2 -> 2\noutput y[2]\n",
+         "m.mnd:3:1: error: model 'm' already has a 'weights-as' statement (line 2)"},
+        {"model m\ninput x[2]\nresidual r: 2 {\n  dense a: 2 -> 2\n  weights-as int8\n}\noutput y[2]\n",
+         "m.mnd:5:3: error: 'weights-as' must come before the layers of residual 'r'"},
+        {"model m\ninput x[2]\ndense a: 2 -> 2, weights-as int8, weights-as int16\noutput y[2]\n",
+         "m.mnd:3:35: error: 'weights-as' is given twice for layer 'a'"},
+    };
+    int i = 0;
+    for (const Case& c : cases) {
+        const auto dir = scratch_dir("quantise_commands", "mistake" + std::to_string(i++));
+        write_text(dir / "m.mnd", c.text);
+        const auto r = meander_run("format " + (dir / "m.mnd").string());
+        EXPECT_EQ(r.status, 1) << c.text;
+        EXPECT_NE(r.output.find(c.message), std::string::npos) << r.output;
+    }
 }
 
 TEST(QuantiseCommands, VerifyAndCostReportTheStorage) {
