@@ -16,6 +16,7 @@
 #include "emit.hpp"
 #include "format.hpp"
 #include "lower.hpp"
+#include "quantise.hpp"
 
 namespace meander {
 
@@ -367,7 +368,11 @@ std::optional<StreamCost> measure_stream_cost(const Model& model, const std::vec
     c.state_size = st.state_size;
     c.evolution = st.evolve.blend ? fmt::format("blend '{}' (closed form, no solver)", st.evolve.name)
                                   : fmt::format("continuous '{}', {}", st.evolve.name, format_solver(st.evolve.solver));
-    for_each_model_dense(model, [&](const Dense& d) { c.parameters += dense_macs(d) + (d.has_bias ? d.out : 0); });
+    for_each_model_dense(model, [&](const Dense& d) {
+        c.parameters += dense_macs(d) + (d.has_bias ? d.out : 0);
+        c.weight_bytes += weight_table_bytes(d, d.storage, opts.precision) +
+                          (d.has_bias ? d.out * storage_bytes(WeightStorage::real, opts.precision) : 0);
+    });
     c.macs_per_field_eval = st.evolve.blend ? 0 : field_macs(st.evolve);
     c.worst_field_evals = worst_evolve_field_evals(st);
     for (const Block& b : model.blocks)
@@ -428,7 +433,7 @@ std::string render_stream_cost_text(const StreamCost& c) {
     const std::string real = ob.real_bytes == 4 ? "float32" : "float64";
     o += fmt::format("  RAM: context {} bytes (state {} bytes, workspace {} bytes, {}; counters 12 bytes)\n", c.context_bytes,
                      c.state_size * ob.real_bytes, c.workspace_bytes, real);
-    o += fmt::format("  weights: {} bytes ({} parameters)\n", c.parameters * ob.real_bytes, c.parameters);
+    o += fmt::format("  weights: {} bytes ({} parameters)\n", c.weight_bytes, c.parameters);
     if (ob.code_measured) {
         o += fmt::format("  flash: code {} bytes, constants {} bytes, data {} bytes ({})\n", ob.code_bytes, ob.rodata_bytes,
                          ob.data_bytes, ob.code_tool);
@@ -497,7 +502,7 @@ std::string render_stream_cost_json(const StreamCost& c) {
     if (c.macs) j["measured_macs"] = spread_json(*c.macs);
     const CostReport& ob = c.object;
     j["precision"] = ob.real_bytes == 4 ? "float32" : "float64";
-    j["weight_bytes"] = c.parameters * ob.real_bytes;
+    j["weight_bytes"] = c.weight_bytes;
     j["workspace_bytes"] = c.workspace_bytes;
     j["context_bytes"] = c.context_bytes;
     j["code_measured"] = ob.code_measured;

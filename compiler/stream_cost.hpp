@@ -52,6 +52,7 @@ struct StreamCost {
     double largest_gap = 0.0;
     std::string evolution;          // "continuous 'drift', rk4, steps-per-unit 2" or "blend 'cell' (closed form)"
     long parameters = 0;
+    long weight_bytes = 0;          // weight tables as emitted (integers with their scales) and biases
     long macs_per_field_eval = 0;   // the evolution's field
     long worst_field_evals = 0;     // per observation, at the largest gap (evolution and readout)
     long double worst_macs = 0;     // per observation, at the largest gap
