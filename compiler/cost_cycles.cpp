@@ -593,9 +593,11 @@ bool measure_cycles(const Model& model, const std::vector<EmittedFile>& files, c
                     if (li != layer_index.end()) layer = li->second;
                     break;
                 }
-                // The dense kernels' inlined steps (lanesR_mac and the like) are the layer's own code.
+                // The dense kernels' inlined steps (lanesR_mac and the like, qlanesR_mac for
+                // integer layers) are the layer's own code.
+                auto step = [](const std::string& f) { return f.rfind("lanes", 0) == 0 || f.rfind("qlanes", 0) == 0; };
                 std::size_t own = 0;
-                while (own + 1 < frames.size() && frames[own].rfind("lanes", 0) == 0) ++own;
+                while (own + 1 < frames.size() && step(frames[own])) ++own;
                 if (layer >= 0 && frames[own].rfind("dense_", 0) == 0) o = Origin{Origin::dense, layer};
                 else if (layer >= 0) o = Origin{Origin::activation, layer};
                 else if (kernels.count(frames.back())) o = Origin{Origin::kernel_function, -1};
