@@ -294,6 +294,15 @@ int resolve_learning(const LoadedModel& loaded, const std::string& model_path, c
         spec->way_loc = Loc{};
     }
     if (!spec) return 0;
+    // The learning code reads every layer's weights as reals (compiler/emit/learn.cpp).
+    bool integers = false;
+    for_each_model_dense(loaded.model, [&](const Dense& d) { integers = integers || d.storage != WeightStorage::real; });
+    if (integers) {
+        diags.error(from_option ? std::string("--learn") : model_path,
+                    "learning on the device needs real weights: store every layer as float (weights-as float), "
+                    "or learn nothing (integer weights and learning do not combine yet)");
+        return kModelError;
+    }
     opts.learn = plan_learning(loaded.model, *spec, from_option ? nullptr : &loaded.source,
                                from_option ? std::string("--learn") : model_path, diags);
     return opts.learn ? 0 : kModelError;
