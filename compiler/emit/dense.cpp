@@ -16,6 +16,7 @@
 // product, so the bits are the real layer's; it keeps the loop over the inputs.
 #include <fmt/format.h>
 
+#include <map>
 #include <set>
 
 #include "render.hpp"
@@ -24,13 +25,16 @@ namespace meander::emit_detail {
 
 namespace {
 
-// The block sizes of the real layers (integer ones: false) or of the integer layers (true).
-std::set<int> block_sizes(const Model& m, bool integer) {
-    std::set<int> sizes;
+// The block sizes of the real layers (integer: false) or of the integer
+// layers (true), each with whether a layer of that size adds a bias (the
+// _add step is written only then: clang warns of an unused function, and the
+// warnings builds treat that as an error).
+std::map<int, bool> block_sizes(const Model& m, bool integer) {
+    std::map<int, bool> sizes;
     for_each_model_dense(m, [&](const Dense& d) {
         if ((d.storage != WeightStorage::real) != integer) return;
-        if (d.out >= kDenseBlockRows) sizes.insert(kDenseBlockRows);
-        if (d.out % kDenseBlockRows) sizes.insert(d.out % kDenseBlockRows);
+        if (d.out >= kDenseBlockRows) sizes[kDenseBlockRows] |= d.has_bias;
+        if (d.out % kDenseBlockRows) sizes[d.out % kDenseBlockRows] |= d.has_bias;
     });
     return sizes;
 }
@@ -38,7 +42,7 @@ std::set<int> block_sizes(const Model& m, bool integer) {
 const char* const kLane = "abcd";  // accumulator names of a lanesR struct
 
 // The plain C++ steps: one accumulator per row, `a += w * x` each.
-std::string portable_steps(const Emission& e, int R, const std::string& inl) {
+std::string portable_steps(const Emission& e, int R, bool bias, const std::string& inl) {
     std::string o = fmt::format("struct lanes{} {{ real", R);
     for (int r = 0; r < R; ++r) o += fmt::format("{} {}", r ? "," : "", kLane[r]);
     o += "; };\n";
@@ -48,9 +52,11 @@ std::string portable_steps(const Emission& e, int R, const std::string& inl) {
     o += fmt::format("{} void lanes{}_mac(lanes{}& s, const real*& w, real x) noexcept {{\n   ", inl, R, R);
     for (int r = 0; r < R; ++r) o += fmt::format(" s.{} += w[{}] * x;", kLane[r], r);
     o += fmt::format("\n    w += {};\n}}\n", R);
-    o += fmt::format("{} void lanes{}_add(lanes{}& s, const real* b) noexcept {{", inl, R, R);
-    for (int r = 0; r < R; ++r) o += fmt::format(" s.{} += b[{}];", kLane[r], r);
-    o += " }\n";
+    if (bias) {
+        o += fmt::format("{} void lanes{}_add(lanes{}& s, const real* b) noexcept {{", inl, R, R);
+        for (int r = 0; r < R; ++r) o += fmt::format(" s.{} += b[{}];", kLane[r], r);
+        o += " }\n";
+    }
     o += fmt::format("{} void lanes{}_store(const lanes{}& s, real* y) noexcept {{", inl, R, R);
     for (int r = 0; r < R; ++r) o += fmt::format(" y[{}] = s.{};", r, kLane[r]);
     o += " }\n";
@@ -60,7 +66,8 @@ std::string portable_steps(const Emission& e, int R, const std::string& inl) {
 // An integer layer's steps: the R sums and their rows' scales; qlanesR_mac
 // dequantises each weight as the real layer holds it, fl(real(q) * s), then
 // multiplies and adds as lanesR_mac does. One mac per integer type in use.
-std::string integer_steps(const Emission& e, int R, const std::set<WeightStorage>& types, const std::string& inl) {
+std::string integer_steps(const Emission& e, int R, bool bias, const std::set<WeightStorage>& types,
+                          const std::string& inl) {
     std::string o = fmt::format("struct qlanes{} {{ real", R);
     for (int r = 0; r < R; ++r) o += fmt::format("{} {}", r ? "," : "", kLane[r]);
     for (int r = 0; r < R; ++r) o += fmt::format(", s{}", kLane[r]);
@@ -75,9 +82,11 @@ std::string integer_steps(const Emission& e, int R, const std::set<WeightStorage
             o += fmt::format("    s.{0} += (static_cast<real>(w[{1}]) * s.s{0}) * x;\n", kLane[r], r);
         o += fmt::format("    w += {};\n}}\n", R);
     }
-    o += fmt::format("{} void qlanes{}_add(qlanes{}& s, const real* b) noexcept {{", inl, R, R);
-    for (int r = 0; r < R; ++r) o += fmt::format(" s.{} += b[{}];", kLane[r], r);
-    o += " }\n";
+    if (bias) {
+        o += fmt::format("{} void qlanes{}_add(qlanes{}& s, const real* b) noexcept {{", inl, R, R);
+        for (int r = 0; r < R; ++r) o += fmt::format(" s.{} += b[{}];", kLane[r], r);
+        o += " }\n";
+    }
     o += fmt::format("{} void qlanes{}_store(const qlanes{}& s, real* y) noexcept {{", inl, R, R);
     for (int r = 0; r < R; ++r) o += fmt::format(" y[{}] = s.{};", r, kLane[r]);
     o += " }\n";
@@ -86,7 +95,7 @@ std::string integer_steps(const Emission& e, int R, const std::set<WeightStorage
 
 // x86 with SSE2: float32 four rows in one register; float64 two rows per
 // register. Packed multiply then packed add: per lane the same two roundings.
-std::string sse_steps(const Emission& e, int R, const std::string& inl) {
+std::string sse_steps(const Emission& e, int R, bool bias, const std::string& inl) {
     std::string o;
     if (e.p == Precision::float32) {
         o += "struct lanes4 { __m128 v; };\n";
@@ -94,7 +103,7 @@ std::string sse_steps(const Emission& e, int R, const std::string& inl) {
         o += inl + " void lanes4_mac(lanes4& s, const real*& w, real x) noexcept {\n"
                    "    s.v = _mm_add_ps(s.v, _mm_mul_ps(_mm_loadu_ps(w), _mm_set1_ps(x)));\n"
                    "    w += 4;\n}\n";
-        o += inl + " void lanes4_add(lanes4& s, const real* b) noexcept { s.v = _mm_add_ps(s.v, _mm_loadu_ps(b)); }\n";
+        if (bias) o += inl + " void lanes4_add(lanes4& s, const real* b) noexcept { s.v = _mm_add_ps(s.v, _mm_loadu_ps(b)); }\n";
         o += inl + " void lanes4_store(const lanes4& s, real* y) noexcept { _mm_storeu_ps(y, s.v); }\n";
         return o;
     }
@@ -110,9 +119,12 @@ std::string sse_steps(const Emission& e, int R, const std::string& inl) {
     for (int k = 0; k < regs; ++k)
         o += fmt::format("    s.v{0} = _mm_add_pd(s.v{0}, _mm_mul_pd(_mm_loadu_pd(w + {1}), xx));\n", k, 2 * k);
     o += fmt::format("    w += {};\n}}\n", R);
-    o += fmt::format("{} void lanes{}_add(lanes{}& s, const real* b) noexcept {{", inl, R, R);
-    for (int k = 0; k < regs; ++k) o += fmt::format(" s.v{0} = _mm_add_pd(s.v{0}, _mm_loadu_pd(b + {1}));", k, 2 * k);
-    o += " }\n";
+    if (bias) {
+        o += fmt::format("{} void lanes{}_add(lanes{}& s, const real* b) noexcept {{", inl, R, R);
+        for (int k = 0; k < regs; ++k)
+            o += fmt::format(" s.v{0} = _mm_add_pd(s.v{0}, _mm_loadu_pd(b + {1}));", k, 2 * k);
+        o += " }\n";
+    }
     o += fmt::format("{} void lanes{}_store(const lanes{}& s, real* y) noexcept {{", inl, R, R);
     for (int k = 0; k < regs; ++k) o += fmt::format(" _mm_storeu_pd(y + {}, s.v{});", 2 * k, k);
     o += " }\n";
@@ -125,7 +137,7 @@ std::string sse_steps(const Emission& e, int R, const std::string& inl) {
 // into VMLA, which rounds the product just the same but costs 3 cycles against
 // 1 + 1, and loads each weight with its own VLDR (2 cycles against 1 + R for
 // the VLDM; Cortex-M4 TRM, DDI 0439, 7.2.3).
-std::string arm_steps(int R, const std::string& inl) {
+std::string arm_steps(int R, bool bias, const std::string& inl) {
     std::string o = fmt::format("struct lanes{} {{ real", R);
     for (int r = 0; r < R; ++r) o += fmt::format("{} {}", r ? "," : "", kLane[r]);
     o += "; };\n";
@@ -146,13 +158,16 @@ std::string arm_steps(int R, const std::string& inl) {
     o += fmt::format("            : {}, [w] \"+r\"(w)\n", outs);
     o += fmt::format("            : [x] \"t\"(x), \"m\"(*reinterpret_cast<const real(*)[{}]>(w))\n", R);
     o += fmt::format("            : {});\n}}\n", clobbers);
-    o += fmt::format("{} void lanes{}_add(lanes{}& s, const real* b) noexcept {{\n", inl, R, R);
-    o += fmt::format("    __asm__(\"vldmia %[p], {{{}}}\\n\\t\"\n", regs);
-    for (int r = 0; r < R; ++r)
-        o += fmt::format("            \"vadd.f32 %[{0}], %[{0}], s{1}{2}\"\n", kLane[r], 12 + r, r + 1 < R ? "\\n\\t" : "");
-    o += fmt::format("            : {}\n", outs);
-    o += fmt::format("            : [p] \"r\"(b), \"m\"(*reinterpret_cast<const real(*)[{}]>(b))\n", R);
-    o += fmt::format("            : {});\n}}\n", clobbers);
+    if (bias) {
+        o += fmt::format("{} void lanes{}_add(lanes{}& s, const real* b) noexcept {{\n", inl, R, R);
+        o += fmt::format("    __asm__(\"vldmia %[p], {{{}}}\\n\\t\"\n", regs);
+        for (int r = 0; r < R; ++r)
+            o += fmt::format("            \"vadd.f32 %[{0}], %[{0}], s{1}{2}\"\n", kLane[r], 12 + r,
+                             r + 1 < R ? "\\n\\t" : "");
+        o += fmt::format("            : {}\n", outs);
+        o += fmt::format("            : [p] \"r\"(b), \"m\"(*reinterpret_cast<const real(*)[{}]>(b))\n", R);
+        o += fmt::format("            : {});\n}}\n", clobbers);
+    }
     o += fmt::format("{} void lanes{}_store(const lanes{}& s, real* y) noexcept {{", inl, R, R);
     for (int r = 0; r < R; ++r) o += fmt::format(" y[{}] = s.{};", r, kLane[r]);
     o += " }\n";
@@ -166,8 +181,8 @@ std::string render_dense_includes(const Emission& e) {
 }
 
 std::string render_dense_steps(const Emission& e) {
-    const std::set<int> sizes = block_sizes(e.model, false);
-    const std::set<int> int_sizes = block_sizes(e.model, true);
+    const std::map<int, bool> sizes = block_sizes(e.model, false);
+    const std::map<int, bool> int_sizes = block_sizes(e.model, true);
     if (sizes.empty() && int_sizes.empty()) return "";
     const bool f32 = e.p == Precision::float32;
     const std::string inl = e.M() + "_STEP";
@@ -184,27 +199,31 @@ std::string render_dense_steps(const Emission& e) {
                      "#endif\n",
                      inl);
     const std::string arm = "defined(__ARM_ARCH_7EM__) && defined(__ARM_FP) && (__ARM_FP & 4)";
-    for (int R : sizes) {
+    for (const auto& [R, bias] : sizes) {
         const bool sse = f32 ? R == 4 : R % 2 == 0;
         if (sse) {
-            o += "#if defined(__SSE2__)\n" + sse_steps(e, R, inl);
-            o += f32 ? "#elif " + arm + "\n" + arm_steps(R, inl) : std::string();
+            o += "#if defined(__SSE2__)\n" + sse_steps(e, R, bias, inl);
+            o += f32 ? "#elif " + arm + "\n" + arm_steps(R, bias, inl) : std::string();
         } else if (f32) {
-            o += "#if " + arm + "\n" + arm_steps(R, inl);
+            o += "#if " + arm + "\n" + arm_steps(R, bias, inl);
         }
         if (sse || f32) o += "#else\n";
-        o += portable_steps(e, R, inl);
+        o += portable_steps(e, R, bias, inl);
         if (sse || f32) o += "#endif\n";
     }
     if (!int_sizes.empty()) {
-        std::set<WeightStorage> types;
+        // Per block size, the integer types its layers use: one qlanesR_mac each
+        // (an unused one would be a warning, as above).
+        std::map<int, std::set<WeightStorage>> types;
         for_each_model_dense(e.model, [&](const Dense& d) {
-            if (d.storage != WeightStorage::real) types.insert(d.storage);
+            if (d.storage == WeightStorage::real) return;
+            if (d.out >= kDenseBlockRows) types[kDenseBlockRows].insert(d.storage);
+            if (d.out % kDenseBlockRows) types[d.out % kDenseBlockRows].insert(d.storage);
         });
         o += "// Integer layers: qlanesR keeps R sums and their rows' scales; qlanesR_mac adds\n"
              "// (real(q[r]) * scale r) * x to sum r, the product of the weight the real layer\n"
              "// would hold (W = real(q) * scale, rounded), so the sums are the real layer's bits.\n";
-        for (int R : int_sizes) o += integer_steps(e, R, types, inl);
+        for (const auto& [R, bias] : int_sizes) o += integer_steps(e, R, bias, types[R], inl);
     }
     o += "\n";
     return o;

@@ -335,15 +335,6 @@ TINY_ADAPTIVE_STEP void lanes3_mac(lanes3& s, const real*& w, real x) noexcept {
             : [x] "t"(x), "m"(*reinterpret_cast<const real(*)[3]>(w))
             : "s12", "s13", "s14");
 }
-TINY_ADAPTIVE_STEP void lanes3_add(lanes3& s, const real* b) noexcept {
-    __asm__("vldmia %[p], {s12-s14}\n\t"
-            "vadd.f32 %[a], %[a], s12\n\t"
-            "vadd.f32 %[b], %[b], s13\n\t"
-            "vadd.f32 %[c], %[c], s14"
-            : [a] "+t"(s.a), [b] "+t"(s.b), [c] "+t"(s.c)
-            : [p] "r"(b), "m"(*reinterpret_cast<const real(*)[3]>(b))
-            : "s12", "s13", "s14");
-}
 TINY_ADAPTIVE_STEP void lanes3_store(const lanes3& s, real* y) noexcept { y[0] = s.a; y[1] = s.b; y[2] = s.c; }
 #else
 struct lanes3 { real a, b, c; };
@@ -352,7 +343,6 @@ TINY_ADAPTIVE_STEP void lanes3_mac(lanes3& s, const real*& w, real x) noexcept {
     s.a += w[0] * x; s.b += w[1] * x; s.c += w[2] * x;
     w += 3;
 }
-TINY_ADAPTIVE_STEP void lanes3_add(lanes3& s, const real* b) noexcept { s.a += b[0]; s.b += b[1]; s.c += b[2]; }
 TINY_ADAPTIVE_STEP void lanes3_store(const lanes3& s, real* y) noexcept { y[0] = s.a; y[1] = s.b; y[2] = s.c; }
 #endif
 #if defined(__SSE2__)
