@@ -163,18 +163,18 @@ std::string render_cost_text(const CostReport& r) {
     if (!r.layers.empty()) {
         // Weight tables per dense layer in each storage, so the saving can be read before choosing.
         t += "weight tables per dense layer (weights, and one scale per row for integers; biases apart)\n";
-        std::vector<std::vector<std::string>> rows{{"layer", "stored as", "weights", "bytes", "float", "int8", "int16", "saved"}};
+        std::vector<std::vector<std::string>> tables{{"layer", "stored as", "weights", "bytes", "float", "int8", "int16", "saved"}};
         long bytes = 0, real_bytes = 0;
         bool any_int = false;
         for (const LayerStorage& l : r.layers) {
             bytes += l.bytes;
             real_bytes += l.real_bytes;
             any_int = any_int || l.storage != WeightStorage::real;
-            rows.push_back({l.name, std::string(weight_storage_name(l.storage)), num(l.weights), num(l.bytes), num(l.real_bytes),
+            tables.push_back({l.name, std::string(weight_storage_name(l.storage)), num(l.weights), num(l.bytes), num(l.real_bytes),
                             num(l.int8_bytes), num(l.int16_bytes), num(l.real_bytes - l.bytes)});
         }
-        rows.push_back({"total", "", "", num(bytes), num(real_bytes), "", "", num(real_bytes - bytes)});
-        t += table(rows, 2);
+        tables.push_back({"total", "", "", num(bytes), num(real_bytes), "", "", num(real_bytes - bytes)});
+        t += table(tables, 2);
         for (const LayerStorage& l : r.layers)
             if (!l.kept_real.empty()) t += fmt::format("  {}: {}\n", l.name, l.kept_real);
         if (!any_int) t += "  (every layer stores reals; weights-as int8 or --weights-as int8 stores integers)\n";
