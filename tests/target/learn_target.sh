@@ -4,7 +4,8 @@
 # node's 120 rows) built for the host and for the board (mps2-an386), run on
 # both; passes when both print the same bits (gradient and final parameters),
 # the counters meet the header's learn_field_evals, and the held-out loss
-# falls below 60 % of where it started. Then the float64 build on the board
+# falls below 60 % of where it started; the same with --learn-by adjoint, whose
+# workspace must not grow with the steps. Then the float64 build on the board
 # (software double) checks its gradient against central differences.
 #   learn_target.sh WORKDIR        (MEANDER: the meander binary)
 set -u
@@ -54,6 +55,29 @@ awk '/^heldout before/ { b = $4 } /^heldout after/ { a = $4 }
      END { printf "held-out loss %.6f -> %.6f\n", b, a; exit !(a < 0.6 * b) }' "$work/board.txt" ||
     fail "the held-out loss did not fall below 60 % of where it started"
 
+# The adjoint on the board: the same calibration with --learn-by adjoint must bring the
+# held-out loss down as well, and its learning workspace must not grow with the step
+# count (the description's 8 steps against 32: the header's learn_workspace_size).
+run "$MEANDER" compile "$sample/fan_balance.mnd" -o "$work/gen_adj" --learn biases --learn-by adjoint ||
+    fail "compile --learn-by adjoint failed"
+run arm-none-eabi-g++ "${cross[@]}" "${m4f[@]}" "${common[@]}" -DMEANDER_EPOCHS=5 -I"$work/gen_adj" "$here/startup.cpp" \
+    "$here/board_learn_main.cpp" "$work/gen_adj/fan_balance.cpp" -T "$here/mps2.ld" -nostartfiles \
+    --specs=rdimon.specs -Wl,--gc-sections -o "$work/board_adj.elf" || fail "adjoint board build failed"
+board "$work/board_adj.elf" "$work/board_adj.txt"
+grep -Eq '^field_evals ([0-9]+) of \1$' "$work/board_adj.txt" || fail "adjoint: field evaluations differ from learn_field_evals"
+awk '/^heldout before/ { b = $4 } /^heldout after/ { a = $4 }
+     END { printf "adjoint: held-out loss %.6f -> %.6f\n", b, a; exit !(a < 0.6 * b) }' "$work/board_adj.txt" ||
+    fail "adjoint: the held-out loss did not fall below 60 % of where it started"
+grep -Eq '^ *solver rk4, steps 8$' "$sample/fan_balance.mnd" || fail "fan_balance.mnd no longer says 'solver rk4, steps 8'"
+mkdir -p "$work/steps32" && cp "$sample"/fan_balance.* "$work/steps32/" &&
+    sed -i 's/^\( *solver rk4, steps\) 8$/\1 32/' "$work/steps32/fan_balance.mnd" || fail "cannot write the 32-step copy"
+run "$MEANDER" compile "$work/steps32/fan_balance.mnd" -o "$work/gen_adj32" --learn biases --learn-by adjoint ||
+    fail "compile --learn-by adjoint (32 steps) failed"
+workspace() { sed -n 's/^constexpr std::size_t learn_workspace_size = \([0-9]*\);$/\1/p' "$1/fan_balance.hpp"; }
+w8=$(workspace "$work/gen_adj"); w32=$(workspace "$work/gen_adj32")
+echo "adjoint learning workspace: 8 steps $w8 reals, 32 steps $w32 reals"
+[ -n "$w8" ] && [ "$w8" = "$w32" ] || fail "the adjoint's learning workspace changed with the step count ($w8 -> $w32)"
+
 run "$MEANDER" compile "$sample/fan_balance.mnd" -o "$work/gen64" --learn biases --precision float64 ||
     fail "compile --learn --precision float64 failed"
 run arm-none-eabi-g++ "${cross[@]}" "${m4f[@]}" "${common[@]}" -I"$work/gen64" -DMEANDER_CENTRAL_DIFFERENCES \
@@ -62,4 +86,4 @@ run arm-none-eabi-g++ "${cross[@]}" "${m4f[@]}" "${common[@]}" -I"$work/gen64" -
     fail "float64 board build failed"
 board "$work/board64.elf" "$work/board64.txt"
 grep -q '^central differences' "$work/board64.txt" || fail "no central differences printed"
-echo "PASS: learning on the emulated Cortex-M4F"
+echo "PASS: learning on the emulated Cortex-M4F (through the steps and by the adjoint)"
