@@ -81,7 +81,8 @@ std::string float_kernels(std::set<std::string> wanted) {
 
 }  // namespace
 
-std::string render_activation_kernels(Precision p, const std::set<Activation>& used, bool step_controller) {
+std::string render_activation_kernels(Precision p, const std::set<Activation>& used, bool step_controller,
+                                      bool log) {
     if (p == Precision::float32) {
         std::set<std::string> wanted;
         for (Activation a : used)
@@ -90,6 +91,7 @@ std::string render_activation_kernels(Precision p, const std::set<Activation>& u
             wanted.insert("pow");
             wanted.insert("nextafter");
         }
+        if (log) wanted.insert("log");
         return float_kernels(std::move(wanted));
     }
     auto l = [&](double v) { return real_literal(v, p); };
@@ -162,8 +164,8 @@ std::string render_activations(const Emission& e) {
     }
     const std::set<Activation> extra = learn_kernel_needs(e);
     used.insert(extra.begin(), extra.end());
-    // The cross-entropy loss takes a logarithm: float32's is in the pow kernel's section.
-    return render_activation_kernels(e.p, used, has_adaptive_block(e) || learn_needs_log(e));
+    // The cross-entropy loss takes a logarithm (float32: the log kernel's section).
+    return render_activation_kernels(e.p, used, has_adaptive_block(e), learn_needs_log(e));
 }
 
 std::string apply_activation(const Emission& e, const Dense& d, const std::string& x) {

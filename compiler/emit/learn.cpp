@@ -104,7 +104,7 @@ private:
     std::string render_dense_kernels();
     std::string render_dense_forward(const Dense& d);
     std::string render_dense_backward(const Dense& d);
-    std::string render_derivatives();
+    std::string render_derivatives(const std::string& uses);
     void fwd_chain(std::string& o, const LChain& c, const std::string& t, const std::string& pad, bool top);
     void bwd_chain(std::string& o, const LChain& c, const std::string& ybar, const std::string& xbar,
                    const std::string& g, std::size_t base, const std::string& t, const std::string& pad, bool top);
@@ -421,9 +421,17 @@ std::string LearnRender::render_dense_backward(const Dense& d) {
     return o;
 }
 
-std::string LearnRender::render_derivatives() {
+// Only the derivatives that `uses` (the rest of the learning code) calls: the
+// layers before the first learnable one are never differentiated, and clang
+// warns of an unused function (an error in the warnings builds).
+std::string LearnRender::render_derivatives(const std::string& uses) {
     std::set<Activation> used;
-    for_each_dense(e_.model.blocks, [&](const Dense& d) { used.insert(d.act); });
+    for_each_dense(e_.model.blocks, [&](const Dense& d) {
+        // The function's name: the activation's, '-' as '_' (leaky-relu: dact_leaky_relu).
+        std::string name(activation_name(d.act));
+        std::replace(name.begin(), name.end(), '-', '_');
+        if (uses.find("dact_" + name + "(") != std::string::npos) used.insert(d.act);
+    });
     std::string o = "// Derivatives of the activations, given z and y = act(z) (runtime/vjp.cpp).\n";
     const std::string one = L(1), zero = L(0), half = L(0.5);
     for (Activation a : used) {
@@ -1040,11 +1048,12 @@ std::string LearnRender::source() {
     layout();
     std::string o;
     o += "// ---- Learning on the device ----\n\nnamespace {\n\n";
-    o += render_derivatives();
-    o += render_dense_kernels();
-    o += render_fields();
-    o += render_prefix();
-    o += render_passes();
+    std::string rest = render_dense_kernels();
+    rest += render_fields();
+    rest += render_prefix();
+    rest += render_passes();
+    o += render_derivatives(rest);
+    o += rest;
     o += "}  // namespace\n\n";
     o += render_entries();
     return o;
@@ -1073,7 +1082,12 @@ bool learn_needs_log(const Emission& e) { return e.opts.learn && e.opts.learn->l
 std::set<Activation> learn_kernel_needs(const Emission& e) {
     std::set<Activation> extra;
     if (!e.opts.learn) return extra;
-    for_each_dense(e.model.blocks, [&](const Dense& d) {
+    // Only the layers the backward pass differentiates (from the first learnable block on):
+    // a frozen layer before it needs no derivative, and an unused kernel is a clang warning.
+    const std::size_t first = std::min(e.opts.learn->first_block, e.model.blocks.size());
+    const std::vector<Block> differentiated(e.model.blocks.begin() + static_cast<std::ptrdiff_t>(first),
+                                            e.model.blocks.end());
+    for_each_dense(differentiated, [&](const Dense& d) {
         if (d.act == Activation::softplus || d.act == Activation::silu) extra.insert(Activation::sigmoid);
         if (d.act == Activation::gelu) extra.insert(Activation::tanh);
     });

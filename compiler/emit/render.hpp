@@ -62,7 +62,8 @@ std::string render_weights(const Emission& e);
 // and nextafter for a step-size controller); the streaming emitter, whose
 // layers are not all in model.blocks, calls it directly.
 std::string render_activations(const Emission& e);
-std::string render_activation_kernels(Precision p, const std::set<Activation>& used, bool step_controller);
+std::string render_activation_kernels(Precision p, const std::set<Activation>& used, bool step_controller,
+                                      bool log = false);
 std::string apply_activation(const Emission& e, const Dense& d, const std::string& x);
 std::string apply_activation(Precision p, const Dense& d, const std::string& x);
 

@@ -148,6 +148,8 @@ constexpr float kExp2Table[64] = {
     const float r = (x - mul_apart(kf, 0.02166748f)) + mul_apart(kf, 6.6310763e-06f);
     return exp_tail(r, nb) * float_of(((nb >> 5) - 0x25a0000u + 127u) << 23);
 }
+
+// kernel exp_core_neg: needs exp_core bits_of float_of mul_apart
 // exp_core(-a), the same bits: -a K = a (-K), and (-a - kf c1) + kf c2 = kf c2 - (a + kf c1)
 // (rounding to nearest is symmetric), without negating a first.
 [[gnu::always_inline]] inline float exp_core_neg(float a) noexcept {
@@ -193,7 +195,7 @@ inline float log1p_series(float z) noexcept {
     return 2.0f * z + 2.0f * z * p;
 }
 
-// kernel softplus: needs exp mul_apart
+// kernel softplus: needs exp exp_core_neg mul_apart
 // max(x, 0) + log1p(e), e = exp(-|x|) in (2^-24, 1]. log1p(e) from a table
 // at the points j/16: e = j/16 + d (d exact, |d| <= 1/32), so
 // log1p(e) = log(1 + j/16) + log1p(s), s = d/(1 + j/16), |s| <= 1/32, by its
@@ -238,9 +240,9 @@ constexpr float kLog1pTable[51] = {
     return r;
 }
 
-// kernel pow: needs exp log1p_series bits_of float_of
-// x^y for x >= 0 (the step-size controller's err^exponent): exp(y log x),
-// log(m 2^e) = e ln2 + log(m) with m in [sqrt(1/2), sqrt(2)).
+// kernel log: needs log1p_series bits_of float_of
+// log(m 2^e) = e ln2 + log(m) with m in [sqrt(1/2), sqrt(2)) (pow's, and the
+// cross-entropy loss of learning on the device).
 inline float log_kernel(float x) noexcept {
     if (!(x > 0.0f)) return x < 0.0f || std::isnan(x) ? NAN : -HUGE_VALF;
     if (std::isinf(x)) return x;
@@ -260,6 +262,9 @@ inline float log_kernel(float x) noexcept {
     const float ef = static_cast<float>(e);
     return ef * 0.693145751953125f + (log1p_series(u / (2.0f + u)) + ef * 1.42860677e-6f);
 }
+
+// kernel pow: needs exp log
+// x^y for x >= 0 (the step-size controller's err^exponent): exp(y log x).
 inline float pow_kernel(float x, float y) noexcept { return exp_kernel(y * log_kernel(x)); }
 
 // kernel nextafter: needs bits_of float_of

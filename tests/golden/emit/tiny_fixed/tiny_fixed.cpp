@@ -174,6 +174,8 @@ constexpr float kExp2Table[64] = {
     const float r = (x - mul_apart(kf, 0.02166748f)) + mul_apart(kf, 6.6310763e-06f);
     return exp_tail(r, nb) * float_of(((nb >> 5) - 0x25a0000u + 127u) << 23);
 }
+
+// kernel exp_core_neg: needs exp_core bits_of float_of mul_apart
 // exp_core(-a), the same bits: -a K = a (-K), and (-a - kf c1) + kf c2 = kf c2 - (a + kf c1)
 // (rounding to nearest is symmetric), without negating a first.
 [[gnu::always_inline]] inline float exp_core_neg(float a) noexcept {
@@ -210,7 +212,7 @@ inline float pow2(int k) noexcept { return float_of(static_cast<std::uint32_t>(k
     return exp_scaled(x, 0.0f, 1.0f);
 }
 
-// kernel tanh: needs exp_core mul_apart
+// kernel tanh: needs exp_core exp_core_neg mul_apart
 // Below |x| = 0.55 an odd polynomial (least-squares fit in x^2, weighted to
 // relative error); above, 1 - 2e/(1 + e) with e = exp(-2|x|) <= 1/3, where
 // the subtraction from 1 keeps the error of e small; 1 beyond |x| = 9.1.
@@ -243,7 +245,7 @@ inline float pow2(int k) noexcept { return float_of(static_cast<std::uint32_t>(k
     return static_cast<std::int32_t>(u) < 0 ? -r : r;  // -0 keeps its sign
 }
 
-// kernel silu: needs exp_core exp_scaled
+// kernel silu: needs exp_core exp_core_neg exp_scaled
 // x/(1 + e) for x >= 0, x e/(1 + e) below, e = exp(-|x|); one division.
 // x itself beyond 20; below -20, where 1 + e rounds to 1, x e is formed
 // inside exp so a subnormal result is rounded once.
