@@ -1,4 +1,5 @@
-// meander's own math kernels (runtime/math_float.inc), compiled as C++ for
+// meander's own math kernels (runtime/math_float.inc, and on SSE2 their
+// four-lane versions runtime/math_lanes.inc), compiled as C++ for
 // the tests and the error measurement. The emitter copies the same text into
 // the emitted source (compiler/emit/activations.cpp), so both see one code.
 #pragma once
@@ -6,9 +7,13 @@
 #include <cmath>
 #include <cstdint>
 #include <cstring>
+#if defined(__SSE2__)
+#include <emmintrin.h>
+#endif
 
 namespace meander::kernels_float {
 #include "math_float.inc"
+#include "math_lanes.inc"
 }  // namespace meander::kernels_float
 
 namespace meander {

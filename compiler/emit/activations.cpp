@@ -14,8 +14,9 @@ namespace meander::emit_detail {
 
 namespace {
 
-// The kernel sections of runtime/math_float.inc, in file order: each starts
-// with "// kernel NAME: needs A B".
+// The kernel sections of runtime/math_float.inc and runtime/math_lanes.inc, in
+// file order: each starts with "// kernel NAME: needs A B"; "// end of kernels"
+// ends one without starting another (the text up to the next is dropped).
 struct KernelSection {
     std::string name;
     std::vector<std::string> needs;
@@ -26,8 +27,14 @@ std::vector<KernelSection> kernel_sections() {
     std::vector<KernelSection> sections;
     std::istringstream in{std::string(kMathFloatText)};
     const std::string mark = "// kernel ";
+    bool inside = false;
     for (std::string line; std::getline(in, line);) {
+        if (line == "// end of kernels") {
+            inside = false;
+            continue;
+        }
         if (line.compare(0, mark.size(), mark) == 0) {
+            inside = true;
             KernelSection s;
             const std::size_t colon = line.find(':');
             s.name = line.substr(mark.size(), colon - mark.size());
@@ -35,7 +42,7 @@ std::vector<KernelSection> kernel_sections() {
             for (std::string n; needs >> n;) s.needs.push_back(n);
             sections.push_back(std::move(s));
         }
-        if (!sections.empty()) sections.back().text += line + "\n";
+        if (inside) sections.back().text += line + "\n";
     }
     return sections;
 }
@@ -54,6 +61,17 @@ const char* kernel_of(Activation a) {
     case Activation::elu: return "elu";
     }
     return nullptr;
+}
+
+// The four-lane section of an activation (runtime/math_lanes.inc), if any.
+const char* lanes_section_of(Activation a) {
+    switch (a) {
+    case Activation::tanh: return "tanh_lanes";
+    case Activation::sigmoid: return "sigmoid_lanes";
+    case Activation::softplus: return "softplus_lanes";
+    case Activation::silu: return "silu_lanes";
+    default: return nullptr;
+    }
 }
 
 bool has_adaptive_block(const Emission& e) {
@@ -81,12 +99,18 @@ std::string float_kernels(std::set<std::string> wanted) {
 
 }  // namespace
 
+const char* four_lane_kernel(Precision p, const Dense& d) {
+    return p == Precision::float32 && d.out >= 4 ? lanes_section_of(d.act) : nullptr;
+}
+
 std::string render_activation_kernels(Precision p, const std::set<Activation>& used, bool step_controller,
-                                      bool log) {
+                                      bool log, const std::set<Activation>& four_lanes) {
     if (p == Precision::float32) {
         std::set<std::string> wanted;
         for (Activation a : used)
             if (const char* k = kernel_of(a)) wanted.insert(k);
+        for (Activation a : four_lanes)
+            if (const char* k = lanes_section_of(a)) wanted.insert(k);
         if (step_controller) {
             wanted.insert("pow");
             wanted.insert("nextafter");
@@ -155,8 +179,11 @@ std::string render_activation_kernels(Precision p, const std::set<Activation>& u
 }
 
 std::string render_activations(const Emission& e) {
-    std::set<Activation> used;
-    for_each_model_dense(e.model, [&](const Dense& d) { used.insert(d.act); });
+    std::set<Activation> used, four_lanes;
+    for_each_model_dense(e.model, [&](const Dense& d) {
+        used.insert(d.act);
+        if (four_lane_kernel(e.p, d)) four_lanes.insert(d.act);
+    });
     if (e.model.stream) {
         // A GRU cell's gates, a blend's mix.
         if (e.model.stream->update == Stream::Update::gated) used.insert({Activation::sigmoid, Activation::tanh});
@@ -165,7 +192,7 @@ std::string render_activations(const Emission& e) {
     const std::set<Activation> extra = learn_kernel_needs(e);
     used.insert(extra.begin(), extra.end());
     // The cross-entropy loss takes a logarithm (float32: the log kernel's section).
-    return render_activation_kernels(e.p, used, has_adaptive_block(e), learn_needs_log(e));
+    return render_activation_kernels(e.p, used, has_adaptive_block(e), learn_needs_log(e), four_lanes);
 }
 
 std::string apply_activation(const Emission& e, const Dense& d, const std::string& x) {

@@ -93,10 +93,24 @@ std::string integer_steps(const Emission& e, int R, bool bias, const std::set<We
     return o;
 }
 
-// x86 with SSE2: float32 four rows in one register; float64 two rows per
-// register. Packed multiply then packed add: per lane the same two roundings.
+// x86 with SSE2: float32 four rows in one register (a last block of two in its
+// low half: 64-bit loads and stores, the upper lanes unused); float64 two rows
+// per register. Packed multiply then packed add: per lane the same two roundings.
 std::string sse_steps(const Emission& e, int R, bool bias, const std::string& inl) {
     std::string o;
+    if (e.p == Precision::float32 && R == 2) {
+        const std::string half = "_mm_loadl_pi(_mm_setzero_ps(), reinterpret_cast<const __m64*>({}))";
+        o += "struct lanes2 { __m128 v; };\n";
+        o += inl + " void lanes2_zero(lanes2& s) noexcept { s.v = _mm_setzero_ps(); }\n";
+        o += inl + " void lanes2_mac(lanes2& s, const real*& w, real x) noexcept {\n";
+        o += fmt::format("    s.v = _mm_add_ps(s.v, _mm_mul_ps({}, _mm_set1_ps(x)));\n", fmt::format(fmt::runtime(half), "w"));
+        o += "    w += 2;\n}\n";
+        if (bias)
+            o += inl + fmt::format(" void lanes2_add(lanes2& s, const real* b) noexcept {{ s.v = _mm_add_ps(s.v, {}); }}\n",
+                                   fmt::format(fmt::runtime(half), "b"));
+        o += inl + " void lanes2_store(const lanes2& s, real* y) noexcept { _mm_storel_pi(reinterpret_cast<__m64*>(y), s.v); }\n";
+        return o;
+    }
     if (e.p == Precision::float32) {
         o += "struct lanes4 { __m128 v; };\n";
         o += inl + " void lanes4_zero(lanes4& s) noexcept { s.v = _mm_setzero_ps(); }\n";
@@ -177,7 +191,9 @@ std::string arm_steps(int R, bool bias, const std::string& inl) {
 }  // namespace
 
 std::string render_dense_includes(const Emission& e) {
-    return block_sizes(e.model, false).empty() ? "" : "#if defined(__SSE2__)\n#include <emmintrin.h>\n#endif\n\n";
+    bool lanes = !block_sizes(e.model, false).empty();
+    for_each_model_dense(e.model, [&](const Dense& d) { lanes = lanes || four_lane_kernel(e.p, d); });
+    return lanes ? "#if defined(__SSE2__)\n#include <emmintrin.h>\n#endif\n\n" : "";
 }
 
 std::string render_dense_steps(const Emission& e) {
@@ -200,7 +216,7 @@ std::string render_dense_steps(const Emission& e) {
                      inl);
     const std::string arm = "defined(__ARM_ARCH_7EM__) && defined(__ARM_FP) && (__ARM_FP & 4)";
     for (const auto& [R, bias] : sizes) {
-        const bool sse = f32 ? R == 4 : R % 2 == 0;
+        const bool sse = f32 ? R == 4 || R == 2 : R % 2 == 0;
         if (sse) {
             o += "#if defined(__SSE2__)\n" + sse_steps(e, R, bias, inl);
             o += f32 ? "#elif " + arm + "\n" + arm_steps(R, bias, inl) : std::string();
@@ -292,7 +308,18 @@ std::string render_dense_layers(const Emission& e) {
             o += "    }\n";
         }
         const std::string act = apply_activation(e, d, "y[o]");
-        if (act != "y[o]") o += fmt::format("    for (std::size_t o = 0; o < {}; ++o) y[o] = {};\n", d.out, act);
+        const std::string each = fmt::format("    for (std::size_t o = 0; o < {}; ++o) y[o] = {};\n", d.out, act);
+        if (four_lane_kernel(e.p, d)) {
+            // Four outputs at a time on SSE2 (runtime/math_lanes.inc: the scalar kernel's bits).
+            const int whole = d.out / 4 * 4;
+            o += "#if defined(__SSE2__)\n";
+            o += fmt::format("    for (std::size_t o = 0; o < {}; o += 4) act_{}4(y + o);\n", whole,
+                             activation_name(d.act));
+            if (whole < d.out) o += fmt::format("    for (std::size_t o = {}; o < {}; ++o) y[o] = {};\n", whole, d.out, act);
+            o += "#else\n" + each + "#endif\n";
+        } else if (act != "y[o]") {
+            o += each;
+        }
         if (d.act == Activation::softmax) {
             o += "    // Max-subtracted: exp never overflows and the largest term is 1.\n";
             o += "    real top = y[0];\n";

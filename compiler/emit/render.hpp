@@ -63,9 +63,13 @@ std::string render_weights(const Emission& e);
 // layers are not all in model.blocks, calls it directly.
 std::string render_activations(const Emission& e);
 std::string render_activation_kernels(Precision p, const std::set<Activation>& used, bool step_controller,
-                                      bool log = false);
+                                      bool log = false, const std::set<Activation>& four_lanes = {});
 std::string apply_activation(const Emission& e, const Dense& d, const std::string& x);
 std::string apply_activation(Precision p, const Dense& d, const std::string& x);
+// The four-lane kernel (runtime/math_lanes.inc, x86 SSE2) that a layer's
+// activation goes through four outputs at a time, or null: float32 layers of
+// at least four outputs whose activation has one.
+const char* four_lane_kernel(Precision p, const Dense& d);
 
 // dense.cpp. Outputs go in blocks of kDenseBlockRows with one accumulator
 // each, the rows left over in a last smaller block (weights.cpp interleaves

@@ -277,6 +277,69 @@ inline float nextafter_kernel(float t, float target) noexcept {
     return float_of(b);
 }
 
+// kernel lanes_exp: needs exp_core_neg
+#if defined(__SSE2__)
+// Four table entries, at the lanes' indices plus `at`.
+[[gnu::always_inline]] inline __m128 lanes_table(const float* table, __m128i index, std::uint32_t at) noexcept {
+    alignas(16) std::uint32_t j[4];
+    _mm_store_si128(reinterpret_cast<__m128i*>(j), index);
+    return _mm_setr_ps(table[j[0] + at], table[j[1] + at], table[j[2] + at], table[j[3] + at]);
+}
+// Lanes whose mask is set take a, the others b.
+[[gnu::always_inline]] inline __m128 lanes_select(__m128i mask, __m128 a, __m128 b) noexcept {
+    const __m128 m = _mm_castsi128_ps(mask);
+    return _mm_or_ps(_mm_and_ps(m, a), _mm_andnot_ps(m, b));
+}
+// exp_core_neg on four lanes: the same steps, exp_tail's included.
+[[gnu::always_inline]] inline __m128 lanes_exp_core_neg(__m128 a) noexcept {
+    const __m128 big = _mm_set1_ps(12582912.0f);
+    const __m128 n = _mm_add_ps(_mm_mul_ps(a, _mm_set1_ps(-46.16624f)), big);
+    const __m128 kf = _mm_sub_ps(n, big);
+    const __m128i nb = _mm_castps_si128(n);
+    const __m128 r = _mm_sub_ps(_mm_mul_ps(kf, _mm_set1_ps(6.6310763e-06f)),
+                                _mm_add_ps(a, _mm_mul_ps(kf, _mm_set1_ps(0.02166748f))));
+    const __m128 q = _mm_add_ps(
+        r, _mm_mul_ps(_mm_mul_ps(r, r), _mm_add_ps(_mm_set1_ps(0.5f), _mm_mul_ps(r, _mm_set1_ps(0.16666667f)))));
+    const __m128i j = _mm_and_si128(nb, _mm_set1_epi32(31));
+    const __m128 t = lanes_table(kExp2Table, j, 0u);
+    const __m128 tail = _mm_add_ps(t, _mm_add_ps(lanes_table(kExp2Table, j, 32u), _mm_mul_ps(t, q)));
+    // ((nb >> 5) - 0x25a0000 + 127) << 23, modulo 2^32 as the scalar kernel.
+    const __m128i scale = _mm_slli_epi32(_mm_add_epi32(_mm_srli_epi32(nb, 5), _mm_set1_epi32(127 - 0x25a0000)), 23);
+    return _mm_mul_ps(tail, _mm_castsi128_ps(scale));
+}
+// Lanes whose bits without the sign lie below `limit` (a float's bits): all four?
+[[gnu::always_inline]] inline bool lanes_below(__m128i magnitude, std::int32_t limit) noexcept {
+    return _mm_movemask_ps(_mm_castsi128_ps(_mm_cmplt_epi32(magnitude, _mm_set1_epi32(limit)))) == 15;
+}
+#endif
+
+// kernel softplus_lanes: needs softplus lanes_exp
+#if defined(__SSE2__)
+// act_softplus on y[0..3]; from |x| = 16 up, and NaN, through the scalar kernel.
+[[gnu::always_inline]] inline void act_softplus4(float* y) noexcept {
+    const __m128 x = _mm_loadu_ps(y);
+    const __m128i u = _mm_castps_si128(x);
+    const __m128i mag = _mm_and_si128(u, _mm_set1_epi32(0x7fffffff));
+    if (!lanes_below(mag, 0x41800000)) {  // 16.0f
+        for (int i = 0; i < 4; ++i) y[i] = act_softplus(y[i]);
+        return;
+    }
+    const __m128 big = _mm_set1_ps(12582912.0f);
+    const __m128 e16 = _mm_mul_ps(lanes_exp_core_neg(_mm_castsi128_ps(mag)), _mm_set1_ps(16.0f));
+    const __m128 n = _mm_add_ps(e16, big);
+    const __m128 jf = _mm_sub_ps(n, big);
+    const __m128i j = _mm_and_si128(_mm_castps_si128(n), _mm_set1_epi32(31));
+    const __m128 s = _mm_mul_ps(_mm_sub_ps(e16, jf), lanes_table(kLog1pTable, j, 0u));
+    __m128 c = _mm_sub_ps(_mm_mul_ps(s, _mm_set1_ps(0.2f)), _mm_set1_ps(0.25f));
+    c = _mm_add_ps(_mm_mul_ps(s, c), _mm_set1_ps(0.33333334f));
+    c = _mm_sub_ps(_mm_mul_ps(s, c), _mm_set1_ps(0.5f));
+    const __m128 p = _mm_add_ps(s, _mm_mul_ps(_mm_mul_ps(s, s), c));
+    const __m128 l = _mm_add_ps(lanes_table(kLog1pTable, j, 17u), _mm_add_ps(lanes_table(kLog1pTable, j, 34u), p));
+    const __m128i negative = _mm_cmplt_epi32(u, _mm_setzero_si128());
+    _mm_storeu_ps(y, lanes_select(negative, l, _mm_add_ps(x, l)));
+}
+#endif
+
 bool all_finite(const real* v, std::size_t n) noexcept {
     for (std::size_t i = 0; i < n; ++i)
         if (!std::isfinite(v[i])) return false;
@@ -424,7 +487,12 @@ void dense_g1(const real* __restrict x, real t, real* __restrict y) noexcept {
         lanes1_add(s, b + 4);
         lanes1_store(s, y + 4);
     }
+#if defined(__SSE2__)
+    for (std::size_t o = 0; o < 4; o += 4) act_softplus4(y + o);
+    for (std::size_t o = 4; o < 5; ++o) y[o] = act_softplus(y[o]);
+#else
     for (std::size_t o = 0; o < 5; ++o) y[o] = act_softplus(y[o]);
+#endif
 }
 
 // dense g2: 5 -> 3, identity; 0 blocks of 4 outputs, one of 3, inputs written out

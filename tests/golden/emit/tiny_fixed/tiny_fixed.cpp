@@ -267,6 +267,79 @@ inline float pow2(int k) noexcept { return float_of(static_cast<std::uint32_t>(k
 // kernel relu: needs
 inline float act_relu(float x) noexcept { return x > 0.0f ? x : 0.0f; }
 
+// kernel lanes_exp: needs exp_core_neg
+#if defined(__SSE2__)
+// Four table entries, at the lanes' indices plus `at`.
+[[gnu::always_inline]] inline __m128 lanes_table(const float* table, __m128i index, std::uint32_t at) noexcept {
+    alignas(16) std::uint32_t j[4];
+    _mm_store_si128(reinterpret_cast<__m128i*>(j), index);
+    return _mm_setr_ps(table[j[0] + at], table[j[1] + at], table[j[2] + at], table[j[3] + at]);
+}
+// Lanes whose mask is set take a, the others b.
+[[gnu::always_inline]] inline __m128 lanes_select(__m128i mask, __m128 a, __m128 b) noexcept {
+    const __m128 m = _mm_castsi128_ps(mask);
+    return _mm_or_ps(_mm_and_ps(m, a), _mm_andnot_ps(m, b));
+}
+// exp_core_neg on four lanes: the same steps, exp_tail's included.
+[[gnu::always_inline]] inline __m128 lanes_exp_core_neg(__m128 a) noexcept {
+    const __m128 big = _mm_set1_ps(12582912.0f);
+    const __m128 n = _mm_add_ps(_mm_mul_ps(a, _mm_set1_ps(-46.16624f)), big);
+    const __m128 kf = _mm_sub_ps(n, big);
+    const __m128i nb = _mm_castps_si128(n);
+    const __m128 r = _mm_sub_ps(_mm_mul_ps(kf, _mm_set1_ps(6.6310763e-06f)),
+                                _mm_add_ps(a, _mm_mul_ps(kf, _mm_set1_ps(0.02166748f))));
+    const __m128 q = _mm_add_ps(
+        r, _mm_mul_ps(_mm_mul_ps(r, r), _mm_add_ps(_mm_set1_ps(0.5f), _mm_mul_ps(r, _mm_set1_ps(0.16666667f)))));
+    const __m128i j = _mm_and_si128(nb, _mm_set1_epi32(31));
+    const __m128 t = lanes_table(kExp2Table, j, 0u);
+    const __m128 tail = _mm_add_ps(t, _mm_add_ps(lanes_table(kExp2Table, j, 32u), _mm_mul_ps(t, q)));
+    // ((nb >> 5) - 0x25a0000 + 127) << 23, modulo 2^32 as the scalar kernel.
+    const __m128i scale = _mm_slli_epi32(_mm_add_epi32(_mm_srli_epi32(nb, 5), _mm_set1_epi32(127 - 0x25a0000)), 23);
+    return _mm_mul_ps(tail, _mm_castsi128_ps(scale));
+}
+// Lanes whose bits without the sign lie below `limit` (a float's bits): all four?
+[[gnu::always_inline]] inline bool lanes_below(__m128i magnitude, std::int32_t limit) noexcept {
+    return _mm_movemask_ps(_mm_castsi128_ps(_mm_cmplt_epi32(magnitude, _mm_set1_epi32(limit)))) == 15;
+}
+#endif
+
+// kernel tanh_lanes: needs tanh lanes_exp
+#if defined(__SSE2__)
+// act_tanh on y[0..3]. Both of the scalar kernel's paths (the polynomial below
+// 0.55, the exp above) run on the lanes that take them; from 9.1 up, and for
+// NaN, the group goes through the scalar kernel.
+[[gnu::always_inline]] inline void act_tanh4(float* y) noexcept {
+    const __m128 x = _mm_loadu_ps(y);
+    const __m128i u = _mm_castps_si128(x);
+    const __m128i mag = _mm_and_si128(u, _mm_set1_epi32(0x7fffffff));
+    if (!lanes_below(mag, 0x4111999a)) {  // 9.1f
+        for (int i = 0; i < 4; ++i) y[i] = act_tanh(y[i]);
+        return;
+    }
+    const __m128 a = _mm_castsi128_ps(mag);
+    const __m128i near = _mm_cmplt_epi32(mag, _mm_set1_epi32(0x3f0ccccd));  // 0.55f
+    const int nears = _mm_movemask_ps(_mm_castsi128_ps(near));
+    __m128 r = _mm_setzero_ps();
+    if (nears != 15) {  // 1 - 2e/(1 + e), e = exp(-2|x|)
+        const __m128 e = lanes_exp_core_neg(_mm_add_ps(a, a));
+        const __m128 one = _mm_set1_ps(1.0f);
+        r = _mm_sub_ps(one, _mm_div_ps(_mm_add_ps(e, e), _mm_add_ps(one, e)));
+    }
+    if (nears != 0) {  // tanh_near
+        const __m128 a2 = _mm_mul_ps(a, a);
+        __m128 p = _mm_add_ps(_mm_mul_ps(_mm_set1_ps(-6.28766278e-3f), a2), _mm_set1_ps(2.10820586e-2f));
+        p = _mm_sub_ps(_mm_mul_ps(p, a2), _mm_set1_ps(5.38551211e-2f));
+        p = _mm_add_ps(_mm_mul_ps(p, a2), _mm_set1_ps(1.33326173e-1f));
+        p = _mm_mul_ps(p, a2);
+        const __m128 rn = _mm_add_ps(a, _mm_mul_ps(_mm_mul_ps(a, a2), _mm_sub_ps(p, _mm_set1_ps(3.33333194e-1f))));
+        r = lanes_select(near, rn, r);
+    }
+    // r >= 0 in both paths: the input's sign bit gives -r (and -0 for -0).
+    const __m128i sign = _mm_and_si128(u, _mm_set1_epi32(-0x7fffffff - 1));
+    _mm_storeu_ps(y, _mm_or_ps(r, _mm_castsi128_ps(sign)));
+}
+#endif
+
 bool all_finite(const real* v, std::size_t n) noexcept {
     for (std::size_t i = 0; i < n; ++i)
         if (!std::isfinite(v[i])) return false;
@@ -286,7 +359,16 @@ bool all_finite(const real* v, std::size_t n) noexcept {
 #else
 #define TINY_FIXED_STEP inline
 #endif
-#if defined(__ARM_ARCH_7EM__) && defined(__ARM_FP) && (__ARM_FP & 4)
+#if defined(__SSE2__)
+struct lanes2 { __m128 v; };
+TINY_FIXED_STEP void lanes2_zero(lanes2& s) noexcept { s.v = _mm_setzero_ps(); }
+TINY_FIXED_STEP void lanes2_mac(lanes2& s, const real*& w, real x) noexcept {
+    s.v = _mm_add_ps(s.v, _mm_mul_ps(_mm_loadl_pi(_mm_setzero_ps(), reinterpret_cast<const __m64*>(w)), _mm_set1_ps(x)));
+    w += 2;
+}
+TINY_FIXED_STEP void lanes2_add(lanes2& s, const real* b) noexcept { s.v = _mm_add_ps(s.v, _mm_loadl_pi(_mm_setzero_ps(), reinterpret_cast<const __m64*>(b))); }
+TINY_FIXED_STEP void lanes2_store(const lanes2& s, real* y) noexcept { _mm_storel_pi(reinterpret_cast<__m64*>(y), s.v); }
+#elif defined(__ARM_ARCH_7EM__) && defined(__ARM_FP) && (__ARM_FP & 4)
 struct lanes2 { real a, b; };
 TINY_FIXED_STEP void lanes2_zero(lanes2& s) noexcept { s.a = 0.0f; s.b = 0.0f; }
 TINY_FIXED_STEP void lanes2_mac(lanes2& s, const real*& w, real x) noexcept {
@@ -434,7 +516,11 @@ void dense_f1(const real* __restrict x, real t, real* __restrict y) noexcept {
         lanes4_add(s, b + 0);
         lanes4_store(s, y + 0);
     }
+#if defined(__SSE2__)
+    for (std::size_t o = 0; o < 4; o += 4) act_tanh4(y + o);
+#else
     for (std::size_t o = 0; o < 4; ++o) y[o] = act_tanh(y[o]);
+#endif
 }
 
 // dense f2: 4 -> 3, identity; 0 blocks of 4 outputs, one of 3, inputs written out
