@@ -227,11 +227,12 @@ bool check_expected(const LoadedModel& loaded, const std::string& input_path, co
     const Model& model = loaded.model;
     Rows rows;
     if (model.stream) {
-        auto seq = read_sequence_file(input_path, model.input_size, model.stream->largest_gap, diags);
+        auto seq = read_sequence_file(input_path, model.input_size, model.stream->largest_gap, diags, false, model.input_name,
+                                      &model.input_info);
         if (!seq) return false;
         rows.sequence = std::move(*seq);
     } else {
-        auto plain = read_csv_rows(input_path, model.input_size, diags, false, nullptr, model.input_name);
+        auto plain = read_csv_rows(input_path, model.input_size, diags, false, nullptr, model.input_name, &model.input_info);
         if (!plain) return false;
         for (const auto& r : *plain)
             rows.plain.push_back(Eigen::Map<const Eigen::VectorXd>(r.data(), static_cast<Eigen::Index>(r.size())));
