@@ -134,6 +134,29 @@ void check_csv_header(const std::vector<std::string_view>& fields, const std::ve
     const std::vector<std::string> none;
     const std::vector<std::string>& declared = info && !info->names.empty() ? info->names : none;
     const std::string vec(vector_name);
+    if (!declared.empty() && first < fields.size()) {
+        // A header of other names altogether says nothing of the order: one problem, not one per column.
+        bool related = false;
+        for (std::size_t i = first; i < fields.size() && !related; ++i) {
+            std::string_view name = trimmed(fields[i]);
+            const std::size_t open = name.rfind(" (");
+            if (name.size() > 3 && name.back() == ')' && open != std::string_view::npos && open > 0)
+                name = name.substr(0, open);
+            related = vector_index(name, vector_name) >= 0 || (declared.size() == 1 && name == vector_name) ||
+                      std::find(declared.begin(), declared.end(), name) != declared.end() ||
+                      !close_names(std::string(name), declared, 2).empty();
+        }
+        if (!related) {
+            std::string list;
+            for (std::size_t i = 0; i < declared.size() && i < 8; ++i) list += (i ? ", " : "") + declared[i];
+            if (declared.size() > 8) list += fmt::format(" and {} more", declared.size() - 8);
+            problems.add("header foreign", Loc{line, static_cast<int>(starts[first] + 1)},
+                         fmt::format("the header names none of input '{}''s values: it takes {}, in this order (a line of "
+                                     "other names can stand as a '#' comment)",
+                                     vec, list));
+            return;
+        }
+    }
     for (std::size_t i = first; i < fields.size(); ++i) {
         const std::string_view name = trimmed(fields[i]);
         const Loc at{line, static_cast<int>(starts[i] + 1)};

@@ -160,6 +160,10 @@ TEST(CsvProblems, HeaderIsCheckedAgainstTheDeclaredNames) {
               "you mean 'rpm' (its column 3)?\namps,rpn,torque\n     ^\n"
               "in.csv:1:10: error: column 3 is named 'torque', but input 'x' takes 'rpm' there, and names no value "
               "'torque'\namps,rpn,torque\n         ^\n");
+    // A header of other names altogether: one problem, with the names to write.
+    EXPECT_EQ(problems("names-foreign", "a,b,c\n1,2,3\n", 3, "x", &info),
+              "in.csv:1:1: error: the header names none of input 'x''s values: it takes amps, volts, rpm, in this order (a "
+              "line of other names can stand as a '#' comment)\na,b,c\n^\n");
     // eval's own header form, "name (unit)": a unit other than the declared one is named.
     EXPECT_EQ(problems("names-unit", "amps (mA),volts (V),rpm\n1,2,3\n", 3, "x", &info),
               "in.csv:1:1: error: column 1 gives 'amps' in 'mA', but input 'x' takes it in 'A'\n"
