@@ -4,10 +4,13 @@
 
 #include <fmt/format.h>
 
+#include <algorithm>
 #include <cerrno>
 #include <cmath>
 #include <cstdlib>
 #include <limits>
+
+#include "spelling.hpp"
 
 namespace meander {
 
@@ -126,11 +129,101 @@ std::string csv_separator_problem(std::string_view line, std::size_t fields) {
     return sep ? separator_problem(sep, line) : std::string();
 }
 
+void check_csv_header(const std::vector<std::string_view>& fields, const std::vector<std::size_t>& starts, std::size_t first,
+                      int line, std::string_view vector_name, const VectorInfo* info, RowProblems& problems) {
+    const std::vector<std::string> none;
+    const std::vector<std::string>& declared = info && !info->names.empty() ? info->names : none;
+    const std::string vec(vector_name);
+    if (!declared.empty() && first < fields.size()) {
+        // A header of other names altogether says nothing of the order: one problem, not one per column.
+        bool related = false;
+        for (std::size_t i = first; i < fields.size() && !related; ++i) {
+            std::string_view name = trimmed(fields[i]);
+            const std::size_t open = name.rfind(" (");
+            if (name.size() > 3 && name.back() == ')' && open != std::string_view::npos && open > 0)
+                name = name.substr(0, open);
+            related = vector_index(name, vector_name) >= 0 || (declared.size() == 1 && name == vector_name) ||
+                      std::find(declared.begin(), declared.end(), name) != declared.end() ||
+                      !close_names(std::string(name), declared, 2).empty();
+        }
+        if (!related) {
+            std::string list;
+            for (std::size_t i = 0; i < declared.size() && i < 8; ++i) list += (i ? ", " : "") + declared[i];
+            if (declared.size() > 8) list += fmt::format(" and {} more", declared.size() - 8);
+            problems.add("header foreign", Loc{line, static_cast<int>(starts[first] + 1)},
+                         fmt::format("the header names none of input '{}''s values: it takes {}, in this order (a line of "
+                                     "other names can stand as a '#' comment)",
+                                     vec, list));
+            return;
+        }
+    }
+    for (std::size_t i = first; i < fields.size(); ++i) {
+        const std::string_view name = trimmed(fields[i]);
+        const Loc at{line, static_cast<int>(starts[i] + 1)};
+        const std::size_t column = i + 1, value = i - first;
+        bool repeated = false;
+        for (std::size_t j = first; j < i && !repeated; ++j)
+            if (trimmed(fields[j]) == name) {
+                problems.add(fmt::format("repeat {}", i), at,
+                             fmt::format("column {} repeats the name '{}' of column {}", column, shown(name), j + 1));
+                repeated = true;
+            }
+        if (repeated) continue;
+        const long k = vector_index(name, vector_name);
+        if (k >= 0) {
+            if (static_cast<std::size_t>(k) != value)
+                problems.add(fmt::format("order {}", i), at,
+                             fmt::format("column {} is named '{}', but input '{}' takes its values in order: column {} "
+                                         "holds {}.{}",
+                                         column, shown(name), vec, column, vec, value));
+            continue;
+        }
+        if (declared.size() <= value) continue;  // no names given: a header of the user's own
+        // "name (unit)", as eval writes its headers.
+        std::string base(name), unit;
+        const std::size_t open = name.rfind(" (");
+        if (name.size() > 3 && name.back() == ')' && open != std::string_view::npos && open > 0) {
+            base = std::string(name.substr(0, open));
+            unit = std::string(name.substr(open + 2, name.size() - open - 3));
+        }
+        if (base == declared[value] || (declared.size() == 1 && base == vec)) {
+            const std::string& want = value < info->units.size() ? info->units[value] : std::string();
+            if (!unit.empty() && !want.empty() && unit != want)
+                problems.add(fmt::format("unit {}", i), at,
+                             fmt::format("column {} gives '{}' in '{}', but input '{}' takes it in '{}'", column, base,
+                                         shown(unit), vec, want));
+            continue;
+        }
+        const auto elsewhere = std::find(declared.begin(), declared.end(), base);
+        if (elsewhere != declared.end()) {
+            problems.add(fmt::format("place {}", i), at,
+                         fmt::format("column {} is named '{}', but input '{}' takes '{}' there: '{}' is its column {}", column,
+                                     shown(name), vec, declared[value], base,
+                                     first + static_cast<std::size_t>(elsewhere - declared.begin()) + 1));
+            continue;
+        }
+        std::string message = fmt::format("column {} is named '{}', but input '{}' takes '{}' there", column, shown(name),
+                                          vec, declared[value]);
+        const std::vector<std::string> close = close_names(base, declared, 2);
+        if (!close.empty() && close.front() == declared[value]) {
+            message += fmt::format(": did you mean '{}'?", close.front());
+        } else if (!close.empty()) {
+            const std::size_t j = static_cast<std::size_t>(std::find(declared.begin(), declared.end(), close.front()) -
+                                                           declared.begin());
+            message += fmt::format(", and names no value '{}': did you mean '{}' (its column {})?", base, close.front(),
+                                   first + j + 1);
+        } else {
+            message += fmt::format(", and names no value '{}'", shown(base));
+        }
+        problems.add(fmt::format("name {}", i), at, message);
+    }
+}
+
 bool parse_number(std::string_view field, double& out) { return read_number(field, out) == NumberRead::ok; }
 
 std::optional<std::vector<std::vector<double>>> read_csv_rows(const std::string& path, int width, Diagnostics& diags,
                                                               bool float32_range, std::vector<int>* lines,
-                                                              std::string_view vector_name) {
+                                                              std::string_view vector_name, const VectorInfo* info) {
     auto text = read_file(path, diags);
     if (!text) return std::nullopt;
     Source src(path, *text);
@@ -164,22 +257,13 @@ std::optional<std::vector<std::vector<double>>> read_csv_rows(const std::string&
             continue;
         }
         if (header) {
-            for (std::size_t i = 0; i < fields.size(); ++i) {
-                const std::string_view name = trimmed(fields[i].text);
-                const Loc at{ln, static_cast<int>(fields[i].start + 1)};
-                for (std::size_t j = 0; j < i; ++j)
-                    if (trimmed(fields[j].text) == name) {
-                        problems.add(fmt::format("repeat {}", i), at,
-                                     fmt::format("column {} repeats the name '{}' of column {}", i + 1, shown(name), j + 1));
-                        break;
-                    }
-                const long k = vector_index(name, vector_name);
-                if (k >= 0 && static_cast<std::size_t>(k) != i)
-                    problems.add(fmt::format("order {}", i), at,
-                                 fmt::format("column {} is named '{}', but input '{}' takes its values in order: column {} "
-                                             "holds {}.{}",
-                                             i + 1, shown(name), vector_name, i + 1, vector_name, i));
+            std::vector<std::string_view> names;
+            std::vector<std::size_t> starts;
+            for (const Field& f : fields) {
+                names.push_back(f.text);
+                starts.push_back(f.start);
             }
+            check_csv_header(names, starts, 0, ln, vector_name, info, problems);
             continue;
         }
         bool fits = true;

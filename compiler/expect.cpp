@@ -10,6 +10,7 @@
 #include <optional>
 
 #include "../runtime/evaluate.hpp"
+#include "expect_mistakes.hpp"
 #include "format.hpp"
 #include "sequence.hpp"
 
@@ -74,14 +75,6 @@ std::vector<Dense*> dense_layers(Model& m) {
     return out;
 }
 
-// One export mistake: what it is, the layers it concerns (indices into dense_layers)
-// with the advice for each, and how to undo it on a copy of the model.
-struct Mistake {
-    std::string what;
-    std::vector<std::pair<int, std::string>> advice;
-    std::function<void(Model&)> undo;
-};
-
 // The weight read as stored (in, out): the bound matrix transposed (square only).
 void transpose_weight(Dense& d) { d.weight = Eigen::MatrixXd(d.weight.transpose()); }
 
@@ -101,7 +94,7 @@ void rotate_time(Dense& d, bool to_last) {
     d.weight = w;
 }
 
-std::vector<Mistake> usual_mistakes(const Model& model) {
+std::vector<Mistake> usual_mistakes(const Model& model, const std::vector<Tensor>& loose) {
     Model probe = model;
     const std::vector<Dense*> layers = dense_layers(probe);
     std::vector<Mistake> out;
@@ -146,43 +139,39 @@ std::vector<Mistake> usual_mistakes(const Model& model) {
     for (int i : square)
         out.push_back({fmt::format("the square weight of layer '{}' {}", layers[static_cast<std::size_t>(i)]->name,
                                    layers[static_cast<std::size_t>(i)]->transposed ? "read as (in, out)" : "transposed"),
-                       {{i, transposed_advice(i)}}, transpose_all({i})});
+                       {{layers[static_cast<std::size_t>(i)]->loc, transposed_advice(i)}}, transpose_all({i})});
     if (square.size() > 1) {
         Mistake all{fmt::format("all {} square weights transposed", square.size()), {}, transpose_all(square)};
-        for (int i : square) all.advice.emplace_back(i, transposed_advice(i));
+        for (int i : square) all.advice.emplace_back(layers[static_cast<std::size_t>(i)]->loc, transposed_advice(i));
         out.push_back(std::move(all));
     }
     for (int i : timed)
         out.push_back({fmt::format("the time column of layer '{}' {}", layers[static_cast<std::size_t>(i)]->name,
                                    layers[static_cast<std::size_t>(i)]->time_first ? "last" : "first"),
-                       {{i, time_advice(i)}}, rotate_all({i})});
+                       {{layers[static_cast<std::size_t>(i)]->loc, time_advice(i)}}, rotate_all({i})});
     if (timed.size() > 1) {
         Mistake all{fmt::format("the time column first in all {} layers with '+ t'", timed.size()), {}, rotate_all(timed)};
-        for (int i : timed) all.advice.emplace_back(i, time_advice(i));
+        for (int i : timed) all.advice.emplace_back(layers[static_cast<std::size_t>(i)]->loc, time_advice(i));
         out.push_back(std::move(all));
     }
     // The head: the model's last layer, when it is a dense one.
     if (!model.blocks.empty() && model.blocks.back().kind == Block::Kind::dense) {
         const Dense& head = model.blocks.back().dense;
-        const int at = [&] {
-            for (int i = 0; i < static_cast<int>(layers.size()); ++i)
-                if (layers[static_cast<std::size_t>(i)]->name == head.name) return i;
-            return -1;
-        }();
         if (head.act == Activation::softmax)
             out.push_back({"logits written instead of probabilities",
-                           {{at, fmt::format("layer '{}': the expected file holds its values before the softmax (logits): "
+                           {{head.loc, fmt::format("layer '{}': the expected file holds its values before the softmax (logits): "
                                              "write the probabilities from the trainer (torch.softmax(logits, -1)), or drop "
                                              "'softmax' from the layer if the deployed model is to give logits",
                                              head.name)}},
-                           [](Model& m) { m.blocks.back().dense.act = Activation::identity; }});
+                           [](Model& m) { m.blocks.back().dense.act = Activation::identity; }, -1});
         else if (head.act == Activation::identity)
             out.push_back({"probabilities written where the description gives logits",
-                           {{at, fmt::format("layer '{}': the expected file holds probabilities: add ', softmax' to the "
+                           {{head.loc, fmt::format("layer '{}': the expected file holds probabilities: add ', softmax' to the "
                                              "layer (or write the logits from the trainer)",
                                              head.name)}},
-                           [](Model& m) { m.blocks.back().dense.act = Activation::softmax; }});
+                           [](Model& m) { m.blocks.back().dense.act = Activation::softmax; }, -1});
     }
+    for (Mistake& m : standardisation_mistakes(model, loose)) out.push_back(std::move(m));
     return out;
 }
 
@@ -238,11 +227,12 @@ bool check_expected(const LoadedModel& loaded, const std::string& input_path, co
     const Model& model = loaded.model;
     Rows rows;
     if (model.stream) {
-        auto seq = read_sequence_file(input_path, model.input_size, model.stream->largest_gap, diags);
+        auto seq = read_sequence_file(input_path, model.input_size, model.stream->largest_gap, diags, false, model.input_name,
+                                      &model.input_info);
         if (!seq) return false;
         rows.sequence = std::move(*seq);
     } else {
-        auto plain = read_csv_rows(input_path, model.input_size, diags, false, nullptr, model.input_name);
+        auto plain = read_csv_rows(input_path, model.input_size, diags, false, nullptr, model.input_name, &model.input_info);
         if (!plain) return false;
         for (const auto& r : *plain)
             rows.plain.push_back(Eigen::Map<const Eigen::VectorXd>(r.data(), static_cast<Eigen::Index>(r.size())));
@@ -290,9 +280,7 @@ bool check_expected(const LoadedModel& loaded, const std::string& input_path, co
                              dev.worst, tolerance));
     // Which usual mistake explains it: each one undone on a copy of the model.
     std::vector<const Mistake*> explain;
-    const std::vector<Mistake> mistakes = usual_mistakes(model);
-    Model original = model;
-    const std::vector<Dense*> layers = dense_layers(original);
+    const std::vector<Mistake> mistakes = usual_mistakes(model, loaded.loose_vectors);
     for (const Mistake& m : mistakes) {
         Model probe = model;
         m.undo(probe);
@@ -304,6 +292,7 @@ bool check_expected(const LoadedModel& loaded, const std::string& input_path, co
     if (explain.empty())
         for (std::size_t a = 0; a < mistakes.size(); ++a)
             for (std::size_t b = a + 1; b < mistakes.size(); ++b) {
+                if (mistakes[a].group >= 0 && mistakes[a].group == mistakes[b].group) continue;  // the same thing twice
                 Model probe = model;
                 mistakes[a].undo(probe);
                 mistakes[b].undo(probe);
@@ -313,7 +302,7 @@ bool check_expected(const LoadedModel& loaded, const std::string& input_path, co
         diags.report(Severity::note, &loaded.source, Loc{}, fmt::format("they agree with {} and {} together:", a->what, b->what));
         for (const Mistake* m : {a, b})
             for (const auto& [at, advice] : m->advice)
-                if (at >= 0) diags.note(loaded.source, layers[static_cast<std::size_t>(at)]->loc, advice);
+                if (at.line > 0) diags.note(loaded.source, at, advice);
     }
     if (!pairs.empty()) return false;
     if (explain.empty()) {
@@ -321,15 +310,15 @@ bool check_expected(const LoadedModel& loaded, const std::string& input_path, co
         for (const Mistake& m : mistakes) tried += (tried.empty() ? "" : "; ") + m.what;
         diags.report(Severity::note, &loaded.source, Loc{},
                      mistakes.empty() ? std::string("no usual export mistake applies to this model (no square weight, no "
-                                                    "'+ t' layer, no dense head)")
+                                                    "'+ t' layer, no dense head, no standardisation and no loose tensor "
+                                                    "of the input's or output's length)")
                                       : fmt::format("none of the usual export mistakes explains it, alone or two together (tried: {})", tried));
         return false;
     }
     for (const Mistake* m : explain) {
         diags.report(Severity::note, &loaded.source, Loc{}, fmt::format("they agree with {}:", m->what));
         for (const auto& [at, advice] : m->advice) {
-            if (at < 0) continue;
-            diags.note(loaded.source, layers[static_cast<std::size_t>(at)]->loc, advice);
+            if (at.line > 0) diags.note(loaded.source, at, advice);
         }
     }
     return false;

@@ -4,8 +4,10 @@
 // training framework wrote for the same rows. When they disagree, the usual
 // export mistakes are tried one at a time on a copy of the model (a square
 // weight stored (in, out), a time column stored first, logits written instead
-// of probabilities and the other way round); each one that makes them agree is
-// named at the layer to change, with the option to add or drop.
+// of probabilities and the other way round, standardisation missing, made with
+// other tensors or doubled: compiler/expect_mistakes.hpp); each one that makes
+// them agree is named at the layer or statement to change, with the option to
+// add or drop or the statement to write.
 #pragma once
 
 #include <string>
@@ -25,7 +27,8 @@ inline constexpr double kExpectTolerance = 1e-4;
 // an optional header line). Returns true when every value agrees; prints a summary
 // line into `summary`. Disagreement, a file of the wrong shape and rows that do not
 // evaluate are errors in `diags`; a mistake that explains a disagreement is a note
-// at its layer in the description.
+// at its layer in the description. The standardisation candidates come from
+// `loaded.loose_vectors`.
 bool check_expected(const LoadedModel& loaded, const std::string& input_path, const std::string& expect_path,
                     double tolerance, Diagnostics& diags, std::string& summary);
 

@@ -2,6 +2,7 @@
 
 #include <fmt/format.h>
 
+#include <cmath>
 #include <filesystem>
 
 #include "check.hpp"
@@ -11,6 +12,29 @@
 namespace meander {
 
 namespace fs = std::filesystem;
+
+namespace {
+
+bool names_standardisation(const VectorInfo& info, const std::string& tensor) {
+    return info.standardised && (info.standardised->mean_tensor == tensor || info.standardised->scale_tensor == tensor);
+}
+
+// The vectors no layer binds (see LoadedModel::loose_vectors).
+std::vector<Tensor> loose_vectors(const Model& model, const TensorSet& set, const std::vector<std::string>& binding) {
+    std::vector<Tensor> out;
+    for (std::size_t i = 0; i < set.tensors.size(); ++i) {
+        const Tensor& t = set.tensors[i];
+        const bool loose = binding[i] == "ignored" || names_standardisation(model.input_info, t.name) ||
+                           names_standardisation(model.output_info, t.name);
+        const bool vector = t.shape.size() == 1 || (t.shape.size() == 2 && t.shape[0] == 1);
+        bool finite = true;
+        for (double v : t.values) finite = finite && std::isfinite(v);
+        if (loose && vector && finite && !t.values.empty()) out.push_back(t);
+    }
+    return out;
+}
+
+}  // namespace
 
 std::string weights_path_of(const Model& model, const std::string& description_path) {
     fs::path wpath = fs::path(model.weights_path);
@@ -27,7 +51,7 @@ std::optional<LoadedModel> load_model(const std::string& path, Precision precisi
     CheckOptions copts;
     copts.precision = precision;
     if (!check_model(*model, *src, copts, diags)) return std::nullopt;
-    LoadedModel out{std::move(*src), std::move(*model), {}, {}};
+    LoadedModel out{std::move(*src), std::move(*model), {}, {}, {}};
     std::uint64_t hash = fnv1a64(out.source.text);
     if (with_weights) {
         if (out.model.weights_path.empty()) {
@@ -42,7 +66,9 @@ std::optional<LoadedModel> load_model(const std::string& path, Precision precisi
         };
         auto set = read_weights(weights, diags, out.model.weights_key, &out.model);
         if (!set) return named_here();
-        if (!bind_weights(out.model, out.source, *set, diags)) return std::nullopt;
+        std::vector<std::string> binding;
+        if (!bind_weights(out.model, out.source, *set, diags, &binding)) return std::nullopt;
+        out.loose_vectors = loose_vectors(out.model, *set, binding);
         if (!check_weight_range(out.model, out.source, precision, diags)) return std::nullopt;
         auto bytes = weights_bytes(weights, diags);
         if (!bytes) return named_here();

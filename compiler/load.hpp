@@ -8,6 +8,7 @@
 #include "../runtime/model.hpp"
 #include "quantise.hpp"
 #include "source.hpp"
+#include "weights.hpp"
 
 namespace meander {
 
@@ -16,6 +17,10 @@ struct LoadedModel {
     Model model;
     std::string content_hash;       // "fnv1a64:<16 hex digits>" of description and weights bytes
     std::vector<StorageNote> storage_notes;  // layers asked for integer weights that stay real, zero rows
+    // The weights file's vectors (shape (N,) or (1, N), finite) that no layer binds: the
+    // ignored ones and the standardisation's own. `check --expect` pairs them as the
+    // standardisation a description may lack (compiler/expect_mistakes.hpp).
+    std::vector<Tensor> loose_vectors;
 };
 
 // Weights are read from the model's `weights` path, relative to the

@@ -110,7 +110,8 @@ std::optional<LoadedWithRows> load_with_rows(const std::string& path, Precision 
     auto loaded = load_model(path, p, diags, true, storage);
     if (!loaded || refuse_stream(*loaded, path, command, diags)) return std::nullopt;
     std::vector<int> lines;
-    auto rows = read_csv_rows(input, loaded->model.input_size, diags, float32_inputs, &lines, loaded->model.input_name);
+    auto rows = read_csv_rows(input, loaded->model.input_size, diags, float32_inputs, &lines, loaded->model.input_name,
+                              &loaded->model.input_info);
     if (!rows) return std::nullopt;
     return LoadedWithRows{std::move(*loaded), std::move(*rows), std::move(lines)};
 }
@@ -195,12 +196,13 @@ int cmd_eval(const std::string& model_path, const std::string& input, const std:
     std::vector<EvalResult> results;
     std::vector<int> lines;
     if (model.stream) {
-        auto rows = read_sequence_file(input, model.input_size, model.stream->largest_gap, diags);
+        auto rows = read_sequence_file(input, model.input_size, model.stream->largest_gap, diags, false, model.input_name,
+                                       &model.input_info);
         if (!rows) return flush(diags), kModelError;
         results = evaluate_sequences(model, *rows);
         for (const auto& r : *rows) lines.push_back(r.line);
     } else {
-        auto rows = read_csv_rows(input, model.input_size, diags, false, &lines, model.input_name);
+        auto rows = read_csv_rows(input, model.input_size, diags, false, &lines, model.input_name, &model.input_info);
         if (!rows) return flush(diags), kModelError;
         for (const auto& x : to_vectors(*rows)) results.push_back(evaluate(model, x));
     }
@@ -353,7 +355,7 @@ int cmd_compile(const std::string& model_path, const std::string& outdir, const 
     if (!self_test.empty() && loaded->model.stream) {
         // A sequence file: each golden observation keeps its gap and where its sequence begins.
         auto rows = read_sequence_file(self_test, loaded->model.input_size, loaded->model.stream->largest_gap, diags,
-                                       p == Precision::float32);
+                                       p == Precision::float32, loaded->model.input_name, &loaded->model.input_info);
         if (!rows) return flush(diags), kModelError;
         const std::vector<EvalResult> results = evaluate_sequences(loaded->model, *rows);
         for (std::size_t i = 0; i < rows->size(); ++i) {
@@ -370,7 +372,8 @@ int cmd_compile(const std::string& model_path, const std::string& outdir, const 
         }
         if (!diags.ok()) return flush(diags), kModelError;
     } else if (!self_test.empty()) {
-        auto rows = read_csv_rows(self_test, loaded->model.input_size, diags, p == Precision::float32);
+        auto rows = read_csv_rows(self_test, loaded->model.input_size, diags, p == Precision::float32, nullptr,
+                                  loaded->model.input_name, &loaded->model.input_info);
         if (!rows) return flush(diags), kModelError;
         int row = 0;
         for (const auto& in : to_vectors(*rows)) {
@@ -471,7 +474,7 @@ int cmd_verify(const std::string& model_path, const std::string& input, const st
         auto loaded = load_model(model_path, p, sd, true, storage);
         if (loaded && loaded->model.stream) {
             auto rows = read_sequence_file(input, loaded->model.input_size, loaded->model.stream->largest_gap, sd,
-                                           p == Precision::float32);
+                                           p == Precision::float32, loaded->model.input_name, &loaded->model.input_info);
             if (!rows) return flush(sd), kModelError;
             report_storage_notes(*loaded, sd);
             std::optional<StorageDeviation> deviation;
@@ -546,7 +549,8 @@ int cmd_cost(const std::string& model_path, const std::string& input, const std:
         // Per observation: the worst case at the largest gap, and the spread over a sequence file.
         std::vector<SequenceRow> rows;
         if (!input.empty()) {
-            auto read = read_sequence_file(input, loaded->model.input_size, loaded->model.stream->largest_gap, diags);
+            auto read = read_sequence_file(input, loaded->model.input_size, loaded->model.stream->largest_gap, diags, false,
+                                           loaded->model.input_name, &loaded->model.input_info);
             if (!read) return flush(diags), kModelError;
             rows = std::move(*read);
         }
@@ -557,7 +561,8 @@ int cmd_cost(const std::string& model_path, const std::string& input, const std:
         return 0;
     }
     if (!input.empty()) {
-        auto rows = read_csv_rows(input, loaded->model.input_size, diags);
+        auto rows = read_csv_rows(input, loaded->model.input_size, diags, false, nullptr, loaded->model.input_name,
+                                  &loaded->model.input_info);
         if (!rows) return flush(diags), kModelError;
         co.inputs = *rows;
     }
@@ -681,7 +686,8 @@ int cmd_tune(const std::string& model_path, const std::string& input, const std:
                                      "description's weights-as statements apply)\n");
                 return kUsageError;
             }
-            auto rows = read_sequence_file(input, loaded->model.input_size, loaded->model.stream->largest_gap, sd);
+            auto rows = read_sequence_file(input, loaded->model.input_size, loaded->model.stream->largest_gap, sd, false,
+                                           loaded->model.input_name, &loaded->model.input_info);
             if (!rows) return flush(sd), kModelError;
             auto rep = tune_stream(loaded->model, *rows, to, sd);
             flush(sd);
@@ -782,7 +788,7 @@ int cmd_refit(const std::string& model_path, const std::string& input, const std
     }
     if (!a.check_input.empty()) {
         std::vector<int> lines;
-        auto rows = read_csv_rows(a.check_input, model.input_size, diags, false, &lines);
+        auto rows = read_csv_rows(a.check_input, model.input_size, diags, false, &lines, model.input_name, &model.input_info);
         if (!rows) return flush(diags), kModelError;
         o.check_inputs = *rows;
         if (!a.check_labels.empty() && !(o.check_labels = read_labels(a.check_labels, model, rows->size(), diags)))

@@ -28,7 +28,8 @@ std::string_view trimmed(std::string_view s) {
 }  // namespace
 
 std::optional<std::vector<SequenceRow>> read_sequence_file(const std::string& path, int width, double largest_gap,
-                                                           Diagnostics& diags, bool float32_range) {
+                                                           Diagnostics& diags, bool float32_range, std::string_view vector_name,
+                                                           const VectorInfo* info) {
     auto text = read_file(path, diags);
     if (!text) return std::nullopt;
     Source src(path, *text);
@@ -70,6 +71,8 @@ std::optional<std::vector<SequenceRow>> read_sequence_file(const std::string& pa
                 diags.error(src, Loc{line, 1}, fmt::format("header names {} columns, expected {}: a sequence id, a time stamp "
                                                            "and {} observation values",
                                                            fields.size(), columns, width));
+            else
+                check_csv_header(fields, starts, 2, line, vector_name, info, problems);
             continue;
         }
         first_content = false;

@@ -25,9 +25,12 @@ struct SequenceRow {
 // Every problem is reported with its line: a wrong column count, a value that is not a number,
 // a time stamp that is not finite, goes backwards or repeats within a sequence, a gap larger
 // than `largest_gap`, a sequence id that returns after another began.
-// With `float32_range`, values beyond the largest float are errors too.
+// With `float32_range`, values beyond the largest float are errors too. With `vector_name`
+// and `info` (the input's), a header's observation columns are checked as check_csv_header
+// says (source.hpp); the sequence id's and time stamp's columns may be named freely.
 std::optional<std::vector<SequenceRow>> read_sequence_file(const std::string& path, int width, double largest_gap,
-                                                           Diagnostics& diags, bool float32_range = false);
+                                                           Diagnostics& diags, bool float32_range = false,
+                                                           std::string_view vector_name = {}, const VectorInfo* info = nullptr);
 
 // A streaming model over every row, the state reset to zero where a sequence begins: one result per row.
 std::vector<EvalResult> evaluate_sequences(const Model& model, const std::vector<SequenceRow>& rows);

@@ -230,7 +230,7 @@ TEST(Verify, NothingComparedIsNoAgreement) {
 
 TEST(Verify, InputsBeyondFloat32AreRefusedWithTheirPosition) {
     const fs::path d = scratch("verify-range");
-    meander::test::write_text(d / "in.csv", "a,b,c,d,e,f,g,h\n1,2,3,4,5,6,7,8\n1,2,1e39,4,5,6,7,8\n");
+    meander::test::write_text(d / "in.csv", "speed_hz,v1x_mms,v2x_mms,axial_ratio,phase_jitter_deg,res_hz,bearing_c,broadband_g\n1,2,3,4,5,6,7,8\n1,2,1e39,4,5,6,7,8\n");
     Outcome r = run("verify " + (fs::path(MEANDER_SOURCE_DIR) / "samples/fan_balance/fan_balance.mnd").string() +
                     " --input " + (d / "in.csv").string());
     EXPECT_EQ(r.status, 1);
@@ -281,7 +281,7 @@ TEST(ExitCodes, NotANumberIsAUsageError) {
 
 TEST(Eval, AFailingRowIsNamedByItsLine) {
     const fs::path d = scratch("eval-row");
-    meander::test::write_text(d / "in.csv", "a,b,c,d,e,f,g,h\n1,2,3,4,5,6,7,8\n\n1,nan,3,4,5,6,7,8\n");
+    meander::test::write_text(d / "in.csv", "speed_hz,v1x_mms,v2x_mms,axial_ratio,phase_jitter_deg,res_hz,bearing_c,broadband_g\n1,2,3,4,5,6,7,8\n\n1,nan,3,4,5,6,7,8\n");
     Outcome r = run("eval " + (fs::path(MEANDER_SOURCE_DIR) / "samples/fan_balance/fan_balance.mnd").string() +
                     " --input " + (d / "in.csv").string());
     EXPECT_EQ(r.status, 1);

@@ -389,6 +389,34 @@ TEST(Cost, CodeAndStackAreWhatTheCrossToolsSay) {
     fs::remove_all(dir);
 }
 
+// The name tables are constants in flash, counted in .rodata: the same model with names and
+// units for its values takes what a hand count of the tables says more (the C++ ABI of the
+// 32-bit cores: 4-byte pointers, each string its characters and a NUL; the strings of one
+// object share a section of byte alignment).
+TEST(Cost, NameTablesCountInTheConstants) {
+    if (!have("arm-none-eabi-g++") || !have("arm-none-eabi-size"))
+        GTEST_SKIP() << "arm-none-eabi tools are not installed (scripts/install-target-tools)";
+    CostOptions o;
+    o.measure_cycles = false;
+    Diagnostics diags;
+    const auto plain = measure_cost(mixed_model(), o, diags);
+    Model named = mixed_model();
+    named.input_info.names = {"current", "supply", "speed"};
+    named.input_info.units = {"A", "V", ""};
+    named.output_info.names = {"efficiency", "power"};
+    named.output_info.units = {"", ""};
+    const auto with = measure_cost(named, o, diags);
+    ASSERT_TRUE(plain && with) << diags.render();
+    ASSERT_TRUE(plain->code_measured && with->code_measured);
+    // Without names: input_names {"x.0", "x.1", "x.2"}, output_names {"y.0", "y.1"}: 12 + 8 bytes of strings.
+    // With them: "current", "supply", "speed" (8 + 7 + 6), "efficiency", "power" (11 + 6), and an
+    // input_units table of 3 pointers (12) with "A", "V", "" (2 + 2 + 1); no output_units (no unit given).
+    const long without_bytes = 12 + 8;
+    const long with_bytes = (8 + 7 + 6) + (11 + 6) + 12 + (2 + 2 + 1);
+    EXPECT_EQ(with->rodata_bytes - plain->rodata_bytes, with_bytes - without_bytes);
+    EXPECT_EQ(with->code_bytes, plain->code_bytes);
+}
+
 TEST(Cost, WithoutTheEmulatorTheEstimateStandsAlone) {
     // No measurement when qemu is missing: the report says why and keeps the estimate.
     CostOptions o;

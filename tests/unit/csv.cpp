@@ -15,6 +15,7 @@
 #include <limits>
 #include <sstream>
 
+#include "compiler/sequence.hpp"
 #include "compiler/source.hpp"
 #include "test_support.hpp"
 
@@ -26,12 +27,13 @@ namespace {
 fs::path scratch(const std::string& name) { return test::scratch_dir("test_csv", name); }
 
 // The diagnostics of reading `text` as rows of `width`, rendered, with the path shortened to "in.csv".
-std::string problems(const std::string& name, const std::string& text, int width, std::string_view vector = {}) {
+std::string problems(const std::string& name, const std::string& text, int width, std::string_view vector = {},
+                     const VectorInfo* info = nullptr) {
     const fs::path dir = scratch(name);
     test::write_text(dir / "in.csv", text);
     Diagnostics d;
     std::vector<int> lines;
-    EXPECT_FALSE(read_csv_rows((dir / "in.csv").string(), width, d, false, &lines, vector));
+    EXPECT_FALSE(read_csv_rows((dir / "in.csv").string(), width, d, false, &lines, vector, info));
     std::string out = d.render();
     const std::string path = (dir / "in.csv").string();
     for (std::size_t at; (at = out.find(path)) != std::string::npos;) out.replace(at, path.size(), "in.csv");
@@ -130,6 +132,111 @@ TEST(CsvProblems, HeaderIsCheckedAgainstTheInputName) {
     test::write_text(dir / "in.csv", "vib.0,vib.1,rpm\n1,2,3\n");
     Diagnostics d;
     EXPECT_TRUE(read_csv_rows((dir / "in.csv").string(), 3, d, false, nullptr, "vib")) << d.render();
+}
+
+// An input with `names [amps in "A", volts in "V", rpm]`.
+VectorInfo motor_names() {
+    VectorInfo info;
+    info.names = {"amps", "volts", "rpm"};
+    info.units = {"A", "V", ""};
+    return info;
+}
+
+TEST(CsvProblems, HeaderIsCheckedAgainstTheDeclaredNames) {
+    const VectorInfo info = motor_names();
+    // A declared name in another column: where it belongs is named.
+    EXPECT_EQ(problems("names-swapped", "amps,rpm,volts\n1,2,3\n", 3, "x", &info),
+              "in.csv:1:6: error: column 2 is named 'rpm', but input 'x' takes 'volts' there: 'rpm' is its column 3\n"
+              "amps,rpm,volts\n     ^\n"
+              "in.csv:1:10: error: column 3 is named 'volts', but input 'x' takes 'rpm' there: 'volts' is its column 2\n"
+              "amps,rpm,volts\n         ^\n");
+    // A misspelt name: the declared one close to it.
+    EXPECT_EQ(problems("names-misspelt", "amps,vlots,rpm\n1,2,3\n", 3, "x", &info),
+              "in.csv:1:6: error: column 2 is named 'vlots', but input 'x' takes 'volts' there: did you mean 'volts'?\n"
+              "amps,vlots,rpm\n     ^\n");
+    // Close to a name of another column, and unknown altogether.
+    EXPECT_EQ(problems("names-unknown", "amps,rpn,torque\n1,2,3\n", 3, "x", &info),
+              "in.csv:1:6: error: column 2 is named 'rpn', but input 'x' takes 'volts' there, and names no value 'rpn': did "
+              "you mean 'rpm' (its column 3)?\namps,rpn,torque\n     ^\n"
+              "in.csv:1:10: error: column 3 is named 'torque', but input 'x' takes 'rpm' there, and names no value "
+              "'torque'\namps,rpn,torque\n         ^\n");
+    // A header of other names altogether: one problem, with the names to write.
+    EXPECT_EQ(problems("names-foreign", "a,b,c\n1,2,3\n", 3, "x", &info),
+              "in.csv:1:1: error: the header names none of input 'x''s values: it takes amps, volts, rpm, in this order (a "
+              "line of other names can stand as a '#' comment)\na,b,c\n^\n");
+    // eval's own header form, "name (unit)": a unit other than the declared one is named.
+    EXPECT_EQ(problems("names-unit", "amps (mA),volts (V),rpm\n1,2,3\n", 3, "x", &info),
+              "in.csv:1:1: error: column 1 gives 'amps' in 'mA', but input 'x' takes it in 'A'\n"
+              "amps (mA),volts (V),rpm\n^\n");
+    // A repeated name is one problem, not two.
+    EXPECT_EQ(problems("names-repeat", "amps,volts,volts\n1,2,3\n", 3, "x", &info),
+              "in.csv:1:12: error: column 3 repeats the name 'volts' of column 2\namps,volts,volts\n           ^\n");
+    // The declared names, with or without their units (as eval writes them), or the vector's own
+    // value names in order, read.
+    for (const char* header : {"amps,volts,rpm", "amps (A),volts (V),rpm", " amps , volts (V), rpm", "x.0,x[1],x.2"}) {
+        const fs::path dir = scratch("names-ok");
+        test::write_text(dir / "in.csv", std::string(header) + "\n1,2,3\n");
+        Diagnostics d;
+        auto rows = read_csv_rows((dir / "in.csv").string(), 3, d, false, nullptr, "x", &info);
+        ASSERT_TRUE(rows) << header << "\n" << d.render();
+        EXPECT_EQ((*rows)[0], (std::vector<double>{1, 2, 3}));
+    }
+    // A vector of one value may be named after the vector.
+    VectorInfo one;
+    one.names = {"surface"};
+    one.units = {"degC"};
+    const fs::path dir = scratch("names-one");
+    test::write_text(dir / "in.csv", "surface_c\n1\n");
+    Diagnostics d;
+    EXPECT_TRUE(read_csv_rows((dir / "in.csv").string(), 1, d, false, nullptr, "surface_c", &one)) << d.render();
+}
+
+// A streaming model's sequence file: the id and time columns are free, the observation's are checked.
+TEST(CsvProblems, SequenceHeaderIsCheckedAgainstTheDeclaredNames) {
+    const VectorInfo info = motor_names();
+    const fs::path dir = scratch("sequence-names");
+    test::write_text(dir / "in.csv", "trip,hour,amps,rpm,volts\na,0,1,2,3\na,1,1,2,3\n");
+    Diagnostics d;
+    EXPECT_FALSE(read_sequence_file((dir / "in.csv").string(), 3, 4.0, d, false, "x", &info));
+    std::string out = d.render();
+    const std::string path = (dir / "in.csv").string();
+    for (std::size_t at; (at = out.find(path)) != std::string::npos;) out.replace(at, path.size(), "in.csv");
+    EXPECT_EQ(out,
+              "in.csv:1:16: error: column 4 is named 'rpm', but input 'x' takes 'volts' there: 'rpm' is its column 5\n"
+              "trip,hour,amps,rpm,volts\n               ^\n"
+              "in.csv:1:20: error: column 5 is named 'volts', but input 'x' takes 'rpm' there: 'volts' is its column 4\n"
+              "trip,hour,amps,rpm,volts\n                   ^\n");
+    test::write_text(dir / "in.csv", "trip,hour,amps (A),volts,rpm\na,0,1,2,3\na,1,1,2,3\n");
+    Diagnostics ok;
+    EXPECT_TRUE(read_sequence_file((dir / "in.csv").string(), 3, 4.0, ok, false, "x", &info)) << ok.render();
+}
+
+// Through the binary: eval's output of one model, fed back as the input of a model whose input
+// takes those names, reads; in another order it is refused with exit status 1.
+TEST(CsvProblems, EvalOutputFeedsAModelThatTakesItsNames) {
+    const fs::path sample = fs::path(MEANDER_SOURCE_DIR) / "samples" / "soil_probe";
+    const fs::path dir = scratch("eval-feeds");
+    const auto first = test::run(std::string(MEANDER_BINARY) + " eval " + (sample / "soil_probe.mnd").string() + " --input " +
+                                 (sample / "inputs.csv").string() + " --output " + (dir / "estimate.csv").string());
+    ASSERT_EQ(first.status, 0) << first.output;
+    ASSERT_EQ(test::read_text(dir / "estimate.csv").substr(0, 33), "water_pct (%),pore_ec_dsm (dS/m)\n");
+    // A model that reads the estimate: its input takes water_pct in % and pore_ec_dsm in dS/m.
+    test::write_text(dir / "w.mnw", "meander-weights 1\ntensor d.weight float64 1 2\n1 -1\ntensor d.bias float64 1\n0\n");
+    test::write_text(dir / "next.mnd", "model next\nweights \"w.mnw\"\n"
+                                       "input estimate[2], names [water_pct in \"%\", pore_ec_dsm in \"dS/m\"]\n"
+                                       "dense d: 2 -> 1\noutput y[1]\n");
+    const std::string eval = std::string(MEANDER_BINARY) + " eval " + (dir / "next.mnd").string() + " --input ";
+    const auto fed = test::run(eval + (dir / "estimate.csv").string());
+    EXPECT_EQ(fed.status, 0) << fed.output;
+    std::string swapped = test::read_text(dir / "estimate.csv");
+    swapped.replace(0, swapped.find('\n'), "pore_ec_dsm (dS/m),water_pct (%)");
+    test::write_text(dir / "swapped.csv", swapped);
+    const auto refused = test::run(eval + (dir / "swapped.csv").string());
+    EXPECT_EQ(refused.status, 1) << refused.output;
+    EXPECT_NE(refused.output.find("swapped.csv:1:1: error: column 1 is named 'pore_ec_dsm (dS/m)', but input 'estimate' "
+                                  "takes 'water_pct' there: 'pore_ec_dsm' is its column 2"),
+              std::string::npos)
+        << refused.output;
 }
 
 // eval --keep-going on soil_probe's inputs with two rows made non-finite: the other rows

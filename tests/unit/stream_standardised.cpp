@@ -115,7 +115,7 @@ TEST(StreamStandardised, OverflowingObservationIsRefusedWithTheStateKept) {
     text.replace(text.find(weights), weights.size(),
                  fmt::format("\"{}/samples/parcel_chill/parcel_chill.pt\"", MEANDER_SOURCE_DIR));
     meander::test::write_text(dir / "m.mnd", text);
-    meander::test::write_text(dir / "s.csv", "id,t,x\n1,0,8.5\n1,1,1e10\n");
+    meander::test::write_text(dir / "s.csv", "id,t,surface\n1,0,8.5\n1,1,1e10\n");
     const auto e = meander::test::run_shell(
         fmt::format("{} eval {} --input {} --keep-going 2>&1", MEANDER_BINARY, (dir / "m.mnd").string(), (dir / "s.csv").string()));
     EXPECT_EQ(e.status, 0) << e.output;
