@@ -3,7 +3,7 @@
 // content hash (description and weights): 0123456789abcdef
 // precision: float32 (real = float)
 // math: meander's own float kernels (runtime/math_float.inc), no C library maths;
-//   largest error in ulp against MPFR: exp 1.0 expm1 1.5 tanh 1.5 sigmoid 2.5 softplus 2.0 silu 3.5 gelu 3.5
+//   largest error in ulp against MPFR: exp 1.0 expm1 1.5 tanh 2.5 sigmoid 2.5 softplus 2.0 silu 2.5 gelu 3.5
 // bits: the same outputs on every core when built with -ffp-contract=off (no FMA
 //   contraction), without -ffast-math, rounding to nearest, subnormals kept;
 //   build_conditions_hold() checks a build, the self-test reports it
@@ -33,7 +33,7 @@
 #include <emmintrin.h>
 #endif
 
-#if !defined(TINY_ADAPTIVE_MEANDER_STAMP) || TINY_ADAPTIVE_MEANDER_STAMP != 0x47da4ca447dca262ULL
+#if !defined(TINY_ADAPTIVE_MEANDER_STAMP) || TINY_ADAPTIVE_MEANDER_STAMP != 0x14dbb0edfc3419a8ULL
 #error "tiny_adaptive.hpp is not the header generated with this source: regenerate both"
 #endif
 
@@ -112,7 +112,7 @@ inline float float_of(std::uint32_t u) noexcept {
 inline float mul_apart(float a, float b) noexcept { return a * b; }
 #endif
 
-// kernel exp_core: needs bits_of float_of mul_apart
+// kernel exp_tail: needs bits_of float_of mul_apart
 // e^x = 2^m 2^(j/32) e^r: k = 32 m + j = round(x 32/ln2), found by adding
 // 1.5 2^23 (the addition rounds; k is in the low bits of the sum),
 // r = x - k ln2/32 with |r| <= ln2/64 (Cody and Waite: ln2/32 in two parts,
@@ -139,6 +139,8 @@ constexpr float kExp2Table[64] = {
     const float t = kExp2Table[j];
     return t + (kExp2Table[j + 32u] + mul_apart(t, q));
 }
+
+// kernel exp_core: needs exp_tail bits_of float_of mul_apart
 // e^x for -87 <= x <= 88 only (the callers keep it there; NaN gives NaN):
 // no range checks. 2^m, -126 <= m <= 126, is built from its bits.
 [[gnu::always_inline]] inline float exp_core(float x) noexcept {
@@ -149,18 +151,7 @@ constexpr float kExp2Table[64] = {
     return exp_tail(r, nb) * float_of(((nb >> 5) - 0x25a0000u + 127u) << 23);
 }
 
-// kernel exp_core_neg: needs exp_core bits_of float_of mul_apart
-// exp_core(-a), the same bits: -a K = a (-K), and (-a - kf c1) + kf c2 = kf c2 - (a + kf c1)
-// (rounding to nearest is symmetric), without negating a first.
-[[gnu::always_inline]] inline float exp_core_neg(float a) noexcept {
-    const float n = mul_apart(a, -46.16624f) + 12582912.0f;
-    const float kf = n - 12582912.0f;
-    const std::uint32_t nb = bits_of(n);
-    const float r = mul_apart(kf, 6.6310763e-06f) - (a + mul_apart(kf, 0.02166748f));
-    return exp_tail(r, nb) * float_of(((nb >> 5) - 0x25a0000u + 127u) << 23);
-}
-
-// kernel exp_scaled: needs exp_core
+// kernel exp_scaled: needs exp_tail bits_of float_of mul_apart
 // 2^k for -126 <= k <= 127, exactly.
 inline float pow2(int k) noexcept { return float_of(static_cast<std::uint32_t>(k + 127) << 23); }
 // s exp(hi + lo) for |lo| <= 2^-20 |hi| and 2^-8 <= |s| <= 2^8, any hi:
@@ -195,49 +186,48 @@ inline float log1p_series(float z) noexcept {
     return 2.0f * z + 2.0f * z * p;
 }
 
-// kernel softplus: needs exp exp_core_neg mul_apart
-// max(x, 0) + log1p(e), e = exp(-|x|) in (2^-24, 1]. log1p(e) from a table
-// at the points j/16: e = j/16 + d (d exact, |d| <= 1/32), so
-// log1p(e) = log(1 + j/16) + log1p(s), s = d/(1 + j/16), |s| <= 1/32, by its
-// Taylor series to s^5 (truncation below 2^-27 of the result); the table
-// holds 1/(16 + j) and log(1 + j/16) as a float pair (204 bytes). x >= 16
-// gives x (the rest is below half an ulp); x <= -16 gives e - e^2/2.
-constexpr float kLog1pTable[51] = {
-    // 1/(16 + j), j = 0..16
-    0.0625f, 0.05882353f, 0.055555556f, 0.05263158f, 0.05f, 0.04761905f, 0.045454547f, 0.04347826f,
-    0.041666668f, 0.04f, 0.03846154f, 0.037037037f, 0.035714287f, 0.03448276f, 0.033333335f, 0.032258064f,
-    0.03125f,
-    // log(1 + j/16) rounded to float
-    0.0f, 0.06062462f, 0.11778303f, 0.17185026f, 0.22314355f, 0.2719337f, 0.31845373f, 0.3629055f,
-    0.4054651f, 0.4462871f, 0.48550782f, 0.52324814f, 0.5596158f, 0.59470713f, 0.62860864f, 0.6613985f,
-    0.6931472f,
-    // log(1 + j/16) minus the float above, rounded to float
-    0.0f, 7.905942e-12f, 3.2986907e-09f, -7.145759e-09f, 3.5408485e-09f, 1.0869003e-08f, 1.9658553e-09f,
-    -8.629968e-09f, 1.1872889e-08f, 7.081697e-09f, -2.945779e-10f, 7.720999e-09f, -2.908541e-09f,
-    -2.363911e-08f, 1.5413738e-08f, 1.1843601e-08f, -1.9046542e-09f};
-// |x| >= 16 and NaN, out of line.
-[[gnu::noinline, gnu::cold]] inline float softplus_outer(float x) noexcept {
-    if (!(x < 0.0f)) return x;  // and NaN
-    const float e = exp_kernel(x);
-    return e - 0.5f * e * e;
+// kernel softplus: needs exp bits_of mul_apart
+// max(x, 0) + l, l = log1p(exp(-|x|)), without exp or log below |x| = 8: l by
+// a polynomial in t = |x| - k, k = round(|x|) (0..8, |t| <= 1/2), degree 6,
+// one per k (least squares weighted to relative error, on Chebyshev points,
+// fitted in 120-bit arithmetic with mpmath; the constant as a float pair),
+// 288 bytes. From 8 to 16, l = e - e^2/2 + e^3/3 with e = exp(-|x|) <= e^-8,
+// out of line; x itself above 16 (l is below half an ulp), and below -16 the
+// same series.
+constexpr float kSoftplusTable[72] = {
+    // per k: constant (float pair), then the coefficients of t, t^2, ..., t^6
+    6.931472e-01f, -1.9576256e-09f, -5e-01f, 1.2499971e-01f, 3.2736757e-06f, -5.2255527e-03f, 4.43563e-05f, 2.9909887e-04f,
+    3.132617e-01f, 2.1420457e-09f, -2.6894152e-01f, 9.8305814e-02f, -1.5140014e-02f, -1.4707638e-03f, 1.0051555e-03f, -6.9969254e-05f,
+    1.2692802e-01f, -6.669566e-09f, -1.1920289e-01f, 5.249688e-02f, -1.3328161e-02f, 1.6178249e-03f, 1.8209507e-04f, -1.1755541e-04f,
+    4.8587352e-02f, -8.5889396e-10f, -4.7425862e-02f, 2.2588355e-02f, -6.8156826e-03f, 1.3719188e-03f, -1.5259215e-04f, -6.9252787e-06f,
+    1.8149927e-02f, 6.7773226e-10f, -1.798621e-02f, 8.831351e-03f, -2.8378821e-03f, 6.579855e-04f, -1.118829e-04f, 1.2270634e-05f,
+    6.7153485e-03f, 7.837789e-11f, -6.6928524e-03f, 3.324025e-03f, -1.0931361e-03f, 2.659872e-04f, -5.0642357e-05f, 7.3605584e-06f,
+    2.4756852e-03f, -4.6491127e-11f, -2.4726237e-03f, 1.233253e-03f, -4.0903015e-04f, 1.01266254e-04f, -2.0026388e-05f, 3.1443046e-06f,
+    9.114665e-04f, -2.3160042e-11f, -9.1105147e-04f, 4.5510993e-04f, -1.5141815e-04f, 3.7725113e-05f, -7.562188e-06f, 1.2185536e-06f,
+    3.3540637e-04f, 6.4535937e-12f, -3.353501e-04f, 1.6761926e-04f, -5.583024e-05f, 1.3970579e-05f, -2.6908451e-06f, 5.887009e-07f
+};
+[[gnu::noinline, gnu::cold]] inline float softplus_outer(float x) noexcept {  // |x| >= 8, NaN
+    if (!(x < 16.0f)) return x;  // and NaN
+    const float e = exp_kernel(-std::fabs(x));
+    const float l = e - mul_apart(e * e, 0.5f - mul_apart(e, 0.33333334f));
+    return x > 0.0f ? x + l : l;
 }
 [[gnu::always_inline]] inline float act_softplus(float x) noexcept {
     const std::uint32_t u = bits_of(x);
-    float r;
-    if ((u << 1) < (0x41800000u << 1)) {  // |x| < 16 (0x41800000)
-        const float e16 = exp_core_neg(std::fabs(x)) * 16.0f;
-        const float n = e16 + 12582912.0f;  // 1.5 2^23 + j, j = round(16 e)
-        const float jf = n - 12582912.0f;
-        const std::uint32_t j = bits_of(n) & 31u;
-        const float s = (e16 - jf) * kLog1pTable[j];
-        const float p =
-            s + mul_apart(s * s, mul_apart(s, mul_apart(s, mul_apart(s, 0.2f) - 0.25f) + 0.33333334f) - 0.5f);
-        const float l = kLog1pTable[j + 17u] + (kLog1pTable[j + 34u] + p);
-        r = static_cast<std::int32_t>(u) >= 0 ? x + l : l;  // +0 + l is l
-    } else {
-        r = softplus_outer(x);
+    if (((u >> 23) & 0xffu) < 130u) {  // |x| < 8: the exponent field below 3
+        const float a = std::fabs(x);
+        const float n = a + 12582912.0f;  // 1.5 2^23 + k
+        const float t = a - (n - 12582912.0f);
+        const float* c = kSoftplusTable + 8u * (bits_of(n) & 15u);
+        float p = mul_apart(c[7], t) + c[6];
+        p = mul_apart(p, t) + c[5];
+        p = mul_apart(p, t) + c[4];
+        p = mul_apart(p, t) + c[3];
+        p = mul_apart(p, t) + c[2];
+        const float l = c[0] + (c[1] + mul_apart(t, p));
+        return static_cast<std::int32_t>(u) >= 0 ? x + l : l;  // +0 + l is l
     }
-    return r;
+    return softplus_outer(x);
 }
 
 // kernel log: needs log1p_series bits_of float_of
