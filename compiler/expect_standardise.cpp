@@ -131,16 +131,22 @@ void add_pairings(const Side& side, const std::vector<Tensor>& loose, std::vecto
             const std::string instead = now ? fmt::format(", in place of '{}'", written_clause(*now)) : std::string();
             if (variance) {
                 // The statement takes a scale, not a variance: the square root has to be saved as a tensor.
-                std::string root = scale->name;
-                const std::size_t at = root.rfind("var");
-                root = at == std::string::npos ? root + "_std" : root.substr(0, at) + "std" + root.substr(at + 3);
+                std::string root = scale->name;   // a name for it: "running_var" -> "running_std"
+                for (const std::string word : {"variance", "var"}) {
+                    const std::size_t at = root.rfind(word);
+                    if (at == std::string::npos) continue;
+                    root.replace(at, word.size(), "std");
+                    break;
+                }
+                if (root == scale->name) root += "_std";
                 m.advice.emplace_back(
                     side.loc,
                     fmt::format("{} '{}': the trained network {} with the mean '{}' and a scale that is the square root "
                                 "of the variance '{}' (tried without any eps a normalisation layer adds): save sqrt({} + eps) "
                                 "as a tensor, say '{}', and write '{}'{}",
-                                side.kind, *side.name, side.input ? "standardises it" : "gives it as y * scale + mean", mean->name, scale->name, scale->name, root,
-                                statement(side, clause(mean->name, root)), instead));
+                                side.kind, *side.name, side.input ? "standardises it" : "gives it as y * scale + mean",
+                                mean->name, scale->name, scale->name, root, statement(side, clause(mean->name, root)),
+                                instead));
             } else {
                 m.advice.emplace_back(side.loc, fmt::format("{} '{}': the trained network {} with the mean '{}' and the "
                                                             "scale '{}': write '{}'{}",
