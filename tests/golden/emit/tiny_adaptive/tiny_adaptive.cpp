@@ -120,24 +120,21 @@ inline float mul_apart(float a, float b) noexcept { return a * b; }
 // (truncation below 2^-30), 2^(j/32) from a table as a float pair (256
 // bytes), so the sum rounds once: within about 0.52 ulp before scaling.
 constexpr float kExp2Table[64] = {
-    // 2^(j/32) rounded to float, j = 0..31
-    1.0f, 1.0218972f, 1.0442737f, 1.0671405f, 1.0905077f, 1.1143868f, 1.1387886f, 1.1637249f,
-    1.1892071f, 1.2152474f, 1.2418578f, 1.269051f, 1.2968396f, 1.3252367f, 1.3542556f, 1.38391f,
-    1.4142135f, 1.4451808f, 1.4768262f, 1.5091645f, 1.5422108f, 1.5759809f, 1.6104903f, 1.6457555f,
-    1.6817929f, 1.7186193f, 1.7562522f, 1.7947091f, 1.8340081f, 1.8741677f, 1.9152066f, 1.9571441f,
-    // 2^(j/32) minus the float above, rounded to float
-    0.0f, -4.81156e-08f, 4.83347e-08f, -5.933752e-08f, -1.307754e-08f, -5.43554e-08f, 5.3862223e-08f,
-    -4.0514415e-08f, 3.7976353e-08f, -3.267395e-08f, 4.496838e-08f, 1.4193333e-09f, -4.0189995e-08f,
-    -3.4963733e-08f, -1.0123349e-08f, -5.8755774e-08f, 2.4203235e-08f, 3.3242e-08f, -4.500899e-08f,
-    -2.4959373e-08f, 8.070905e-09f, -5.6610254e-08f, 9.836217e-09f, -5.124972e-08f, -2.4755327e-08f,
-    -4.8496176e-08f, -9.23577e-09f, -1.1415045e-08f, -1.1239278e-08f, -4.6630056e-08f, 9.845328e-09f,
-    -1.7021804e-08f};
+    // per j = 0..31: 2^(j/32) rounded to float, then what it lacks, rounded to float
+    1.0f, 0.0f, 1.0218972f, -4.81156e-08f, 1.0442737f, 4.83347e-08f, 1.0671405f, -5.933752e-08f,
+    1.0905077f, -1.307754e-08f, 1.1143868f, -5.43554e-08f, 1.1387886f, 5.3862223e-08f, 1.1637249f, -4.0514415e-08f,
+    1.1892071f, 3.7976353e-08f, 1.2152474f, -3.267395e-08f, 1.2418578f, 4.496838e-08f, 1.269051f, 1.4193333e-09f,
+    1.2968396f, -4.0189995e-08f, 1.3252367f, -3.4963733e-08f, 1.3542556f, -1.0123349e-08f, 1.38391f, -5.8755774e-08f,
+    1.4142135f, 2.4203235e-08f, 1.4451808f, 3.3242e-08f, 1.4768262f, -4.500899e-08f, 1.5091645f, -2.4959373e-08f,
+    1.5422108f, 8.070905e-09f, 1.5759809f, -5.6610254e-08f, 1.6104903f, 9.836217e-09f, 1.6457555f, -5.124972e-08f,
+    1.6817929f, -2.4755327e-08f, 1.7186193f, -4.8496176e-08f, 1.7562522f, -9.23577e-09f, 1.7947091f, -1.1415045e-08f,
+    1.8340081f, -1.1239278e-08f, 1.8741677f, -4.6630056e-08f, 1.9152066f, 9.845328e-09f, 1.9571441f, -1.7021804e-08f};
 // 2^(j/32) e^r, j the low 5 bits of k (nb = bits of 1.5 2^23 + k).
 [[gnu::always_inline]] inline float exp_tail(float r, std::uint32_t nb) noexcept {
     const std::uint32_t j = nb & 31u;
     const float q = r + mul_apart(r * r, 0.5f + mul_apart(r, 0.16666667f));
-    const float t = kExp2Table[j];
-    return t + (kExp2Table[j + 32u] + mul_apart(t, q));
+    const float t = kExp2Table[2u * j];
+    return t + (kExp2Table[2u * j + 1u] + mul_apart(t, q));
 }
 
 // kernel exp_core: needs exp_tail bits_of float_of mul_apart
@@ -267,65 +264,45 @@ inline float nextafter_kernel(float t, float target) noexcept {
     return float_of(b);
 }
 
-// kernel lanes_exp: needs exp_core_neg
+// kernel softplus_lanes: needs softplus
 #if defined(__SSE2__)
-// Four table entries, at the lanes' indices plus `at`.
-[[gnu::always_inline]] inline __m128 lanes_table(const float* table, __m128i index, std::uint32_t at) noexcept {
-    alignas(16) std::uint32_t j[4];
-    _mm_store_si128(reinterpret_cast<__m128i*>(j), index);
-    return _mm_setr_ps(table[j[0] + at], table[j[1] + at], table[j[2] + at], table[j[3] + at]);
-}
-// Lanes whose mask is set take a, the others b.
-[[gnu::always_inline]] inline __m128 lanes_select(__m128i mask, __m128 a, __m128 b) noexcept {
-    const __m128 m = _mm_castsi128_ps(mask);
-    return _mm_or_ps(_mm_and_ps(m, a), _mm_andnot_ps(m, b));
-}
-// exp_core_neg on four lanes: the same steps, exp_tail's included.
-[[gnu::always_inline]] inline __m128 lanes_exp_core_neg(__m128 a) noexcept {
-    const __m128 big = _mm_set1_ps(12582912.0f);
-    const __m128 n = _mm_add_ps(_mm_mul_ps(a, _mm_set1_ps(-46.16624f)), big);
-    const __m128 kf = _mm_sub_ps(n, big);
-    const __m128i nb = _mm_castps_si128(n);
-    const __m128 r = _mm_sub_ps(_mm_mul_ps(kf, _mm_set1_ps(6.6310763e-06f)),
-                                _mm_add_ps(a, _mm_mul_ps(kf, _mm_set1_ps(0.02166748f))));
-    const __m128 q = _mm_add_ps(
-        r, _mm_mul_ps(_mm_mul_ps(r, r), _mm_add_ps(_mm_set1_ps(0.5f), _mm_mul_ps(r, _mm_set1_ps(0.16666667f)))));
-    const __m128i j = _mm_and_si128(nb, _mm_set1_epi32(31));
-    const __m128 t = lanes_table(kExp2Table, j, 0u);
-    const __m128 tail = _mm_add_ps(t, _mm_add_ps(lanes_table(kExp2Table, j, 32u), _mm_mul_ps(t, q)));
-    // ((nb >> 5) - 0x25a0000 + 127) << 23, modulo 2^32 as the scalar kernel.
-    const __m128i scale = _mm_slli_epi32(_mm_add_epi32(_mm_srli_epi32(nb, 5), _mm_set1_epi32(127 - 0x25a0000)), 23);
-    return _mm_mul_ps(tail, _mm_castsi128_ps(scale));
-}
-// Lanes whose bits without the sign lie below `limit` (a float's bits): all four?
-[[gnu::always_inline]] inline bool lanes_below(__m128i magnitude, std::int32_t limit) noexcept {
-    return _mm_movemask_ps(_mm_castsi128_ps(_mm_cmplt_epi32(magnitude, _mm_set1_epi32(limit)))) == 15;
-}
-#endif
-
-// kernel softplus_lanes: needs softplus lanes_exp
-#if defined(__SSE2__)
-// act_softplus on y[0..3]; from |x| = 16 up, and NaN, through the scalar kernel.
+// act_softplus on y[0..3]; from |x| = 8 up, and NaN, through the scalar kernel.
+// Each lane's eight coefficients come in as two rows of four and are
+// transposed, so that each coefficient is one register across the lanes.
 [[gnu::always_inline]] inline void act_softplus4(float* y) noexcept {
     const __m128 x = _mm_loadu_ps(y);
-    const __m128i u = _mm_castps_si128(x);
-    const __m128i mag = _mm_and_si128(u, _mm_set1_epi32(0x7fffffff));
-    if (!lanes_below(mag, 0x41800000)) {  // 16.0f
+    if (!lanes_all(lanes_exponent_in(x, 0, 129))) {  // |x| < 8
         for (int i = 0; i < 4; ++i) y[i] = act_softplus(y[i]);
         return;
     }
     const __m128 big = _mm_set1_ps(12582912.0f);
-    const __m128 e16 = _mm_mul_ps(lanes_exp_core_neg(_mm_castsi128_ps(mag)), _mm_set1_ps(16.0f));
-    const __m128 n = _mm_add_ps(e16, big);
-    const __m128 jf = _mm_sub_ps(n, big);
-    const __m128i j = _mm_and_si128(_mm_castps_si128(n), _mm_set1_epi32(31));
-    const __m128 s = _mm_mul_ps(_mm_sub_ps(e16, jf), lanes_table(kLog1pTable, j, 0u));
-    __m128 c = _mm_sub_ps(_mm_mul_ps(s, _mm_set1_ps(0.2f)), _mm_set1_ps(0.25f));
-    c = _mm_add_ps(_mm_mul_ps(s, c), _mm_set1_ps(0.33333334f));
-    c = _mm_sub_ps(_mm_mul_ps(s, c), _mm_set1_ps(0.5f));
-    const __m128 p = _mm_add_ps(s, _mm_mul_ps(_mm_mul_ps(s, s), c));
-    const __m128 l = _mm_add_ps(lanes_table(kLog1pTable, j, 17u), _mm_add_ps(lanes_table(kLog1pTable, j, 34u), p));
-    const __m128i negative = _mm_cmplt_epi32(u, _mm_setzero_si128());
+    const __m128 a = _mm_and_ps(x, _mm_castsi128_ps(_mm_set1_epi32(0x7fffffff)));
+    const __m128 n = _mm_add_ps(a, big);
+    const __m128 t = _mm_sub_ps(a, _mm_sub_ps(n, big));
+    alignas(16) std::uint32_t k[4];
+    _mm_store_si128(reinterpret_cast<__m128i*>(k), _mm_and_si128(_mm_castps_si128(n), _mm_set1_epi32(15)));
+    __m128 c[8];
+    for (int h = 0; h < 2; ++h) {
+        const __m128 r0 = _mm_loadu_ps(kSoftplusTable + 8u * k[0] + 4 * h);
+        const __m128 r1 = _mm_loadu_ps(kSoftplusTable + 8u * k[1] + 4 * h);
+        const __m128 r2 = _mm_loadu_ps(kSoftplusTable + 8u * k[2] + 4 * h);
+        const __m128 r3 = _mm_loadu_ps(kSoftplusTable + 8u * k[3] + 4 * h);
+        const __m128 t0 = _mm_unpacklo_ps(r0, r1);
+        const __m128 t1 = _mm_unpacklo_ps(r2, r3);
+        const __m128 t2 = _mm_unpackhi_ps(r0, r1);
+        const __m128 t3 = _mm_unpackhi_ps(r2, r3);
+        c[4 * h] = _mm_movelh_ps(t0, t1);
+        c[4 * h + 1] = _mm_movehl_ps(t1, t0);
+        c[4 * h + 2] = _mm_movelh_ps(t2, t3);
+        c[4 * h + 3] = _mm_movehl_ps(t3, t2);
+    }
+    __m128 p = _mm_add_ps(_mm_mul_ps(c[7], t), c[6]);
+    p = _mm_add_ps(_mm_mul_ps(p, t), c[5]);
+    p = _mm_add_ps(_mm_mul_ps(p, t), c[4]);
+    p = _mm_add_ps(_mm_mul_ps(p, t), c[3]);
+    p = _mm_add_ps(_mm_mul_ps(p, t), c[2]);
+    const __m128 l = _mm_add_ps(c[0], _mm_add_ps(c[1], _mm_mul_ps(t, p)));
+    const __m128i negative = _mm_cmplt_epi32(_mm_castps_si128(x), _mm_setzero_si128());
     _mm_storeu_ps(y, lanes_select(negative, l, _mm_add_ps(x, l)));
 }
 #endif

@@ -146,24 +146,21 @@ inline float mul_apart(float a, float b) noexcept { return a * b; }
 // (truncation below 2^-30), 2^(j/32) from a table as a float pair (256
 // bytes), so the sum rounds once: within about 0.52 ulp before scaling.
 constexpr float kExp2Table[64] = {
-    // 2^(j/32) rounded to float, j = 0..31
-    1.0f, 1.0218972f, 1.0442737f, 1.0671405f, 1.0905077f, 1.1143868f, 1.1387886f, 1.1637249f,
-    1.1892071f, 1.2152474f, 1.2418578f, 1.269051f, 1.2968396f, 1.3252367f, 1.3542556f, 1.38391f,
-    1.4142135f, 1.4451808f, 1.4768262f, 1.5091645f, 1.5422108f, 1.5759809f, 1.6104903f, 1.6457555f,
-    1.6817929f, 1.7186193f, 1.7562522f, 1.7947091f, 1.8340081f, 1.8741677f, 1.9152066f, 1.9571441f,
-    // 2^(j/32) minus the float above, rounded to float
-    0.0f, -4.81156e-08f, 4.83347e-08f, -5.933752e-08f, -1.307754e-08f, -5.43554e-08f, 5.3862223e-08f,
-    -4.0514415e-08f, 3.7976353e-08f, -3.267395e-08f, 4.496838e-08f, 1.4193333e-09f, -4.0189995e-08f,
-    -3.4963733e-08f, -1.0123349e-08f, -5.8755774e-08f, 2.4203235e-08f, 3.3242e-08f, -4.500899e-08f,
-    -2.4959373e-08f, 8.070905e-09f, -5.6610254e-08f, 9.836217e-09f, -5.124972e-08f, -2.4755327e-08f,
-    -4.8496176e-08f, -9.23577e-09f, -1.1415045e-08f, -1.1239278e-08f, -4.6630056e-08f, 9.845328e-09f,
-    -1.7021804e-08f};
+    // per j = 0..31: 2^(j/32) rounded to float, then what it lacks, rounded to float
+    1.0f, 0.0f, 1.0218972f, -4.81156e-08f, 1.0442737f, 4.83347e-08f, 1.0671405f, -5.933752e-08f,
+    1.0905077f, -1.307754e-08f, 1.1143868f, -5.43554e-08f, 1.1387886f, 5.3862223e-08f, 1.1637249f, -4.0514415e-08f,
+    1.1892071f, 3.7976353e-08f, 1.2152474f, -3.267395e-08f, 1.2418578f, 4.496838e-08f, 1.269051f, 1.4193333e-09f,
+    1.2968396f, -4.0189995e-08f, 1.3252367f, -3.4963733e-08f, 1.3542556f, -1.0123349e-08f, 1.38391f, -5.8755774e-08f,
+    1.4142135f, 2.4203235e-08f, 1.4451808f, 3.3242e-08f, 1.4768262f, -4.500899e-08f, 1.5091645f, -2.4959373e-08f,
+    1.5422108f, 8.070905e-09f, 1.5759809f, -5.6610254e-08f, 1.6104903f, 9.836217e-09f, 1.6457555f, -5.124972e-08f,
+    1.6817929f, -2.4755327e-08f, 1.7186193f, -4.8496176e-08f, 1.7562522f, -9.23577e-09f, 1.7947091f, -1.1415045e-08f,
+    1.8340081f, -1.1239278e-08f, 1.8741677f, -4.6630056e-08f, 1.9152066f, 9.845328e-09f, 1.9571441f, -1.7021804e-08f};
 // 2^(j/32) e^r, j the low 5 bits of k (nb = bits of 1.5 2^23 + k).
 [[gnu::always_inline]] inline float exp_tail(float r, std::uint32_t nb) noexcept {
     const std::uint32_t j = nb & 31u;
     const float q = r + mul_apart(r * r, 0.5f + mul_apart(r, 0.16666667f));
-    const float t = kExp2Table[j];
-    return t + (kExp2Table[j + 32u] + mul_apart(t, q));
+    const float t = kExp2Table[2u * j];
+    return t + (kExp2Table[2u * j + 1u] + mul_apart(t, q));
 }
 
 // kernel exp_core: needs exp_tail bits_of float_of mul_apart
@@ -269,76 +266,83 @@ inline float pow2(int k) noexcept { return float_of(static_cast<std::uint32_t>(k
 // kernel relu: needs
 inline float act_relu(float x) noexcept { return x > 0.0f ? x : 0.0f; }
 
-// kernel lanes_exp: needs exp_core_neg
+// kernel lanes_exp: needs exp_split
 #if defined(__SSE2__)
-// Four table entries, at the lanes' indices plus `at`.
-[[gnu::always_inline]] inline __m128 lanes_table(const float* table, __m128i index, std::uint32_t at) noexcept {
-    alignas(16) std::uint32_t j[4];
-    _mm_store_si128(reinterpret_cast<__m128i*>(j), index);
-    return _mm_setr_ps(table[j[0] + at], table[j[1] + at], table[j[2] + at], table[j[3] + at]);
-}
 // Lanes whose mask is set take a, the others b.
 [[gnu::always_inline]] inline __m128 lanes_select(__m128i mask, __m128 a, __m128 b) noexcept {
     const __m128 m = _mm_castsi128_ps(mask);
     return _mm_or_ps(_mm_and_ps(m, a), _mm_andnot_ps(m, b));
 }
-// exp_core_neg on four lanes: the same steps, exp_tail's included.
-[[gnu::always_inline]] inline __m128 lanes_exp_core_neg(__m128 a) noexcept {
+// All four lanes' masks set?
+[[gnu::always_inline]] inline bool lanes_all(__m128i mask) noexcept {
+    return _mm_movemask_ps(_mm_castsi128_ps(mask)) == 15;
+}
+// Lanes whose bits without the sign lie below `limit` (a float's bits).
+[[gnu::always_inline]] inline __m128i lanes_below(__m128 x, std::int32_t limit) noexcept {
+    return _mm_cmplt_epi32(_mm_and_si128(_mm_castps_si128(x), _mm_set1_epi32(0x7fffffff)), _mm_set1_epi32(limit));
+}
+// Lanes whose exponent field (bits 23 to 30) lies in [low, high].
+[[gnu::always_inline]] inline __m128i lanes_exponent_in(__m128 x, std::int32_t low, std::int32_t high) noexcept {
+    const __m128i e = _mm_and_si128(_mm_srli_epi32(_mm_castps_si128(x), 23), _mm_set1_epi32(0xff));
+    return _mm_and_si128(_mm_cmpgt_epi32(e, _mm_set1_epi32(low - 1)), _mm_cmplt_epi32(e, _mm_set1_epi32(high + 1)));
+}
+// exp_split on four lanes, exp_tail's steps included: returns p, sets s.
+[[gnu::always_inline]] inline __m128 lanes_exp_split(__m128 a, __m128& s) noexcept {
     const __m128 big = _mm_set1_ps(12582912.0f);
     const __m128 n = _mm_add_ps(_mm_mul_ps(a, _mm_set1_ps(-46.16624f)), big);
     const __m128 kf = _mm_sub_ps(n, big);
     const __m128i nb = _mm_castps_si128(n);
     const __m128 r = _mm_sub_ps(_mm_mul_ps(kf, _mm_set1_ps(6.6310763e-06f)),
                                 _mm_add_ps(a, _mm_mul_ps(kf, _mm_set1_ps(0.02166748f))));
+    // (0x25a0000 + 127 - (nb >> 5)) << 23, modulo 2^32 as the scalar kernel.
+    s = _mm_castsi128_ps(_mm_slli_epi32(_mm_sub_epi32(_mm_set1_epi32(0x25a0000 + 127), _mm_srli_epi32(nb, 5)), 23));
     const __m128 q = _mm_add_ps(
         r, _mm_mul_ps(_mm_mul_ps(r, r), _mm_add_ps(_mm_set1_ps(0.5f), _mm_mul_ps(r, _mm_set1_ps(0.16666667f)))));
-    const __m128i j = _mm_and_si128(nb, _mm_set1_epi32(31));
-    const __m128 t = lanes_table(kExp2Table, j, 0u);
-    const __m128 tail = _mm_add_ps(t, _mm_add_ps(lanes_table(kExp2Table, j, 32u), _mm_mul_ps(t, q)));
-    // ((nb >> 5) - 0x25a0000 + 127) << 23, modulo 2^32 as the scalar kernel.
-    const __m128i scale = _mm_slli_epi32(_mm_add_epi32(_mm_srli_epi32(nb, 5), _mm_set1_epi32(127 - 0x25a0000)), 23);
-    return _mm_mul_ps(tail, _mm_castsi128_ps(scale));
-}
-// Lanes whose bits without the sign lie below `limit` (a float's bits): all four?
-[[gnu::always_inline]] inline bool lanes_below(__m128i magnitude, std::int32_t limit) noexcept {
-    return _mm_movemask_ps(_mm_castsi128_ps(_mm_cmplt_epi32(magnitude, _mm_set1_epi32(limit)))) == 15;
+    // Each lane's table pair as one 64-bit load, then the pairs transposed.
+    alignas(16) std::uint32_t j[4];
+    _mm_store_si128(reinterpret_cast<__m128i*>(j), _mm_and_si128(nb, _mm_set1_epi32(31)));
+    const __m128 z = _mm_setzero_ps();
+    const __m128 ab = _mm_unpacklo_ps(_mm_loadl_pi(z, reinterpret_cast<const __m64*>(kExp2Table + 2u * j[0])),
+                                      _mm_loadl_pi(z, reinterpret_cast<const __m64*>(kExp2Table + 2u * j[1])));
+    const __m128 cd = _mm_unpacklo_ps(_mm_loadl_pi(z, reinterpret_cast<const __m64*>(kExp2Table + 2u * j[2])),
+                                      _mm_loadl_pi(z, reinterpret_cast<const __m64*>(kExp2Table + 2u * j[3])));
+    const __m128 t = _mm_movelh_ps(ab, cd);
+    return _mm_add_ps(t, _mm_add_ps(_mm_movehl_ps(cd, ab), _mm_mul_ps(t, q)));
 }
 #endif
 
 // kernel tanh_lanes: needs tanh lanes_exp
 #if defined(__SSE2__)
-// act_tanh on y[0..3]. Both of the scalar kernel's paths (the polynomial below
-// 0.55, the exp above) run on the lanes that take them; from 9.1 up, and for
-// NaN, the group goes through the scalar kernel.
+// act_tanh on y[0..3]: (s - p)/(s + p) for 0.5 <= |x| < 8 and the polynomial
+// below 0.5 (tanh_outer's), each on the lanes that take it; a group with a
+// lane from 8 up, or NaN, goes through the scalar kernel.
 [[gnu::always_inline]] inline void act_tanh4(float* y) noexcept {
     const __m128 x = _mm_loadu_ps(y);
-    const __m128i u = _mm_castps_si128(x);
-    const __m128i mag = _mm_and_si128(u, _mm_set1_epi32(0x7fffffff));
-    if (!lanes_below(mag, 0x4111999a)) {  // 9.1f
+    const __m128i common = lanes_exponent_in(x, 126, 129);
+    const __m128 x2 = _mm_mul_ps(x, x);
+    const __m128i near = _mm_andnot_si128(common, _mm_castps_si128(_mm_cmplt_ps(x2, _mm_set1_ps(0.25f))));
+    const int commons = _mm_movemask_ps(_mm_castsi128_ps(common));
+    const int nears = _mm_movemask_ps(_mm_castsi128_ps(near));
+    if ((commons | nears) != 15) {
         for (int i = 0; i < 4; ++i) y[i] = act_tanh(y[i]);
         return;
     }
-    const __m128 a = _mm_castsi128_ps(mag);
-    const __m128i near = _mm_cmplt_epi32(mag, _mm_set1_epi32(0x3f0ccccd));  // 0.55f
-    const int nears = _mm_movemask_ps(_mm_castsi128_ps(near));
     __m128 r = _mm_setzero_ps();
-    if (nears != 15) {  // 1 - 2e/(1 + e), e = exp(-2|x|)
-        const __m128 e = lanes_exp_core_neg(_mm_add_ps(a, a));
-        const __m128 one = _mm_set1_ps(1.0f);
-        r = _mm_sub_ps(one, _mm_div_ps(_mm_add_ps(e, e), _mm_add_ps(one, e)));
+    if (commons != 0) {  // tanh_exp
+        __m128 s;
+        const __m128 p = lanes_exp_split(_mm_add_ps(x, x), s);
+        r = _mm_div_ps(_mm_sub_ps(s, p), _mm_add_ps(s, p));
     }
-    if (nears != 0) {  // tanh_near
-        const __m128 a2 = _mm_mul_ps(a, a);
-        __m128 p = _mm_add_ps(_mm_mul_ps(_mm_set1_ps(-6.28766278e-3f), a2), _mm_set1_ps(2.10820586e-2f));
-        p = _mm_sub_ps(_mm_mul_ps(p, a2), _mm_set1_ps(5.38551211e-2f));
-        p = _mm_add_ps(_mm_mul_ps(p, a2), _mm_set1_ps(1.33326173e-1f));
-        p = _mm_mul_ps(p, a2);
-        const __m128 rn = _mm_add_ps(a, _mm_mul_ps(_mm_mul_ps(a, a2), _mm_sub_ps(p, _mm_set1_ps(3.33333194e-1f))));
+    if (nears != 0) {  // tanh_outer below 0.5
+        __m128 q = _mm_add_ps(_mm_mul_ps(_mm_set1_ps(-6.28766278e-3f), x2), _mm_set1_ps(2.10820586e-2f));
+        q = _mm_sub_ps(_mm_mul_ps(q, x2), _mm_set1_ps(5.38551211e-2f));
+        q = _mm_add_ps(_mm_mul_ps(q, x2), _mm_set1_ps(1.33326173e-1f));
+        q = _mm_mul_ps(q, x2);
+        const __m128 rn = _mm_mul_ps(
+            x, _mm_add_ps(_mm_set1_ps(1.0f), _mm_mul_ps(x2, _mm_sub_ps(q, _mm_set1_ps(3.33333194e-1f)))));
         r = lanes_select(near, rn, r);
     }
-    // r >= 0 in both paths: the input's sign bit gives -r (and -0 for -0).
-    const __m128i sign = _mm_and_si128(u, _mm_set1_epi32(-0x7fffffff - 1));
-    _mm_storeu_ps(y, _mm_or_ps(r, _mm_castsi128_ps(sign)));
+    _mm_storeu_ps(y, r);
 }
 #endif
 
