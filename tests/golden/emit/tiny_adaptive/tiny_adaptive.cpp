@@ -264,7 +264,33 @@ inline float nextafter_kernel(float t, float target) noexcept {
     return float_of(b);
 }
 
-// kernel softplus_lanes: needs softplus
+// kernel lanes_select: needs
+#if defined(__SSE2__)
+// Lanes whose mask is set take a, the others b.
+[[gnu::always_inline]] inline __m128 lanes_select(__m128i mask, __m128 a, __m128 b) noexcept {
+    const __m128 m = _mm_castsi128_ps(mask);
+    return _mm_or_ps(_mm_and_ps(m, a), _mm_andnot_ps(m, b));
+}
+#endif
+
+// kernel lanes_all: needs
+#if defined(__SSE2__)
+// All four lanes' masks set?
+[[gnu::always_inline]] inline bool lanes_all(__m128i mask) noexcept {
+    return _mm_movemask_ps(_mm_castsi128_ps(mask)) == 15;
+}
+#endif
+
+// kernel lanes_exponent_in: needs
+#if defined(__SSE2__)
+// Lanes whose exponent field (bits 23 to 30) lies in [low, high].
+[[gnu::always_inline]] inline __m128i lanes_exponent_in(__m128 x, std::int32_t low, std::int32_t high) noexcept {
+    const __m128i e = _mm_and_si128(_mm_srli_epi32(_mm_castps_si128(x), 23), _mm_set1_epi32(0xff));
+    return _mm_and_si128(_mm_cmpgt_epi32(e, _mm_set1_epi32(low - 1)), _mm_cmplt_epi32(e, _mm_set1_epi32(high + 1)));
+}
+#endif
+
+// kernel softplus_lanes: needs softplus lanes_all lanes_exponent_in lanes_select
 #if defined(__SSE2__)
 // act_softplus on y[0..3]; from |x| = 8 up, and NaN, through the scalar kernel.
 // Each lane's eight coefficients come in as two rows of four and are

@@ -266,26 +266,26 @@ inline float pow2(int k) noexcept { return float_of(static_cast<std::uint32_t>(k
 // kernel relu: needs
 inline float act_relu(float x) noexcept { return x > 0.0f ? x : 0.0f; }
 
-// kernel lanes_exp: needs exp_split
+// kernel lanes_select: needs
 #if defined(__SSE2__)
 // Lanes whose mask is set take a, the others b.
 [[gnu::always_inline]] inline __m128 lanes_select(__m128i mask, __m128 a, __m128 b) noexcept {
     const __m128 m = _mm_castsi128_ps(mask);
     return _mm_or_ps(_mm_and_ps(m, a), _mm_andnot_ps(m, b));
 }
-// All four lanes' masks set?
-[[gnu::always_inline]] inline bool lanes_all(__m128i mask) noexcept {
-    return _mm_movemask_ps(_mm_castsi128_ps(mask)) == 15;
-}
-// Lanes whose bits without the sign lie below `limit` (a float's bits).
-[[gnu::always_inline]] inline __m128i lanes_below(__m128 x, std::int32_t limit) noexcept {
-    return _mm_cmplt_epi32(_mm_and_si128(_mm_castps_si128(x), _mm_set1_epi32(0x7fffffff)), _mm_set1_epi32(limit));
-}
+#endif
+
+// kernel lanes_exponent_in: needs
+#if defined(__SSE2__)
 // Lanes whose exponent field (bits 23 to 30) lies in [low, high].
 [[gnu::always_inline]] inline __m128i lanes_exponent_in(__m128 x, std::int32_t low, std::int32_t high) noexcept {
     const __m128i e = _mm_and_si128(_mm_srli_epi32(_mm_castps_si128(x), 23), _mm_set1_epi32(0xff));
     return _mm_and_si128(_mm_cmpgt_epi32(e, _mm_set1_epi32(low - 1)), _mm_cmplt_epi32(e, _mm_set1_epi32(high + 1)));
 }
+#endif
+
+// kernel lanes_exp: needs exp_split
+#if defined(__SSE2__)
 // exp_split on four lanes, exp_tail's steps included: returns p, sets s.
 [[gnu::always_inline]] inline __m128 lanes_exp_split(__m128 a, __m128& s) noexcept {
     const __m128 big = _mm_set1_ps(12582912.0f);
@@ -311,7 +311,7 @@ inline float act_relu(float x) noexcept { return x > 0.0f ? x : 0.0f; }
 }
 #endif
 
-// kernel tanh_lanes: needs tanh lanes_exp
+// kernel tanh_lanes: needs tanh lanes_exp lanes_exponent_in lanes_select
 #if defined(__SSE2__)
 // act_tanh on y[0..3]: (s - p)/(s + p) for 0.5 <= |x| < 8 and the polynomial
 // below 0.5 (tanh_outer's), each on the lanes that take it; a group with a
