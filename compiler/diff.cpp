@@ -294,6 +294,41 @@ bool bound(const Model& m, const char* side, Diagnostics& diags) {
 
 std::string port_text(const std::string& name, int size) { return fmt::format("{}[{}]", name, size); }
 
+// The names (with units) or class labels of a vector's values, as written.
+std::string labels_text(const VectorInfo& v) {
+    std::string o;
+    for (std::size_t i = 0; i < v.names.size(); ++i) {
+        o += (i ? ", " : "") + v.names[i];
+        if (i < v.units.size() && !v.units[i].empty()) o += fmt::format(" in \"{}\"", v.units[i]);
+    }
+    if (!v.classes.empty()) o += (o.empty() ? "classes " : "; classes ") + fmt::format("{}", fmt::join(v.classes, ", "));
+    return o.empty() ? "none" : o;
+}
+
+// Where a vector's standardisation comes from.
+std::string standardised_text(const VectorInfo& v) {
+    if (!v.standardised) return "none";
+    const Standardised& st = *v.standardised;
+    auto source = [](const std::string& tensor) { return tensor.empty() ? std::string("written") : "\"" + tensor + "\""; };
+    return fmt::format("mean {} scale {}", source(st.mean_tensor), source(st.scale_tensor));
+}
+
+// The standardisations' values, when both sides have one of the same size:
+// the largest change of a mean and of a scale, beyond the weight tolerance.
+void standardised_values(std::vector<SettingChange>& out, const std::string& what, const VectorInfo& a,
+                         const VectorInfo& b, double tolerance) {
+    if (!a.standardised || !b.standardised) return;
+    const Standardised& x = *a.standardised;
+    const Standardised& y = *b.standardised;
+    if (x.mean.size() != y.mean.size() || x.scale.size() != y.scale.size() || x.mean.size() == 0) return;
+    const double dm = (x.mean - y.mean).cwiseAbs().maxCoeff();
+    const double ds = (x.scale - y.scale).cwiseAbs().maxCoeff();
+    if (dm > tolerance || ds > tolerance)
+        setting(out, what + " standardisation values", "as bound",
+                fmt::format("largest change of a mean {}, of a scale {}", format_double(dm), format_double(ds)));
+}
+
+
 }  // namespace
 
 bool ItemDiff::changed() const {
@@ -325,6 +360,14 @@ std::optional<ModelDiff> diff_models(const Model& a, const Model& b, const DiffO
     setting(d.model, "name", a.name, b.name);
     setting(d.model, "input", port_text(a.input_name, a.input_size), port_text(b.input_name, b.input_size));
     setting(d.model, "output", port_text(a.output_name, a.output_size), port_text(b.output_name, b.output_size));
+    // What the values mean and how they are scaled change what the model computes and
+    // what its header declares, though no layer changes.
+    setting(d.model, "input names", labels_text(a.input_info), labels_text(b.input_info));
+    setting(d.model, "output names", labels_text(a.output_info), labels_text(b.output_info));
+    setting(d.model, "input standardisation", standardised_text(a.input_info), standardised_text(b.input_info));
+    setting(d.model, "output standardisation", standardised_text(a.output_info), standardised_text(b.output_info));
+    standardised_values(d.model, "input", a.input_info, b.input_info, opts.weight_tolerance);
+    standardised_values(d.model, "output", a.output_info, b.output_info, opts.weight_tolerance);
 
     auto state_text = [](const Model& m) {
         return m.stream ? fmt::format("{}[{}], largest-gap {}", m.stream->state_name, m.stream->state_size,

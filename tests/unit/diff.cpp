@@ -480,6 +480,46 @@ TEST(Diff, SampleAgainstItself) {
     EXPECT_NE(render_diff_text(d).find("fan_balance: no changes"), std::string::npos);
 }
 
+// soil_probe restores its outputs' units with y_mean and y_std; a copy that
+// drops that (and renames an output) computes other numbers with the same
+// layers: diff says so (the values are the sample's own tensors, the change the edit's).
+TEST(Diff, StandardisationAndNamesOfTheValues) {
+    const fs::path dir = fs::path(MEANDER_SOURCE_DIR) / "samples/soil_probe";
+    const fs::path scratch = test::scratch_dir("diff", "soil_probe_values");
+    std::string text = test::read_text(dir / "soil_probe.mnd");
+    const std::string from = ", standardised mean \"y_mean\" scale \"y_std\"";
+    const auto at = text.find(from);
+    ASSERT_NE(at, std::string::npos);
+    text.erase(at, from.size());
+    const auto w = text.find("weights \"soil_probe.npz\"\n");
+    ASSERT_NE(w, std::string::npos);
+    text.insert(w + std::string("weights \"soil_probe.npz\"\n").size(), "ignore \"y_*\"\n");
+    const auto n = text.find("pore_ec_dsm in");
+    ASSERT_NE(n, std::string::npos);
+    text.replace(n, std::string("pore_ec_dsm").size(), "pore_ec");
+    test::write_text(scratch / "soil_probe.mnd", text);
+    fs::copy_file(dir / "soil_probe.npz", scratch / "soil_probe.npz");
+
+    auto a = load(dir / "soil_probe.mnd"), b = load(scratch / "soil_probe.mnd");
+    ASSERT_TRUE(a && b);
+    ModelDiff d = diff(*a, *b);
+    EXPECT_FALSE(d.same());
+    EXPECT_TRUE(changed_names(d).empty());
+    Changes want = {{"output names", {"water_pct in \"%\", pore_ec_dsm in \"dS/m\"", "water_pct in \"%\", pore_ec in \"dS/m\""}},
+                    {"output standardisation", {"mean \"y_mean\" scale \"y_std\"", "none"}}};
+    Changes got;
+    for (const SettingChange& c : d.model) got.push_back({c.what, {c.before, c.after}});
+    EXPECT_EQ(got, want);
+
+    // The same standardisation with other values: the largest change is named.
+    Model c = *a;
+    c.input_info.standardised->mean(2) += 0.25;
+    ModelDiff e = diff(*a, c);
+    ASSERT_EQ(e.model.size(), 1u);
+    EXPECT_EQ(e.model[0].what, "input standardisation values");
+    EXPECT_EQ(e.model[0].after, "largest change of a mean 0.25, of a scale 0");
+}
+
 TEST(Diff, SampleWithMoreSteps) {
     const fs::path dir = fs::path(MEANDER_SOURCE_DIR) / "samples/fan_balance";
     const fs::path scratch = test::scratch_dir("diff", "fan_balance_steps");
