@@ -9,7 +9,10 @@
 #include <filesystem>
 #include <limits>
 #include <nlohmann/json.hpp>
+#include <optional>
 #include <string>
+#include <utility>
+#include <vector>
 
 #include "compiler/format.hpp"
 #include "compiler/load.hpp"
@@ -480,27 +483,33 @@ TEST(Diff, SampleAgainstItself) {
     EXPECT_NE(render_diff_text(d).find("fan_balance: no changes"), std::string::npos);
 }
 
+// A copy of a sample's description (and its weights) in a scratch folder, each
+// (from, to) replacing the first `from`; empty when a `from` is not there.
+std::optional<fs::path> edited_sample(const std::string& sample, const std::string& scratch_name,
+                                      const std::vector<std::pair<std::string, std::string>>& edits) {
+    const fs::path dir = fs::path(MEANDER_SOURCE_DIR) / "samples" / sample;
+    const fs::path scratch = test::scratch_dir("diff", scratch_name);
+    std::string text = test::read_text(dir / (sample + ".mnd"));
+    for (const auto& [from, to] : edits) {
+        const auto at = text.find(from);
+        if (at == std::string::npos) return std::nullopt;
+        text.replace(at, from.size(), to);
+    }
+    test::write_text(scratch / (sample + ".mnd"), text);
+    fs::copy_file(dir / (sample + ".npz"), scratch / (sample + ".npz"));
+    return scratch / (sample + ".mnd");
+}
+
 // soil_probe restores its outputs' units with y_mean and y_std; a copy that
 // drops that (and renames an output) computes other numbers with the same
 // layers: diff says so (the values are the sample's own tensors, the change the edit's).
 TEST(Diff, StandardisationAndNamesOfTheValues) {
-    const fs::path dir = fs::path(MEANDER_SOURCE_DIR) / "samples/soil_probe";
-    const fs::path scratch = test::scratch_dir("diff", "soil_probe_values");
-    std::string text = test::read_text(dir / "soil_probe.mnd");
-    const std::string from = ", standardised mean \"y_mean\" scale \"y_std\"";
-    const auto at = text.find(from);
-    ASSERT_NE(at, std::string::npos);
-    text.erase(at, from.size());
-    const auto w = text.find("weights \"soil_probe.npz\"\n");
-    ASSERT_NE(w, std::string::npos);
-    text.insert(w + std::string("weights \"soil_probe.npz\"\n").size(), "ignore \"y_*\"\n");
-    const auto n = text.find("pore_ec_dsm in");
-    ASSERT_NE(n, std::string::npos);
-    text.replace(n, std::string("pore_ec_dsm").size(), "pore_ec");
-    test::write_text(scratch / "soil_probe.mnd", text);
-    fs::copy_file(dir / "soil_probe.npz", scratch / "soil_probe.npz");
-
-    auto a = load(dir / "soil_probe.mnd"), b = load(scratch / "soil_probe.mnd");
+    const auto copy = edited_sample("soil_probe", "soil_probe_values",
+                                    {{", standardised mean \"y_mean\" scale \"y_std\"", ""},
+                                     {"weights \"soil_probe.npz\"\n", "weights \"soil_probe.npz\"\nignore \"y_*\"\n"},
+                                     {"pore_ec_dsm in", "pore_ec in"}});
+    ASSERT_TRUE(copy);
+    auto a = load(fs::path(MEANDER_SOURCE_DIR) / "samples/soil_probe/soil_probe.mnd"), b = load(*copy);
     ASSERT_TRUE(a && b);
     ModelDiff d = diff(*a, *b);
     EXPECT_FALSE(d.same());
@@ -521,17 +530,9 @@ TEST(Diff, StandardisationAndNamesOfTheValues) {
 }
 
 TEST(Diff, SampleWithMoreSteps) {
-    const fs::path dir = fs::path(MEANDER_SOURCE_DIR) / "samples/fan_balance";
-    const fs::path scratch = test::scratch_dir("diff", "fan_balance_steps");
-    std::string text = test::read_text(dir / "fan_balance.mnd");
-    const std::string from = "  solver rk4, steps 8\n";
-    const auto at = text.find(from);
-    ASSERT_NE(at, std::string::npos);
-    text.replace(at, from.size(), "  solver rk4, steps 12\n");
-    test::write_text(scratch / "fan_balance.mnd", text);
-    fs::copy_file(dir / "fan_balance.npz", scratch / "fan_balance.npz");
-
-    auto a = load(dir / "fan_balance.mnd"), b = load(scratch / "fan_balance.mnd");
+    const auto copy = edited_sample("fan_balance", "fan_balance_steps", {{"  solver rk4, steps 8\n", "  solver rk4, steps 12\n"}});
+    ASSERT_TRUE(copy);
+    auto a = load(fs::path(MEANDER_SOURCE_DIR) / "samples/fan_balance/fan_balance.mnd"), b = load(*copy);
     ASSERT_TRUE(a && b);
     ModelDiff d = diff(*a, *b);
     EXPECT_FALSE(d.same());
