@@ -1,5 +1,7 @@
 // The command line: reads the arguments, then calls the stages in a line:
 // source -> parse -> check -> weights -> (eval | emit | verify | cost | format).
+// tune and refit live in command_tune.cpp and command_refit.cpp, the shared
+// pieces in command_support.hpp.
 #include <CLI/CLI.hpp>
 #include <fmt/format.h>
 
@@ -24,15 +26,14 @@
 #include "compiler/learn_cost.hpp"
 #include "compiler/load.hpp"
 #include "compiler/lower.hpp"
-#include "compiler/npz_writer.hpp"
 #include "compiler/parse.hpp"
 #include "compiler/plot.hpp"
 #include "compiler/check.hpp"
+#include "compiler/command_support.hpp"
 #include "compiler/refit.hpp"
 #include "compiler/sequence.hpp"
 #include "compiler/spelling.hpp"
 #include "compiler/stream_cost.hpp"
-#include "compiler/stream_tune.hpp"
 #include "compiler/source.hpp"
 #include "compiler/tensors.hpp"
 #include "compiler/weights.hpp"
@@ -46,9 +47,7 @@ using namespace meander;
 
 namespace {
 
-constexpr int kModelError = 1;
-constexpr int kUsageError = 2;
-constexpr int kDiffTrouble = 2;
+using namespace meander::cli;
 
 // A finite number above (or at) zero. CLI11's own range checks let NaN
 // through and print their range with 300 digits.
@@ -73,48 +72,6 @@ const CLI::Validator kFiniteNonNegative = finite_number(true);
 // An output path: an empty one names no file or folder, a usage error.
 const CLI::Validator kNonEmptyPath(
     [](std::string& text) -> std::string { return text.empty() ? "expected a path, not an empty name" : ""; }, "PATH");
-
-// Prints what was collected; returns true when there were no errors.
-bool flush(const Diagnostics& diags) {
-    std::string text = diags.render();
-    if (!text.empty()) std::fputs(text.c_str(), stderr);
-    return diags.ok();
-}
-
-Precision precision_of(const std::string& s) { return s == "float64" ? Precision::float64 : Precision::float32; }
-
-// `--weights-as`: empty keeps what the description asks for.
-using StorageOverride = std::optional<WeightStorage>;
-StorageOverride storage_of(const std::string& s) { return s.empty() ? std::nullopt : weight_storage_from_name(s); }
-
-// Commands that do not handle streaming models yet refuse them plainly.
-bool refuse_stream(const LoadedModel& l, const std::string& path, std::string_view command, Diagnostics& diags) {
-    if (!l.model.stream) return false;
-    diags.error(path, fmt::format("'{}' is a streaming model (it has a 'state' statement); meander {} does not handle streaming "
-                                  "models yet (check, eval, compile, verify, cost, tune and format do)",
-                                  l.model.name, command));
-    return true;
-}
-
-// The model and the rows of an input CSV of its input width.
-struct LoadedWithRows {
-    LoadedModel loaded;
-    std::vector<std::vector<double>> rows;
-    std::vector<int> lines;         // the CSV line of each row
-};
-
-// `float32_inputs`: the rows feed emitted float32 code, so they must fit a float.
-std::optional<LoadedWithRows> load_with_rows(const std::string& path, Precision p, const std::string& input,
-                                             Diagnostics& diags, std::string_view command, bool float32_inputs = false,
-                                             StorageOverride storage = std::nullopt) {
-    auto loaded = load_model(path, p, diags, true, storage);
-    if (!loaded || refuse_stream(*loaded, path, command, diags)) return std::nullopt;
-    std::vector<int> lines;
-    auto rows = read_csv_rows(input, loaded->model.input_size, diags, float32_inputs, &lines, loaded->model.input_name,
-                              &loaded->model.input_info);
-    if (!rows) return std::nullopt;
-    return LoadedWithRows{std::move(*loaded), std::move(*rows), std::move(lines)};
-}
 
 std::vector<Eigen::VectorXd> to_vectors(const std::vector<std::vector<double>>& rows) {
     std::vector<Eigen::VectorXd> v;
@@ -598,279 +555,6 @@ int cmd_cost(const std::string& model_path, const std::string& input, const std:
     }
     flush(diags);
     std::fputs(text.c_str(), stdout);
-    return 0;
-}
-
-// Bytes of every weight table as the model stores them (integers with their scales) and of the biases.
-long stored_weight_bytes(const Model& m, Precision p) {
-    long n = 0;
-    for_each_model_dense(m, [&](const Dense& d) {
-        n += weight_table_bytes(d, d.storage, p) + (d.has_bias ? d.out * storage_bytes(WeightStorage::real, p) : 0);
-    });
-    return n;
-}
-
-// tune over the weight storage too: each storage's model tuned against the reference
-// of the model with real weights; the choice is the storage with the fewest weight
-// bytes whose every block meets the target, on a tie the fewer field evaluations.
-struct StorageTune {
-    WeightStorage storage = WeightStorage::real;
-    long weight_bytes = 0;
-    TuneReport report;
-    bool meets = false;             // every block has a chosen candidate
-    long field_evals = 0;           // the chosen candidates' worst case, summed over blocks
-};
-
-std::string render_storage_choice(const std::vector<StorageTune>& runs, bool json) {
-    std::optional<std::size_t> best;
-    for (std::size_t i = 0; i < runs.size(); ++i) {
-        if (!runs[i].meets) continue;
-        if (!best || runs[i].weight_bytes < runs[*best].weight_bytes ||
-            (runs[i].weight_bytes == runs[*best].weight_bytes && runs[i].field_evals < runs[*best].field_evals))
-            best = i;
-    }
-    if (json) {
-        std::string o = "{\n  \"storages\": [\n";
-        for (std::size_t i = 0; i < runs.size(); ++i) {
-            std::string rep = render_tune_json(runs[i].report);
-            while (!rep.empty() && rep.back() == '\n') rep.pop_back();
-            o += fmt::format("    {{\"storage\": \"{}\", \"weight_bytes\": {}, \"meets\": {}, \"field_evals\": {}, \"report\": {}}}{}\n",
-                             weight_storage_name(runs[i].storage), runs[i].weight_bytes, runs[i].meets ? "true" : "false",
-                             runs[i].field_evals, rep, i + 1 < runs.size() ? "," : "");
-        }
-        o += fmt::format("  ],\n  \"chosen\": {}\n}}\n",
-                         best ? fmt::format("\"{}\"", weight_storage_name(runs[*best].storage)) : std::string("null"));
-        return o;
-    }
-    std::string o;
-    for (const StorageTune& r : runs)
-        o += fmt::format("==== weights as {} ({} B of weights, scales and biases)\n{}\n", weight_storage_name(r.storage),
-                         r.weight_bytes, render_tune_text(r.report));
-    o += "weight storage and solver (each storage against the reference of the model with real weights)\n";
-    o += fmt::format("  {:<8} {:>12} {:>12}  {}\n", "storage", "weight bytes", "field evals", "meets the target");
-    for (const StorageTune& r : runs)
-        o += fmt::format("  {:<8} {:>12} {:>12}  {}\n", weight_storage_name(r.storage), r.weight_bytes,
-                         r.meets ? std::to_string(r.field_evals) : "-", r.meets ? "yes" : "no");
-    if (best) {
-        o += fmt::format("recommended: weights-as {}", weight_storage_name(runs[*best].storage));
-        for (const TuneBlock& b : runs[*best].report.blocks) o += fmt::format("; {}: {}", b.name, b.solver_line);
-        o += " (the fewest weight bytes that meet the target; a tie goes to the fewer field evaluations)\n";
-    } else {
-        o += "recommended: none (no storage meets the target with the solvers swept)\n";
-    }
-    return o;
-}
-
-int cmd_tune(const std::string& model_path, const std::string& input, const std::string& precision, double target,
-             const std::vector<std::string>& methods, int sweep, bool json, const std::string& labels_path,
-             std::optional<double> metric_slack, const std::string& plot_path, bool whole_sweep, int threads,
-             StorageOverride storage, bool storage_sweep) {
-    Diagnostics diags;
-    Precision p = precision_of(precision);
-    TuneOptions to;
-    to.whole_sweep = whole_sweep;
-    to.threads = threads;
-    to.metric_slack = metric_slack;
-    to.target = target;
-    to.methods = methods;
-    to.max_steps_sweep = sweep;
-    to.precision = p;
-    {
-        // A streaming model: its evolution's budget per observation, over a sequence file.
-        // (Any other model is loaded again below, with its rows; these diagnostics are then dropped.)
-        Diagnostics sd;
-        auto loaded = load_model(model_path, p, sd);
-        if (loaded && loaded->model.stream) {
-            if (storage || storage_sweep) {
-                std::fprintf(stderr, "meander tune: --weights-as and --weights-sweep do not handle streaming models yet (the "
-                                     "description's weights-as statements apply)\n");
-                return kUsageError;
-            }
-            auto rows = read_sequence_file(input, loaded->model.input_size, loaded->model.stream->largest_gap, sd, false,
-                                           loaded->model.input_name, &loaded->model.input_info);
-            if (!rows) return flush(sd), kModelError;
-            auto rep = tune_stream(loaded->model, *rows, to, sd);
-            flush(sd);
-            if (!rep) return kModelError;
-            std::fputs((json ? render_stream_tune_json(*rep) : render_stream_tune_text(*rep)).c_str(), stdout);
-            return 0;
-        }
-    }
-    auto in = load_with_rows(model_path, p, input, diags, "tune", false, storage_sweep ? WeightStorage::real : storage);
-    if (!in) return flush(diags), kModelError;
-    report_storage_notes(in->loaded, diags);
-    if (!labels_path.empty() && !(to.labels = read_labels(labels_path, in->loaded.model, in->rows.size(), diags)))
-        return flush(diags), kModelError;
-    to.classification = is_classifier(in->loaded.model);
-    to.inputs = in->rows;
-    // On a terminal, a line that says where a long run is (stderr; the report stays on stdout).
-    const bool tty = isatty(fileno(stderr)) != 0;
-    if (tty)
-        to.progress = [](const TuneProgress& g) {
-            std::fprintf(stderr, "\rtune: block %s (%d of %d): candidate %d of at most %d, %.0f s   ", g.block.c_str(),
-                         g.block_index, g.blocks, g.done, g.planned, g.seconds);
-            std::fflush(stderr);
-        };
-    // Integer weights: the reference comes from the same description with real weights.
-    std::optional<LoadedModel> real;
-    bool integers = false;
-    for_each_model_dense(in->loaded.model, [&](const Dense& d) { integers = integers || d.storage != WeightStorage::real; });
-    if (storage_sweep && !plot_path.empty()) {
-        std::fprintf(stderr, "meander tune: --plot draws one sweep; leave it out with --weights-sweep\n");
-        return kUsageError;
-    }
-    if (storage_sweep || integers) {
-        real = load_model(model_path, p, diags, true, WeightStorage::real);
-        if (!real) return flush(diags), kModelError;
-        to.reference_model = &real->model;
-    }
-    if (storage_sweep) {
-        std::vector<StorageTune> runs;
-        for (WeightStorage st : {WeightStorage::real, WeightStorage::int16, WeightStorage::int8}) {
-            auto m = load_model(model_path, p, diags, true, st);
-            if (!m) return flush(diags), kModelError;
-            auto r = tune_model(m->model, to, diags);
-            if (!r) return flush(diags), kModelError;
-            StorageTune t;
-            t.storage = st;
-            t.weight_bytes = stored_weight_bytes(m->model, p);
-            t.meets = true;
-            for (const TuneBlock& b : r->blocks) {
-                if (!b.chosen) t.meets = false;
-                else t.field_evals += b.candidates[*b.chosen].worst_field_evals;
-            }
-            t.report = std::move(*r);
-            runs.push_back(std::move(t));
-        }
-        if (tty) std::fputs("\n", stderr);
-        flush(diags);
-        std::fputs(render_storage_choice(runs, json).c_str(), stdout);
-        return 0;
-    }
-    auto rep = tune_model(in->loaded.model, to, diags);
-    if (tty) std::fputs("\n", stderr);
-    if (rep && !plot_path.empty() && !write_file_atomic(plot_path, render_tune_svg(*rep), diags)) rep.reset();
-    flush(diags);
-    if (!rep) return kModelError;
-    std::fputs((json ? render_tune_json(*rep) : render_tune_text(*rep)).c_str(), stdout);
-    return 0;
-}
-
-std::atomic<bool> g_interrupted{false};
-extern "C" void on_interrupt(int) { g_interrupted.store(true); }
-
-struct RefitArgs {
-    std::string method;
-    int steps = 0;
-    double rtol = 0, atol = 0;
-    int max_steps = 0;
-    std::vector<std::string> blocks;
-    std::string labels, fit = "reference", way = "discrete", check_input, check_labels;
-    RefitOptions o;
-};
-
-// Refit: train, then write NEW.mnd, NEW.npz and NEW.mnw together, or nothing.
-int cmd_refit(const std::string& model_path, const std::string& input, const std::string& out_path, RefitArgs& a) {
-    Diagnostics diags;
-    auto in = load_with_rows(model_path, Precision::float64, input, diags, "refit");
-    if (!in) return flush(diags), kModelError;
-    const Model& model = in->loaded.model;
-    RefitOptions& o = a.o;
-    o.inputs = in->rows;
-    o.classification = is_classifier(model);
-    o.fit_labels = a.fit == "labels";
-    o.way = a.way == "adjoint" ? GradientWay::adjoint : GradientWay::discrete;
-    if (!a.labels.empty() && !(o.labels = read_labels(a.labels, model, in->rows.size(), diags)))
-        return flush(diags), kModelError;
-    if (o.fit_labels && !o.labels) {
-        std::fprintf(stderr, "meander refit: --fit labels needs --labels\n");
-        return kUsageError;
-    }
-    if (!a.check_input.empty()) {
-        std::vector<int> lines;
-        auto rows = read_csv_rows(a.check_input, model.input_size, diags, false, &lines, model.input_name, &model.input_info);
-        if (!rows) return flush(diags), kModelError;
-        o.check_inputs = *rows;
-        if (!a.check_labels.empty() && !(o.check_labels = read_labels(a.check_labels, model, rows->size(), diags)))
-            return flush(diags), kModelError;
-    }
-    const bool labelled = a.check_input.empty() ? o.labels.has_value() : o.check_labels.has_value();
-    SolverSpec& sv = o.solver;
-    sv.method = a.method;
-    const Tableau* tb = find_tableau(a.method);
-    if (a.steps > 0) sv.steps = a.steps, sv.written.push_back("steps");
-    if (a.rtol > 0) sv.rtol = a.rtol, sv.written.push_back("rtol");
-    if (a.atol > 0) sv.atol = a.atol, sv.written.push_back("atol");
-    if (a.max_steps > 0) sv.max_steps = a.max_steps, sv.written.push_back("max-steps");
-    (void)tb;
-    // The new description, checked as `meander check` would: a solver line a block cannot take is a usage error.
-    auto cheap = with_solver(model, a.blocks, sv, diags);
-    if (!cheap) return flush(diags), kUsageError;
-    const fs::path out_mnd(out_path);
-    // Refuse before training, not after minutes of it: the outputs go into an existing folder.
-    if (std::error_code ec; !fs::is_directory(out_mnd.parent_path().empty() ? fs::path(".") : out_mnd.parent_path(), ec)) {
-        std::fprintf(stderr, "meander refit: -o %s: the folder %s does not exist; nothing trained\n", out_path.c_str(),
-                     out_mnd.parent_path().string().c_str());
-        return kUsageError;
-    }
-    const std::string stem = out_mnd.stem().string();
-    const std::string npz_name = stem + ".npz";
-    const std::string note = fmt::format("Refitted by meander refit from {} for solver {}", fs::path(model_path).filename().string(),
-                                         format_solver(sv));
-    {
-        const std::string text = refit_description(in->loaded.source, model, *cheap, npz_name, note);
-        Source src(out_mnd.string(), text);
-        Diagnostics check_diags;
-        auto parsed = parse_description(src, check_diags);
-        CheckOptions copts;
-        if (!parsed || !check_diags.ok() || !check_model(*parsed, src, copts, check_diags)) {
-            std::string names;
-            for (const Block& b : cheap->blocks)
-                if (b.kind == Block::Kind::continuous && (a.blocks.empty() || std::find(a.blocks.begin(), a.blocks.end(), b.continuous.name) != a.blocks.end()))
-                    names += (names.empty() ? "" : ", ") + b.continuous.name;
-            std::fprintf(stderr, "meander refit: block %s cannot take solver '%s':\n%s", names.c_str(),
-                         format_solver(sv).c_str(), check_diags.render().c_str());
-            return kUsageError;
-        }
-    }
-    const bool tty = isatty(fileno(stderr)) != 0;
-    if (tty)
-        o.progress = [](const RefitProgress& p) {
-            const double left = p.epoch > 0 ? p.seconds / p.epoch * (p.epochs - p.epoch) : 0.0;
-            std::fprintf(stderr, "\repoch %d/%d  loss %.4g  held-out %.4g  %.0f s, at most %.0f s left   ", p.epoch,
-                         p.epochs, p.train_loss, p.holdout_loss, p.seconds, left);
-            std::fflush(stderr);
-        };
-    o.stop = &g_interrupted;
-    std::signal(SIGINT, on_interrupt);
-    auto rep = refit_model(model, o, diags);
-    std::signal(SIGINT, SIG_DFL);
-    if (tty) std::fputs("\n", stderr);
-    if (!rep) return flush(diags), kModelError;
-    if (rep->end == RefitReport::End::interrupted) {
-        flush(diags);
-        std::fprintf(stderr, "meander refit: interrupted after %d epochs; nothing written\n", rep->epochs_run);
-        return 130;
-    }
-    if (rep->end == RefitReport::End::diverged) {
-        flush(diags);
-        std::fprintf(stderr, "meander refit: diverged: %s; nothing written\n", rep->message.c_str());
-        return kModelError;
-    }
-    const std::string text = refit_description(in->loaded.source, model, rep->model, npz_name, note);
-    const TensorSet set = refit_tensors(rep->model);
-    auto npz = npz_bytes(set, "float32");
-    if (!npz) {
-        diags.error(out_path, "cannot build the .npz archive");
-        return flush(diags), kModelError;
-    }
-    const fs::path dir = out_mnd.parent_path();
-    std::vector<std::pair<std::string, std::string>> files{
-        {out_mnd.string(), text}, {(dir / npz_name).string(), *npz}, {(dir / (stem + ".mnw")).string(), write_listing(set)}};
-    if (!write_files_atomic(files, diags)) return flush(diags), kModelError;
-    flush(diags);
-    std::fputs(render_refit(*rep, model, labelled, o.classification).c_str(), stdout);
-    std::printf("\nwrote %s, %s and %s\n", files[0].first.c_str(), files[1].first.c_str(), files[2].first.c_str());
     return 0;
 }
 
