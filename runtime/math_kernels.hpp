@@ -27,7 +27,7 @@ struct KernelBound {
 };
 inline constexpr KernelBound kFloatKernelBounds[] = {
     {"exp", 1.0}, {"expm1", 1.5}, {"tanh", 2.5}, {"sigmoid", 2.5},
-    {"softplus", 2.0}, {"silu", 2.5}, {"gelu", 3.5},
+    {"softplus", 2.0}, {"silu", 2.5}, {"gelu", 2.5},
 };
 
 inline double float_kernel_bound(const char* name) {

@@ -3,7 +3,7 @@
 // content hash (description and weights): 0123456789abcdef
 // precision: float32 (real = float)
 // math: meander's own float kernels (runtime/math_float.inc), no C library maths;
-//   largest error in ulp against MPFR: exp 1.0 expm1 1.5 tanh 2.5 sigmoid 2.5 softplus 2.0 silu 2.5 gelu 3.5
+//   largest error in ulp against MPFR: exp 1.0 expm1 1.5 tanh 2.5 sigmoid 2.5 softplus 2.0 silu 2.5 gelu 2.5
 // bits: the same outputs on every core when built with -ffp-contract=off (no FMA
 //   contraction), without -ffast-math, rounding to nearest, subnormals kept;
 //   build_conditions_hold() checks a build, the self-test reports it
@@ -21,7 +21,7 @@
 /* For C callers (C99 or later): the C++ code of tiny_fixed.cpp through extern "C" entry
    points, built with a C++11 (or later) compiler and linked with the C program.
    tiny_fixed.cpp refuses a tiny_fixed.h from another meander run. */
-#define TINY_FIXED_MEANDER_C_STAMP 0xf7a7453fb2a8e77dULL
+#define TINY_FIXED_MEANDER_C_STAMP 0xc2889136539918c8ULL
 
 #include <stddef.h>
 #include <stdint.h>
