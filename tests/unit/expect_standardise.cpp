@@ -302,6 +302,55 @@ TEST(ExpectStandardise, VarianceGivesItsSquareRootAsTheScale) {
     EXPECT_EQ(again.status, 0) << again.output;
 }
 
+// The tensors' names read whatever their case: a normalisation layer's buffers saved as
+// 'Norm.Running_Mean' and 'Norm.Running_Var', or all in capitals. The file is made as in
+// VarianceGivesItsSquareRootAsTheScale: framework_standardise.py's regressor.pt (PyTorch 1.13),
+// x_mean renamed, x_std renamed and squared, written as an .npz.
+TEST(ExpectStandardise, TensorNamesAreMatchedWhateverTheirCase) {
+    struct Names {
+        const char* mean;
+        const char* variance;
+        const char* root;   // the name the note suggests for the square root
+    };
+    for (const Names n : {Names{"Norm.Running_Mean", "Norm.Running_Var", "Norm.Running_Std"},
+                          Names{"NORM.RUNNING_MEAN", "NORM.RUNNING_VAR", "NORM.RUNNING_STD"},
+                          Names{"x_Mean", "x_Variance", "x_Std"}}) {
+        SCOPED_TRACE(n.variance);
+        const fs::path dir = scratch_dir("expect_standardise", std::string("case_weights_") + n.variance);
+        Diagnostics diags;
+        auto set = read_weights((kData / "regressor.pt").string(), diags, "model");
+        ASSERT_TRUE(set) << diags.render();
+        TensorSet out;
+        out.path = (dir / "regressor.npz").string();
+        for (Tensor t : set->tensors) {
+            if (t.name == "x_mean") t.name = n.mean;
+            if (t.name == "x_std") {
+                t.name = n.variance;
+                for (double& v : t.values) v = v * v;
+            }
+            out.tensors.push_back(t);
+        }
+        auto bytes = npz_bytes(out, "float64");
+        ASSERT_TRUE(bytes);
+        write_text(out.path, *bytes);
+        std::string text = regressor(out.path, "", ", standardised mean \"y_mean\" scale \"y_std\"");
+        text = replace_once(text, "ignore \"x_*\", \"y_*\"", fmt::format("ignore \"{}\", \"{}\"", n.mean, n.variance));
+        Case c = write_case(std::string("case_") + n.variance, text);
+        const RunResult r = check_expect(c);
+        EXPECT_EQ(r.status, 1) << r.output;
+        EXPECT_NE(r.output.find(fmt::format("note: they agree with the input 'reading' standardised with mean '{}' and scale "
+                                            "the square root of '{}':",
+                                            n.mean, n.variance)),
+                  std::string::npos)
+            << r.output;
+        EXPECT_NE(r.output.find(fmt::format("save sqrt({} + eps) as a tensor, say '{}', and write '{}, standardised mean "
+                                            "\"{}\" scale \"{}\"'",
+                                            n.variance, n.root, kInputNames, n.mean, n.root)),
+                  std::string::npos)
+            << r.output;
+    }
+}
+
 // The library entry point sees the same: the loaded model carries the loose vectors.
 TEST(ExpectStandardise, LoadedModelCarriesTheLooseVectors) {
     Case c = write_case("loose", regressor(kTorch, "", ", standardised mean \"y_mean\" scale \"y_std\""));
