@@ -130,9 +130,13 @@ std::string csv_separator_problem(std::string_view line, std::size_t fields) {
 }
 
 void check_csv_header(const std::vector<std::string_view>& fields, const std::vector<std::size_t>& starts, std::size_t first,
-                      int line, std::string_view vector_name, const VectorInfo* info, RowProblems& problems) {
+                      int line, std::string_view vector_name, const VectorInfo* info, RowProblems& problems,
+                      std::string_view role) {
     const std::vector<std::string> none;
-    const std::vector<std::string>& declared = info && !info->names.empty() ? info->names : none;
+    // A classifier's output is named by its classes (eval heads its columns with them).
+    const std::vector<std::string>& declared = !info                  ? none
+                                               : !info->names.empty() ? info->names
+                                                                      : info->classes;
     const std::string vec(vector_name);
     if (!declared.empty() && first < fields.size()) {
         // A header of other names altogether says nothing of the order: one problem, not one per column.
@@ -151,9 +155,9 @@ void check_csv_header(const std::vector<std::string_view>& fields, const std::ve
             for (std::size_t i = 0; i < declared.size() && i < 8; ++i) list += (i ? ", " : "") + declared[i];
             if (declared.size() > 8) list += fmt::format(" and {} more", declared.size() - 8);
             problems.add("header foreign", Loc{line, static_cast<int>(starts[first] + 1)},
-                         fmt::format("the header names none of input '{}''s values: it takes {}, in this order (a line of "
+                         fmt::format("the header names none of {} '{}''s values: it takes {}, in this order (a line of "
                                      "other names can stand as a '#' comment)",
-                                     vec, list));
+                                     role, vec, list));
             return;
         }
     }
@@ -173,9 +177,9 @@ void check_csv_header(const std::vector<std::string_view>& fields, const std::ve
         if (k >= 0) {
             if (static_cast<std::size_t>(k) != value)
                 problems.add(fmt::format("order {}", i), at,
-                             fmt::format("column {} is named '{}', but input '{}' takes its values in order: column {} "
+                             fmt::format("column {} is named '{}', but {} '{}' takes its values in order: column {} "
                                          "holds {}.{}",
-                                         column, shown(name), vec, column, vec, value));
+                                         column, shown(name), role, vec, column, vec, value));
             continue;
         }
         if (declared.size() <= value) continue;  // no names given: a header of the user's own
@@ -190,20 +194,20 @@ void check_csv_header(const std::vector<std::string_view>& fields, const std::ve
             const std::string& want = value < info->units.size() ? info->units[value] : std::string();
             if (!unit.empty() && !want.empty() && unit != want)
                 problems.add(fmt::format("unit {}", i), at,
-                             fmt::format("column {} gives '{}' in '{}', but input '{}' takes it in '{}'", column, base,
-                                         shown(unit), vec, want));
+                             fmt::format("column {} gives '{}' in '{}', but {} '{}' takes it in '{}'", column, base,
+                                         shown(unit), role, vec, want));
             continue;
         }
         const auto elsewhere = std::find(declared.begin(), declared.end(), base);
         if (elsewhere != declared.end()) {
             problems.add(fmt::format("place {}", i), at,
-                         fmt::format("column {} is named '{}', but input '{}' takes '{}' there: '{}' is its column {}", column,
-                                     shown(name), vec, declared[value], base,
+                         fmt::format("column {} is named '{}', but {} '{}' takes '{}' there: '{}' is its column {}", column,
+                                     shown(name), role, vec, declared[value], base,
                                      first + static_cast<std::size_t>(elsewhere - declared.begin()) + 1));
             continue;
         }
-        std::string message = fmt::format("column {} is named '{}', but input '{}' takes '{}' there", column, shown(name),
-                                          vec, declared[value]);
+        std::string message = fmt::format("column {} is named '{}', but {} '{}' takes '{}' there", column, shown(name),
+                                          role, vec, declared[value]);
         const std::vector<std::string> close = close_names(base, declared, 2);
         if (!close.empty() && close.front() == declared[value]) {
             message += fmt::format(": did you mean '{}'?", close.front());
@@ -223,7 +227,8 @@ bool parse_number(std::string_view field, double& out) { return read_number(fiel
 
 std::optional<std::vector<std::vector<double>>> read_csv_rows(const std::string& path, int width, Diagnostics& diags,
                                                               bool float32_range, std::vector<int>* lines,
-                                                              std::string_view vector_name, const VectorInfo* info) {
+                                                              std::string_view vector_name, const VectorInfo* info,
+                                                              std::string_view role) {
     auto text = read_file(path, diags);
     if (!text) return std::nullopt;
     Source src(path, *text);
@@ -263,7 +268,7 @@ std::optional<std::vector<std::vector<double>>> read_csv_rows(const std::string&
                 names.push_back(f.text);
                 starts.push_back(f.start);
             }
-            check_csv_header(names, starts, 0, ln, vector_name, info, problems);
+            check_csv_header(names, starts, 0, ln, vector_name, info, problems, role);
             continue;
         }
         bool fits = true;

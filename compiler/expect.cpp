@@ -254,7 +254,8 @@ bool check_expected(const LoadedModel& loaded, const std::string& input_path, co
         return false;
     }
     std::vector<int> lines;
-    auto want = read_csv_rows(expect_path, model.output_size, diags, false, &lines, model.output_name);
+    auto want = read_csv_rows(expect_path, model.output_size, diags, false, &lines, model.output_name, &model.output_info,
+                              "output");
     if (!want) return false;
 
     const std::vector<EvalResult> got = run_model(model, rows);

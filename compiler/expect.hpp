@@ -24,7 +24,8 @@ inline constexpr double kExpectTolerance = 1e-4;
 
 // Evaluates `loaded` over the rows of `input_path` (a sequence file for a streaming
 // model) and compares with `expect_path` (a CSV of output rows, one per input row,
-// an optional header line). Returns true when every value agrees; prints a summary
+// an optional header line, checked against the output's names as check_csv_header
+// says). Returns true when every value agrees; prints a summary
 // line into `summary`. Disagreement, a file of the wrong shape and rows that do not
 // evaluate are errors in `diags`; a mistake that explains a disagreement is a note
 // at its layer in the description. The standardisation candidates come from

@@ -47,6 +47,22 @@ Role role_of(const std::string& name) {
     return Role::unknown;
 }
 
+// A name for a variance's square root: its last 'variance' or 'var', in any case, becomes
+// 'std' in the same case ("running_var" -> "running_std", "Running_Var" -> "Running_Std",
+// "X_VAR" -> "X_STD"); role_of reads the words whatever their case, so must this.
+std::string root_name(const std::string& variance) {
+    std::string lower;
+    for (char c : variance) lower += static_cast<char>(std::tolower(static_cast<unsigned char>(c)));
+    for (const std::string word : {"variance", "var"}) {
+        const std::size_t at = lower.rfind(word);
+        if (at == std::string::npos) continue;
+        const auto upper = [&](std::size_t i) { return std::isupper(static_cast<unsigned char>(variance[at + i])) != 0; };
+        const char* std_word = upper(0) && upper(1) && upper(2) ? "STD" : upper(0) ? "Std" : "std";
+        return variance.substr(0, at) + std_word + variance.substr(at + word.size());
+    }
+    return variance + "_std";
+}
+
 // One side of the model: the input or the output vector.
 struct Side {
     const char* kind;          // "input", "output"
@@ -131,14 +147,7 @@ void add_pairings(const Side& side, const std::vector<Tensor>& loose, std::vecto
             const std::string instead = now ? fmt::format(", in place of '{}'", written_clause(*now)) : std::string();
             if (variance) {
                 // The statement takes a scale, not a variance: the square root has to be saved as a tensor.
-                std::string root = scale->name;   // a name for it: "running_var" -> "running_std"
-                for (const std::string word : {"variance", "var"}) {
-                    const std::size_t at = root.rfind(word);
-                    if (at == std::string::npos) continue;
-                    root.replace(at, word.size(), "std");
-                    break;
-                }
-                if (root == scale->name) root += "_std";
+                const std::string root = root_name(scale->name);
                 m.advice.emplace_back(
                     side.loc,
                     fmt::format("{} '{}': the trained network {} with the mean '{}' and a scale that is the square root "

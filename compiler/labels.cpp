@@ -49,7 +49,10 @@ std::optional<Labels> read_labels(const std::string& path, const Model& model, s
     }
     const int errors = diags.error_count();
     std::vector<int> lines;
-    auto values = read_csv_rows(path, width, diags, false, &lines);
+    // Rows of the output's width have their header checked against its names; a column of class
+    // indices may be headed freely.
+    auto values = width == k ? read_csv_rows(path, width, diags, false, &lines, model.output_name, &model.output_info, "output")
+                             : read_csv_rows(path, width, diags, false, &lines);
     if (!values) {
         if (diags.error_count() > errors) diags.note(*src, Loc{}, "expected " + shape);
         return std::nullopt;

@@ -23,7 +23,8 @@ struct Labels {
 bool is_classifier(const Model& model);
 
 // Reads `path`: `rows` rows (one per input row) of the output width, or, for
-// a softmax head, of one class index 0..K-1 each. A wrong row count, a wrong
+// a softmax head, of one class index 0..K-1 each; a header line of the output's
+// width is checked against its names (check_csv_header). A wrong row count, a wrong
 // column count, a value that is not finite, or a class index out of range is
 // an error naming the file, the line and the expected shape.
 std::optional<Labels> read_labels(const std::string& path, const Model& model, std::size_t rows, Diagnostics& diags);

@@ -145,11 +145,13 @@ std::uint64_t fnv1a64(std::string_view bytes, std::uint64_t seed = 0xcbf29ce4842
 // infinite in emitted float32 code) is an error too.
 // `lines`, when given, receives the 1-based file line of each row.
 // `vector_name` and `info`, when given (the description's input name, say "vib",
-// and what it says of the values), check a header line: see check_csv_header.
+// and what it says of the values; `role` "output" for the output's), check a header
+// line: see check_csv_header.
 std::optional<std::vector<std::vector<double>>> read_csv_rows(const std::string& path, int width, Diagnostics& diags,
                                                               bool float32_range = false, std::vector<int>* lines = nullptr,
                                                               std::string_view vector_name = {},
-                                                              const VectorInfo* info = nullptr);
+                                                              const VectorInfo* info = nullptr,
+                                                              std::string_view role = "input");
 
 // One CSV field as a number (blanks around allowed; strtod spelling, so "nan",
 // "-nan", "inf" and "-inf", everything eval writes, read too; a subnormal or
@@ -185,11 +187,14 @@ private:
 // the vector's value k ("vib.3", "vib[3]") must stand at k; with `info->names`, each
 // column must carry the declared name at its position, alone or as eval writes it
 // ("name (unit)", the unit then the declared one when both are given; a vector of
-// one value may also be named after the vector): a name of another position is
-// named with its column, an unknown one with the close declared names. Columns are
-// counted in the file from 1. One problem per column, added to `problems`.
+// one value may also be named after the vector; a classifier's output without names is
+// named by its classes): a name of another position is named with its column, an
+// unknown one with the close declared names. Columns are counted in the file from 1.
+// One problem per column, added to `problems`. `role` ("input", "output") names the
+// vector in the messages.
 void check_csv_header(const std::vector<std::string_view>& fields, const std::vector<std::size_t>& starts, std::size_t first,
-                      int line, std::string_view vector_name, const VectorInfo* info, RowProblems& problems);
+                      int line, std::string_view vector_name, const VectorInfo* info, RowProblems& problems,
+                      std::string_view role = "input");
 
 // Shortest text that reads back to the same double / float (fmt, locale-free).
 std::string format_double(double v);

@@ -10,6 +10,33 @@
 
 namespace meander::emit_detail::learning {
 
+namespace {
+
+// The opening every entry point shares: refuse a non-finite input (and what `checks`
+// refuses), then the forward pass, whose failure is the entry point's.
+std::string checked_forward(std::string_view signature, std::string_view checks) {
+    std::string o = fmt::format("learn_result {} noexcept {{\n", signature);
+    o += "    for (std::size_t i = 0; i < input_size; ++i)\n";
+    o += "        if (!std::isfinite(input[i])) return learn_result::input_not_finite;\n";
+    o += checks;
+    o += "    const learn_result r = learn_forward(ctx, p, input);\n";
+    o += "    if (r != learn_result::ok) return r;\n";
+    return o;
+}
+
+// The close of the gradient entry points: the reverse pass from `ybar` into grad, its
+// failure and a non-finite gradient refused.
+std::string checked_backward(std::string_view ybar, bool head_gz) {
+    std::string o = fmt::format("    const learn_result rb = learn_backward(ctx, p, input, {}, {}, grad.value);\n", ybar,
+                                head_gz ? "true" : "false");
+    o += "    if (rb != learn_result::ok) return rb;\n";
+    o += "    if (!all_finite(grad.value, learnable_count)) return learn_result::gradient_not_finite;\n";
+    o += "    return learn_result::ok;\n}\n\n";
+    return o;
+}
+
+}  // namespace
+
 std::string LearnRender::render_entries() {
     const bool std_out = e_.model.output_info.standardised.has_value();
     const std::size_t out_at = std_out ? std_out_ : region_.nodes.back().y;
@@ -37,22 +64,14 @@ std::string LearnRender::render_entries() {
     }
     o += "}\n\n";
 
-    o += "learn_result infer(learn_context& ctx, const parameters& p, const real* input, real* output) noexcept {\n";
-    o += "    for (std::size_t i = 0; i < input_size; ++i)\n";
-    o += "        if (!std::isfinite(input[i])) return learn_result::input_not_finite;\n";
-    o += "    const learn_result r = learn_forward(ctx, p, input);\n";
-    o += "    if (r != learn_result::ok) return r;\n";
+    o += checked_forward("infer(learn_context& ctx, const parameters& p, const real* input, real* output)", "");
     o += fmt::format("    for (std::size_t i = 0; i < output_size; ++i) output[i] = ctx.work[{} + i];\n", out_at);
     o += "    return learn_result::ok;\n}\n\n";
 
-    o += "learn_result gradient(learn_context& ctx, const parameters& p, const real* input, const real* target, "
-         "parameters& grad, real& loss) noexcept {\n";
-    o += "    for (std::size_t i = 0; i < input_size; ++i)\n";
-    o += "        if (!std::isfinite(input[i])) return learn_result::input_not_finite;\n";
-    o += "    for (std::size_t i = 0; i < output_size; ++i)\n";
-    o += "        if (!std::isfinite(target[i])) return learn_result::target_not_finite;\n";
-    o += "    const learn_result r = learn_forward(ctx, p, input);\n";
-    o += "    if (r != learn_result::ok) return r;\n";
+    o += checked_forward("gradient(learn_context& ctx, const parameters& p, const real* input, const real* target, "
+                         "parameters& grad, real& loss)",
+                         "    for (std::size_t i = 0; i < output_size; ++i)\n"
+                         "        if (!std::isfinite(target[i])) return learn_result::target_not_finite;\n");
     o += "    real* const w = ctx.work;\n";
     o += fmt::format("    const real* const y = {};\n", out);
     o += fmt::format("    real* const ybar = w + {};\n", obar_);
@@ -76,31 +95,18 @@ std::string LearnRender::render_entries() {
         o += "    loss = sum;\n";
     }
     o += "    for (std::size_t i = 0; i < learnable_count; ++i) grad.value[i] = " + L(0) + ";\n";
-    o += fmt::format("    const learn_result rb = learn_backward(ctx, p, input, ybar, {}, grad.value);\n",
-                     plan_.loss == LearnLoss::cross_entropy ? "true" : "false");
-    o += "    if (rb != learn_result::ok) return rb;\n";
-    o += "    if (!all_finite(grad.value, learnable_count)) return learn_result::gradient_not_finite;\n";
-    o += "    return learn_result::ok;\n}\n\n";
+    o += checked_backward("ybar", plan_.loss == LearnLoss::cross_entropy);
 
-    o += "learn_result gradient_from(learn_context& ctx, const parameters& p, const real* input, const real* output_grad, "
-         "parameters& grad) noexcept {\n";
-    o += "    for (std::size_t i = 0; i < input_size; ++i)\n";
-    o += "        if (!std::isfinite(input[i])) return learn_result::input_not_finite;\n";
-    o += "    if (!all_finite(output_grad, output_size)) return learn_result::target_not_finite;\n";
-    o += "    const learn_result r = learn_forward(ctx, p, input);\n";
-    o += "    if (r != learn_result::ok) return r;\n";
+    o += checked_forward("gradient_from(learn_context& ctx, const parameters& p, const real* input, const real* output_grad, "
+                         "parameters& grad)",
+                         "    if (!all_finite(output_grad, output_size)) return learn_result::target_not_finite;\n");
     o += "    for (std::size_t i = 0; i < learnable_count; ++i) grad.value[i] = " + L(0) + ";\n";
     if (std_out) {
         o += "    // dL/d(the last layer's output) = dL/doutput * scale\n";
         o += fmt::format("    real* const ybar = ctx.work + {};\n", obar_);
         o += "    for (std::size_t i = 0; i < output_size; ++i) ybar[i] = output_grad[i] * output_scale[i];\n";
-        o += "    const learn_result rb = learn_backward(ctx, p, input, ybar, false, grad.value);\n";
-    } else {
-        o += "    const learn_result rb = learn_backward(ctx, p, input, output_grad, false, grad.value);\n";
     }
-    o += "    if (rb != learn_result::ok) return rb;\n";
-    o += "    if (!all_finite(grad.value, learnable_count)) return learn_result::gradient_not_finite;\n";
-    o += "    return learn_result::ok;\n}\n\n";
+    o += checked_backward(std_out ? "ybar" : "output_grad", false);
 
     o += "learn_result learn_step(learn_context& ctx, parameters& p, const real* input, const real* target, real rate, "
          "real clip, real& loss) noexcept {\n";

@@ -14,6 +14,7 @@
 #include <filesystem>
 #include <limits>
 #include <sstream>
+#include <utility>
 
 #include "compiler/sequence.hpp"
 #include "compiler/source.hpp"
@@ -28,12 +29,12 @@ fs::path scratch(const std::string& name) { return test::scratch_dir("test_csv",
 
 // The diagnostics of reading `text` as rows of `width`, rendered, with the path shortened to "in.csv".
 std::string problems(const std::string& name, const std::string& text, int width, std::string_view vector = {},
-                     const VectorInfo* info = nullptr) {
+                     const VectorInfo* info = nullptr, std::string_view role = "input") {
     const fs::path dir = scratch(name);
     test::write_text(dir / "in.csv", text);
     Diagnostics d;
     std::vector<int> lines;
-    EXPECT_FALSE(read_csv_rows((dir / "in.csv").string(), width, d, false, &lines, vector, info));
+    EXPECT_FALSE(read_csv_rows((dir / "in.csv").string(), width, d, false, &lines, vector, info, role));
     std::string out = d.render();
     const std::string path = (dir / "in.csv").string();
     for (std::size_t at; (at = out.find(path)) != std::string::npos;) out.replace(at, path.size(), "in.csv");
@@ -189,6 +190,47 @@ TEST(CsvProblems, HeaderIsCheckedAgainstTheDeclaredNames) {
     test::write_text(dir / "in.csv", "surface_c\n1\n");
     Diagnostics d;
     EXPECT_TRUE(read_csv_rows((dir / "in.csv").string(), 1, d, false, nullptr, "surface_c", &one)) << d.render();
+}
+
+// The output's files (check --expect, --labels) are checked the same way, the output named as such;
+// a classifier's output without names is named by its classes.
+TEST(CsvProblems, OutputHeaderIsCheckedAgainstTheDeclaredNames) {
+    const auto output_problems = [](const std::string& name, const std::string& text, const VectorInfo& info) {
+        return problems(name, text, 3, "y", &info, "output");
+    };
+    const VectorInfo info = motor_names();
+    EXPECT_EQ(output_problems("output-swapped", "amps,rpm,volts\n1,2,3\n", info),
+              "in.csv:1:6: error: column 2 is named 'rpm', but output 'y' takes 'volts' there: 'rpm' is its column 3\n"
+              "amps,rpm,volts\n     ^\n"
+              "in.csv:1:10: error: column 3 is named 'volts', but output 'y' takes 'rpm' there: 'volts' is its column 2\n"
+              "amps,rpm,volts\n         ^\n");
+    EXPECT_EQ(output_problems("output-misspelt", "amps (A),vlots,rpm\n1,2,3\n", info),
+              "in.csv:1:10: error: column 2 is named 'vlots', but output 'y' takes 'volts' there: did you mean 'volts'?\n"
+              "amps (A),vlots,rpm\n         ^\n");
+    EXPECT_EQ(output_problems("output-foreign", "a,b,c\n1,2,3\n", info),
+              "in.csv:1:1: error: the header names none of output 'y''s values: it takes amps, volts, rpm, in this order (a "
+              "line of other names can stand as a '#' comment)\na,b,c\n^\n");
+    EXPECT_EQ(output_problems("output-order", "y.0,y.2,y.1\n1,2,3\n", info),
+              "in.csv:1:5: error: column 2 is named 'y.2', but output 'y' takes its values in order: column 2 holds y.1\n"
+              "y.0,y.2,y.1\n    ^\n"
+              "in.csv:1:9: error: column 3 is named 'y.1', but output 'y' takes its values in order: column 3 holds y.2\n"
+              "y.0,y.2,y.1\n        ^\n");
+    VectorInfo classes;
+    classes.classes = {"idle", "worn", "broken"};
+    EXPECT_EQ(output_problems("output-classes", "idle,broken,worn\n0.5,0.25,0.25\n", classes),
+              "in.csv:1:6: error: column 2 is named 'broken', but output 'y' takes 'worn' there: 'broken' is its column 3\n"
+              "idle,broken,worn\n     ^\n"
+              "in.csv:1:13: error: column 3 is named 'worn', but output 'y' takes 'broken' there: 'worn' is its column 2\n"
+              "idle,broken,worn\n            ^\n");
+    // In order they read.
+    for (const auto& [header, vinfo] : {std::pair<std::string, const VectorInfo*>{"amps (A),volts,rpm", &info},
+                                        {"idle,worn,broken", &classes}}) {
+        const fs::path dir = scratch("output-ok");
+        test::write_text(dir / "in.csv", header + "\n1,2,3\n");
+        Diagnostics d;
+        EXPECT_TRUE(read_csv_rows((dir / "in.csv").string(), 3, d, false, nullptr, "y", vinfo, "output")) << header << "\n"
+                                                                                                            << d.render();
+    }
 }
 
 // A streaming model's sequence file: the id and time columns are free, the observation's are checked.

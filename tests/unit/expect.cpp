@@ -209,6 +209,49 @@ TEST(Expect, WrongShapeNamesBothShapes) {
     EXPECT_NE(s.output.find("holds 39 rows of 4 values; the model gives 40 rows of 4 outputs"), std::string::npos) << s.output;
 }
 
+// The expected file's header against the output's declared names, as input rows are against the
+// input's (tests/unit/csv.cpp): soil_probe's expected.csv with its header changed; the values are
+// those its trainer wrote, so only the header can be refused.
+TEST(Expect, HeaderIsCheckedAgainstTheOutputNames) {
+    const fs::path dir = scratch_dir("expect", "header");
+    const fs::path mnd = kSamples / "soil_probe/soil_probe.mnd", inputs = kSamples / "soil_probe/inputs.csv";
+    const std::string rows = read_text(kSamples / "soil_probe/expected.csv");
+    const std::string body = rows.substr(rows.find('\n') + 1);
+    const auto checked = [&](const std::string& header) {
+        write_text(dir / "expected.csv", header + "\n" + body);
+        return check_expect(mnd, inputs, dir / "expected.csv");
+    };
+    // Refused with exit status 1 and `diagnostic` at line 1 of the file, its line and caret.
+    const auto refused = [&](const std::string& header, const std::string& diagnostic) {
+        const RunResult r = checked(header);
+        EXPECT_EQ(r.status, 1) << r.output;
+        EXPECT_NE(r.output.find((dir / "expected.csv").string() + ":1:" + diagnostic), std::string::npos) << r.output;
+    };
+    refused("pore_ec_dsm,water_pct", "1: error: column 1 is named 'pore_ec_dsm', but output 'estimate' takes 'water_pct' "
+                                     "there: 'pore_ec_dsm' is its column 2\npore_ec_dsm,water_pct\n^\n");
+    refused("water_pct (%),pore_ec_dms", "15: error: column 2 is named 'pore_ec_dms', but output 'estimate' takes "
+                                         "'pore_ec_dsm' there: did you mean 'pore_ec_dsm'?\nwater_pct (%),pore_ec_dms\n"
+                                         "              ^\n");
+    refused("moisture,salinity", "1: error: the header names none of output 'estimate''s values: it takes water_pct, "
+                                 "pore_ec_dsm, in this order (a line of other names can stand as a '#' comment)\n"
+                                 "moisture,salinity\n^\n");
+    // eval's own header, the vector's value names, or none: the values decide.
+    for (const char* header : {"water_pct (%),pore_ec_dsm (dS/m)", "estimate.0,estimate.1", "# no header"}) {
+        const RunResult ok = checked(header);
+        EXPECT_EQ(ok.status, 0) << header << "\n" << ok.output;
+    }
+    // A classifier's columns are its classes (fan_balance: balanced, light, moderate, severe).
+    std::string classes = read_text(kExpected);
+    classes.replace(0, classes.find('\n'), "balanced,moderate,light,severe");
+    write_text(dir / "classes.csv", classes);
+    const RunResult r = check_expect(kSamples / "fan_balance/fan_balance.mnd", kInputs, dir / "classes.csv");
+    EXPECT_EQ(r.status, 1) << r.output;
+    EXPECT_NE(r.output.find("classes.csv:1:10: error: column 2 is named 'moderate', but output 'grade' takes 'light' there: "
+                            "'moderate' is its column 3"),
+              std::string::npos)
+        << r.output;
+}
+
 TEST(Expect, ToleranceIsStatedAndSettable) {
     // fan_balance agrees to about 2e-15 (samples/check_expected.py); a tolerance below that fails.
     const fs::path mnd = kSamples / "fan_balance/fan_balance.mnd";

@@ -114,6 +114,29 @@ std::string replace_once(std::string text, const std::string& from, const std::s
     return text;
 }
 
+// regressor.pt's tensors as a normalisation layer keeps them: x_mean renamed `mean`, x_std
+// squared and renamed `variance`; written as an .npz in a scratch folder `name`.
+TensorSet variance_weights(const std::string& name, const std::string& mean, const std::string& variance) {
+    Diagnostics diags;
+    auto set = read_weights((kData / "regressor.pt").string(), diags, "model");
+    EXPECT_TRUE(set) << diags.render();
+    TensorSet out;
+    out.path = (scratch_dir("expect_standardise", name) / "regressor.npz").string();
+    if (!set) return out;
+    for (Tensor t : set->tensors) {
+        if (t.name == "x_mean") t.name = mean;
+        if (t.name == "x_std") {
+            t.name = variance;
+            for (double& v : t.values) v = v * v;
+        }
+        out.tensors.push_back(t);
+    }
+    auto bytes = npz_bytes(out, "float64");
+    EXPECT_TRUE(bytes);
+    if (bytes) write_text(out.path, *bytes);
+    return out;
+}
+
 TEST(ExpectStandardise, BothMissingAreNamedWithTheStatementsToWrite) {
     // The buffers are ignored and the statements have no 'standardised': the trained network
     // standardises its input and de-standardises its output, so no one of them alone agrees.
@@ -253,23 +276,7 @@ TEST(ExpectStandardise, OutputDestandardisedTwiceIsNamed) {
 
 TEST(ExpectStandardise, VarianceGivesItsSquareRootAsTheScale) {
     // A normalisation layer's buffers: running_mean and running_var (= x_std squared) in an .npz.
-    const fs::path dir = scratch_dir("expect_standardise", "variance_weights");
-    Diagnostics diags;
-    auto set = read_weights((kData / "regressor.pt").string(), diags, "model");
-    ASSERT_TRUE(set) << diags.render();
-    TensorSet out;
-    out.path = (dir / "regressor.npz").string();
-    for (Tensor t : set->tensors) {
-        if (t.name == "x_mean") t.name = "norm.running_mean";
-        if (t.name == "x_std") {
-            t.name = "norm.running_var";
-            for (double& v : t.values) v = v * v;
-        }
-        out.tensors.push_back(t);
-    }
-    auto bytes = npz_bytes(out, "float64");
-    ASSERT_TRUE(bytes);
-    write_text(out.path, *bytes);
+    TensorSet out = variance_weights("variance_weights", "norm.running_mean", "norm.running_var");
     std::string text = regressor(out.path, "", ", standardised mean \"y_mean\" scale \"y_std\"");
     text = replace_once(text, "ignore \"x_*\", \"y_*\"", "ignore \"norm.*\"");
     Case c = write_case("variance", text);
@@ -300,6 +307,39 @@ TEST(ExpectStandardise, VarianceGivesItsSquareRootAsTheScale) {
     write_text(c.mnd, replace_once(text, kInputNames, advised_statement(r.output, "input")));
     const RunResult again = check_expect(c);
     EXPECT_EQ(again.status, 0) << again.output;
+}
+
+// The tensors' names read whatever their case: a normalisation layer's buffers saved as
+// 'Norm.Running_Mean' and 'Norm.Running_Var', or all in capitals. The file is made as in
+// VarianceGivesItsSquareRootAsTheScale (variance_weights): framework_standardise.py's
+// regressor.pt (PyTorch 1.13), x_mean renamed, x_std renamed and squared, written as an .npz.
+TEST(ExpectStandardise, TensorNamesAreMatchedWhateverTheirCase) {
+    struct Names {
+        const char* mean;
+        const char* variance;
+        const char* root;   // the name the note suggests for the square root
+    };
+    for (const Names n : {Names{"Norm.Running_Mean", "Norm.Running_Var", "Norm.Running_Std"},
+                          Names{"NORM.RUNNING_MEAN", "NORM.RUNNING_VAR", "NORM.RUNNING_STD"},
+                          Names{"x_Mean", "x_Variance", "x_Std"}}) {
+        SCOPED_TRACE(n.variance);
+        const TensorSet out = variance_weights(std::string("case_weights_") + n.variance, n.mean, n.variance);
+        std::string text = regressor(out.path, "", ", standardised mean \"y_mean\" scale \"y_std\"");
+        text = replace_once(text, "ignore \"x_*\", \"y_*\"", fmt::format("ignore \"{}\", \"{}\"", n.mean, n.variance));
+        Case c = write_case(std::string("case_") + n.variance, text);
+        const RunResult r = check_expect(c);
+        EXPECT_EQ(r.status, 1) << r.output;
+        EXPECT_NE(r.output.find(fmt::format("note: they agree with the input 'reading' standardised with mean '{}' and scale "
+                                            "the square root of '{}':",
+                                            n.mean, n.variance)),
+                  std::string::npos)
+            << r.output;
+        EXPECT_NE(r.output.find(fmt::format("save sqrt({} + eps) as a tensor, say '{}', and write '{}, standardised mean "
+                                            "\"{}\" scale \"{}\"'",
+                                            n.variance, n.root, kInputNames, n.mean, n.root)),
+                  std::string::npos)
+            << r.output;
+    }
 }
 
 // The library entry point sees the same: the loaded model carries the loose vectors.

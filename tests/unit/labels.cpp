@@ -5,6 +5,7 @@
 
 #include <cmath>
 #include <string>
+#include <vector>
 
 #include "test_support.hpp"
 
@@ -106,6 +107,42 @@ TEST(EvalLabels, BadFilesNameFileLineAndShape) {
     EXPECT_EQ(r.status, 1);
     EXPECT_NE(r.output.find("class.csv:2:1: error: class index 4 is not one of 0..3"), std::string::npos) << r.output;
     EXPECT_FALSE(std::filesystem::exists(dir / "out.csv"));
+}
+
+// The labels' header against the output's declared names (boiler_ahead: water_30s_c and wall_30s_c,
+// both in degC), as input rows are against the input's (tests/unit/csv.cpp); a column of class
+// indices may be headed freely.
+TEST(EvalLabels, HeaderIsCheckedAgainstTheOutputNames) {
+    const auto dir = temp_dir("labels-header");
+    const std::string base = kBin + " eval " + sample("boiler_ahead", "boiler_ahead.mnd") + " --input " +
+                             sample("boiler_ahead", "inputs.csv") + " --output " + (dir / "out.csv").string() + " --labels ";
+    const std::string good = read_text(sample("boiler_ahead", "labels.csv"));
+    const auto headed = [&](const std::string& header) {
+        write_text(dir / "labels.csv", header + good.substr(good.find('\n')));
+        return run(base + (dir / "labels.csv").string());
+    };
+    // Refused with exit status 1 and `diagnostics` at line 1 of the file.
+    const auto refused = [&](const std::string& header, const std::vector<std::string>& diagnostics) {
+        const RunResult r = headed(header);
+        EXPECT_EQ(r.status, 1) << r.output;
+        for (const std::string& d : diagnostics)
+            EXPECT_NE(r.output.find((dir / "labels.csv").string() + ":1:" + d), std::string::npos) << r.output;
+    };
+    refused("wall_30s_c,water_30s_c", {"1: error: column 1 is named 'wall_30s_c', but output 'ahead' takes 'water_30s_c' "
+                                       "there: 'wall_30s_c' is its column 2\nwall_30s_c,water_30s_c\n^\n"});
+    refused("water_30s_c (degF),wall_30s",
+            {"1: error: column 1 gives 'water_30s_c' in 'degF', but output 'ahead' takes it in 'degC'\n",
+             "20: error: column 2 is named 'wall_30s', but output 'ahead' takes 'wall_30s_c' there: did you mean "
+             "'wall_30s_c'?\n"});
+    refused("boiler,wall", {"1: error: the header names none of output 'ahead''s values: it takes water_30s_c, wall_30s_c, "
+                            "in this order"});
+    EXPECT_FALSE(std::filesystem::exists(dir / "out.csv"));
+    RunResult r = headed("water_30s_c (degC),wall_30s_c (degC)");
+    EXPECT_EQ(r.status, 0) << r.output;
+    // fan_balance's labels: one class index a row under the header 'grade', not a class's name.
+    r = run(kBin + " eval " + sample("fan_balance", "fan_balance.mnd") + " --input " + sample("fan_balance", "inputs.csv") +
+            " --output /dev/null --labels " + sample("fan_balance", "labels.csv"));
+    EXPECT_EQ(r.status, 0) << r.output;
 }
 
 TEST(TuneLabels, MetricPerCandidateAndChoiceByMetric) {
