@@ -10,10 +10,15 @@
 // compiled: SSE2 registers on x86, VLDM + VMUL + VADD on an ARMv7E-M FPU, plain
 // C++ elsewhere. A block's loop over the inputs is written out in full when
 // the layer has at most kUnrollInputs input columns (DEVELOPERS.md states the
-// measured trade). An integer layer (compiler/quantise.hpp) goes through the
-// same blocks with `qlanesR` steps, plain C++ on every target: each holds its
-// rows' scales and adds fl(real(q) * s) * x, the dequantised real layer's
-// product, so the bits are the real layer's; it keeps the loop over the inputs.
+// measured trade). Such a layer with at most kUnrollBlocks blocks asks GCC on
+// x86 (SSE2) to unroll its loops over the blocks and over the four-lane
+// activations, which GCC -O2 leaves rolled (boiler_ahead's float32 infer about
+// 5% faster on x86-64, tests/bench/README.md); a pragma only, so that on the
+// Cortex-M targets, where flash counts, the code stays a loop. An integer
+// layer (compiler/quantise.hpp) goes through the same blocks with `qlanesR`
+// steps, plain C++ on every target: each holds its rows' scales and adds
+// fl(real(q) * s) * x, the dequantised real layer's product, so the bits are
+// the real layer's; it keeps the loop over the inputs.
 #include <fmt/format.h>
 
 #include <map>
@@ -257,6 +262,9 @@ std::string render_dense_layers(const Emission& e) {
         // Integer layers keep the loop: written out, each weight's load, conversion and scaling
         // would cost more code than the integers save (tests/target/storage_threshold.sh).
         const bool unroll = cols <= kUnrollInputs && !ints;
+        // GCC unrolls the loops over the blocks and the four-lane activations on x86 (clang reads
+        // the pragma too).
+        const bool unroll_blocks = unroll && blocks <= kUnrollBlocks;
         const std::string steps = ints ? "qlanes" : "lanes";
         o += fmt::format("// dense {}: {}{} -> {}, {}{}; {} block{} of {} outputs{}{}\n", sym, d.in,
                          d.time_input ? " + t" : "", d.out, activation_name(d.act),
@@ -294,6 +302,8 @@ std::string render_dense_layers(const Emission& e) {
             o += fmt::format("{}{}{}_store(s, y + {});\n", pad, steps, n, at);
         };
         if (blocks > 1) {
+            if (unroll_blocks)
+                o += fmt::format("#if defined(__SSE2__) && defined(__GNUC__)\n#pragma GCC unroll {}\n#endif\n", blocks);
             o += fmt::format("    for (std::size_t o = 0; o < {}; o += {}) {{\n", blocks * R, R);
             block(R, "o", "        ");
             o += "    }\n";
@@ -313,6 +323,7 @@ std::string render_dense_layers(const Emission& e) {
             // Four outputs at a time on SSE2 (runtime/math_lanes.inc: the scalar kernel's bits).
             const int whole = d.out / 4 * 4;
             o += "#if defined(__SSE2__)\n";
+            if (unroll_blocks && whole > 4) o += fmt::format("#if defined(__GNUC__)\n#pragma GCC unroll {}\n#endif\n", whole / 4);
             o += fmt::format("    for (std::size_t o = 0; o < {}; o += 4) act_{}4(y + o);\n", whole,
                              activation_name(d.act));
             if (whole < d.out) o += fmt::format("    for (std::size_t o = {}; o < {}; ++o) y[o] = {};\n", whole, d.out, act);

@@ -75,9 +75,13 @@ const char* four_lane_kernel(Precision p, const Dense& d);
 // each, the rows left over in a last smaller block (weights.cpp interleaves
 // the weights to match); a block's loop over the inputs is written out when a
 // layer has at most kUnrollInputs columns. render_dense_steps: the blocks'
-// accumulate steps (lanesR_*), which render_dense_layers puts first.
+// accumulate steps (lanesR_*), which render_dense_layers puts first. On x86
+// with SSE2 a layer whose inputs are written out and which has at most
+// kUnrollBlocks blocks of kDenseBlockRows also has its loops over the blocks
+// and over the four-lane activations unrolled by GCC (a pragma).
 inline constexpr int kDenseBlockRows = 4;
 inline constexpr int kUnrollInputs = 16;
+inline constexpr int kUnrollBlocks = 4;
 std::string render_dense_includes(const Emission& e);  // the SSE2 intrinsics' header, when a layer needs it
 std::string render_dense_steps(const Emission& e);
 std::string render_dense_layers(const Emission& e);
