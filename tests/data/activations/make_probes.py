@@ -14,8 +14,8 @@ KINDS = ["tanh", "sigmoid", "softplus", "silu", "gelu", "elu", "softmax"]
 WIDTH = 64
 
 
-def listing(tensors):
-    lines = ["meander-weights 1", "# written by make_probes.py (invented values, see its docstring)", ""]
+def listing(tensors, writer="make_probes.py"):
+    lines = ["meander-weights 1", f"# written by {writer} (invented values, see its docstring)", ""]
     for name, a in tensors:
         lines.append(f"tensor {name} float32 " + " ".join(str(n) for n in a.shape))
         rows = a.astype(np.float32).reshape(-1, a.shape[-1])

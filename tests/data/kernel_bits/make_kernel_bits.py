@@ -22,20 +22,11 @@ import sys
 
 import numpy as np
 
+sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), "..", "activations"))
+from make_probes import listing  # noqa: E402  (the same weights listing as the probes')
+
 KINDS = ["tanh", "sigmoid", "softplus", "silu", "gelu", "elu", "softmax"]
 WIDTH = 256
-
-
-def listing(tensors):
-    lines = ["meander-weights 1", "# written by make_kernel_bits.py (invented values, see its docstring)", ""]
-    for name, a in tensors:
-        lines.append(f"tensor {name} float32 " + " ".join(str(n) for n in a.shape))
-        rows = a.astype(np.float32).reshape(-1, a.shape[-1])
-        for row in rows:  # each row starts a line, wrapped after 8 values
-            for i in range(0, row.size, 8):
-                lines.append(" ".join(repr(float(v)) for v in row[i:i + 8]))
-        lines.append("")
-    return "\n".join(lines)
 
 
 def main():
@@ -58,7 +49,7 @@ def main():
                     f"dense act: 1 -> {WIDTH}, {kind}\n"
                     f"output y[{WIDTH}]\n")
         with open(f"{name}/{name}.mnw", "w") as f:
-            f.write(listing([("act.weight", weight), ("act.bias", bias.astype(np.float32))]))
+            f.write(listing([("act.weight", weight), ("act.bias", bias.astype(np.float32))], "make_kernel_bits.py"))
         subprocess.run([meander, "eval", f"{name}/{name}.mnd", "--input", f"{name}/inputs.csv",
                         "--output", f"{name}/expected.csv"], check=True)
 
