@@ -112,7 +112,7 @@ inline float float_of(std::uint32_t u) noexcept {
 inline float mul_apart(float a, float b) noexcept { return a * b; }
 #endif
 
-// kernel exp_tail: needs bits_of float_of mul_apart
+// kernel exp_tail: needs mul_apart
 // e^x = 2^m 2^(j/32) e^r: k = 32 m + j = round(x 32/ln2), found by adding
 // 1.5 2^23 (the addition rounds; k is in the low bits of the sum),
 // r = x - k ln2/32 with |r| <= ln2/64 (Cody and Waite: ln2/32 in two parts,

@@ -138,7 +138,7 @@ inline float float_of(std::uint32_t u) noexcept {
 inline float mul_apart(float a, float b) noexcept { return a * b; }
 #endif
 
-// kernel exp_tail: needs bits_of float_of mul_apart
+// kernel exp_tail: needs mul_apart
 // e^x = 2^m 2^(j/32) e^r: k = 32 m + j = round(x 32/ln2), found by adding
 // 1.5 2^23 (the addition rounds; k is in the low bits of the sum),
 // r = x - k ln2/32 with |r| <= ln2/64 (Cody and Waite: ln2/32 in two parts,
@@ -247,7 +247,7 @@ inline float pow2(int k) noexcept { return float_of(static_cast<std::uint32_t>(k
     return tanh_outer(x);
 }
 
-// kernel silu: needs exp_split exp_scaled mul_apart
+// kernel silu: needs exp_split exp_scaled mul_apart bits_of
 // x/(1 + e), e = exp(-x) = p 2^m: x s/(s + p), s = 2^-m (x s exact), for either
 // sign; one division. x itself beyond 20; below -20, where 1 + e rounds to e,
 // x e^x is formed inside exp so a subnormal result is rounded once.
@@ -284,7 +284,7 @@ inline float act_relu(float x) noexcept { return x > 0.0f ? x : 0.0f; }
 }
 #endif
 
-// kernel lanes_exp: needs exp_split
+// kernel lanes_exp: needs exp_tail
 #if defined(__SSE2__)
 // exp_split on four lanes, exp_tail's steps included: returns p, sets s.
 [[gnu::always_inline]] inline __m128 lanes_exp_split(__m128 a, __m128& s) noexcept {
