@@ -20,15 +20,21 @@ enum class Role { mean, scale, variance, unknown };
 
 // What a tensor's name says it holds, by its words ("norm.running_var": var; "x_std": std).
 Role role_of(const std::string& name) {
+    // Words split at non-letters and at a camelCase hump: "runningVar" and
+    // "RUNNINGVar" read as running, var ("XMean" as x, mean).
     std::vector<std::string> words;
     std::string word;
-    for (char c : name + ".") {
-        if (std::isalnum(static_cast<unsigned char>(c))) {
-            word += static_cast<char>(std::tolower(static_cast<unsigned char>(c)));
-        } else if (!word.empty()) {
+    const std::string text = name + ".";
+    const auto at = [&](std::size_t i) { return i < text.size() ? static_cast<unsigned char>(text[i]) : 0; };
+    const auto upper = [&](std::size_t i) { return std::isupper(at(i)) != 0; };
+    const auto lower_or_digit = [&](std::size_t i) { return std::islower(at(i)) != 0 || std::isdigit(at(i)) != 0; };
+    for (std::size_t i = 0; i < text.size(); ++i) {
+        const bool hump = i > 0 && upper(i) && (lower_or_digit(i - 1) || (upper(i - 1) && std::islower(at(i + 1)) != 0));
+        if (!word.empty() && (hump || std::isalnum(at(i)) == 0)) {
             words.push_back(word);
             word.clear();
         }
+        if (std::isalnum(at(i)) != 0) word += static_cast<char>(std::tolower(at(i)));
     }
     auto ends = [](const std::string& w, const char* tail) {
         const std::string t(tail);

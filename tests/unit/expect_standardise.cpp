@@ -310,7 +310,7 @@ TEST(ExpectStandardise, VarianceGivesItsSquareRootAsTheScale) {
 }
 
 // The tensors' names read whatever their case: a normalisation layer's buffers saved as
-// 'Norm.Running_Mean' and 'Norm.Running_Var', or all in capitals. The file is made as in
+// 'Norm.Running_Mean' and 'Norm.Running_Var', all in capitals, or in camelCase. The file is made as in
 // VarianceGivesItsSquareRootAsTheScale (variance_weights): framework_standardise.py's
 // regressor.pt (PyTorch 1.13), x_mean renamed, x_std renamed and squared, written as an .npz.
 TEST(ExpectStandardise, TensorNamesAreMatchedWhateverTheirCase) {
@@ -321,7 +321,9 @@ TEST(ExpectStandardise, TensorNamesAreMatchedWhateverTheirCase) {
     };
     for (const Names n : {Names{"Norm.Running_Mean", "Norm.Running_Var", "Norm.Running_Std"},
                           Names{"NORM.RUNNING_MEAN", "NORM.RUNNING_VAR", "NORM.RUNNING_STD"},
-                          Names{"x_Mean", "x_Variance", "x_Std"}}) {
+                          Names{"x_Mean", "x_Variance", "x_Std"},
+                          // camelCase: the words split at the hump
+                          Names{"norm.runningMean", "norm.runningVar", "norm.runningStd"}}) {
         SCOPED_TRACE(n.variance);
         const TensorSet out = variance_weights(std::string("case_weights_") + n.variance, n.mean, n.variance);
         std::string text = regressor(out.path, "", ", standardised mean \"y_mean\" scale \"y_std\"");
