@@ -75,31 +75,45 @@ constexpr const char* kKernelsWhere =
     "measured with meander cost on the emulated board (the samples' emitted code and tests/data/activations, "
     "2026-12-02; compiler/cost.cpp states how)";
 
+// Integer-weight layers (int8 and int16 alike), measured as the float figures
+// but with --weights-as int8 and int16 over the first 8 rows of each of the
+// three samples, after the Cortex-M4F/M7 steps went to LDRSB/LDRSH + paired
+// VMOV + VCVT + VMUL + VMUL + VADD (2026-12-03): M4F and M7 9.68-10.90, M3
+// 197.9-200.6 cycles per MAC; the mean. The M0 has no measurement: its float
+// figure with the M3's proportion (conversion and scaling in software float).
+constexpr const char* kIntWhere =
+    "measured with meander cost on the emulated board (the samples' emitted code with int8 and int16 weights, "
+    "2026-12-03; compiler/cost.cpp states how)";
+
 std::vector<CoreFigures> make_figures() {
     std::vector<CoreFigures> f(4);
     f[0] = {CoreClass::cortex_m0, {"-mcpu=cortex-m0", "-mthumb", "-mfloat-abi=soft"}, false,
             270.0, "software float fmul ~170 + fadd ~100 cycles (GCC library on a Cortex-M0)",
             1930.0, "software expf ~1,930 cycles (GCC library on a Cortex-M0)", {}, 0.0,
-            "not counted (no figure for this core)"};
+            "not counted (no figure for this core)",
+            270.0 * 200.0 / 116.0, "the float figure scaled as on the Cortex-M3 (no measurement for this core)"};
     f[1] = {CoreClass::cortex_m3, {"-mcpu=cortex-m3", "-mthumb", "-mfloat-abi=soft"}, false,
             116.0, std::string("software float, ") + kMeasuredWhere,
             1116.0, std::string("meander's kernels in software float, ") + kKernelsWhere,
             {{"tanh", 1076.0}, {"sigmoid", 1093.0}, {"softplus", 930.0}, {"silu", 1116.0}, {"gelu", 852.0},
              {"elu", 713.0}, {"softmax", 967.0}},
             600.0,
-            kMeasuredWhere};
+            kMeasuredWhere,
+            199.4, std::string("software float, ") + kIntWhere};
     f[2] = {CoreClass::cortex_m4f, {"-mcpu=cortex-m4", "-mthumb", "-mfpu=fpv4-sp-d16", "-mfloat-abi=hard"}, true,
             4.1, kMeasuredWhere,
             57.0, std::string("meander's kernels, ") + kKernelsWhere,
             {{"tanh", 57.0}, {"sigmoid", 48.0}, {"softplus", 55.0}, {"silu", 56.0}, {"gelu", 55.0}, {"elu", 31.0},
              {"softmax", 47.0}},
-            50.0, kMeasuredWhere};
+            50.0, kMeasuredWhere,
+            10.2, kIntWhere};
     f[3] = {CoreClass::cortex_m7, {"-mcpu=cortex-m7", "-mthumb", "-mfpu=fpv5-sp-d16", "-mfloat-abi=hard"}, true,
             4.1, std::string(kMeasuredWhere) + ", priced with the Cortex-M4 table",
             57.0, std::string("meander's kernels, ") + kKernelsWhere + ", priced with the Cortex-M4 table",
             {{"tanh", 57.0}, {"sigmoid", 48.0}, {"softplus", 55.0}, {"silu", 56.0}, {"gelu", 55.0}, {"elu", 31.0},
              {"softmax", 47.0}},
-            50.0, kMeasuredWhere};
+            50.0, kMeasuredWhere,
+            10.2, std::string(kIntWhere) + ", priced with the Cortex-M4 table"};
     return f;
 }
 
@@ -152,6 +166,7 @@ bool exp_based(Activation a) {
 struct Counts {
     long params = 0;
     long macs = 0;          // one pass (for a field: one evaluation)
+    long int_macs = 0;      // of those, in layers whose weights are integers
     long activations = 0;   // exp-based activation evaluations in one pass
     std::map<std::string, long> by_kind;  // the same by activation name
 };
@@ -162,6 +177,7 @@ void count(const std::vector<Block>& blocks, Counts& c) {
         case Block::Kind::dense:
             c.params += dense_params(b.dense);
             c.macs += dense_macs(b.dense);
+            if (b.dense.storage != WeightStorage::real) c.int_macs += dense_macs(b.dense);
             if (exp_based(b.dense.act)) {
                 c.activations += b.dense.out;
                 c.by_kind[std::string(activation_name(b.dense.act))] += b.dense.out;
@@ -349,6 +365,7 @@ std::optional<CostReport> measure_cost(const Model& model, const CostOptions& op
             bc.weight_bytes += weight_table_bytes(d, d.storage, opts.precision) + (d.has_bias ? d.out * rep.real_bytes : 0);
         });
         bc.macs = c.macs;
+        bc.int_macs = c.int_macs;
         bc.activations = c.activations;
         switch (b.kind) {
         case Block::Kind::dense: bc.kind = "dense"; break;
@@ -362,6 +379,8 @@ std::optional<CostReport> measure_cost(const Model& model, const CostOptions& op
             bc.macs_per_field_eval = field_macs(cb);
             bc.field_evals = worst_field_evals(cb.solver);
             bc.macs = bc.macs_per_field_eval * bc.field_evals;
+            bc.int_macs_per_field_eval = c.int_macs;
+            bc.int_macs = c.int_macs * bc.field_evals;
             bc.activations = c.activations * bc.field_evals;
             if (!opts.inputs.empty()) bc.measured = spread(measured.per_block[i], measured.failed);
             rep.any_adaptive = rep.any_adaptive || bc.adaptive;
@@ -388,6 +407,7 @@ std::optional<CostReport> measure_cost(const Model& model, const CostOptions& op
         rep.parameters += bc.parameters;
         rep.weight_bytes += bc.weight_bytes;
         rep.macs += bc.macs;
+        rep.int_macs += bc.int_macs;
         rep.activations += bc.activations;
         if (b.kind == Block::Kind::continuous) {
             rep.macs_per_field_eval += bc.macs_per_field_eval;
@@ -462,6 +482,8 @@ std::optional<CostReport> measure_cost(const Model& model, const CostOptions& op
         cc.core = c;
         const bool chosen_core = c == rep.core;
         cc.cycles_per_mac = chosen_core ? rep.cycles_per_mac : f.cycles_per_mac;
+        // --cycles-per-mac is the float layers' figure; integer layers keep the core's.
+        cc.cycles_per_int_mac = f.cycles_per_int_mac > 0 ? f.cycles_per_int_mac : cc.cycles_per_mac;
         // The figures are for float32; double precision has none unless the
         // user gives one for the chosen core (then MACs only).
         cc.estimated = opts.precision == Precision::float32 || (chosen_core && rep.cycles_per_mac_overridden);
@@ -481,7 +503,9 @@ std::optional<CostReport> measure_cost(const Model& model, const CostOptions& op
                 const BlockCost& b = rep.blocks[i];
                 const bool cont = b.kind == "continuous";
                 const double n = cont ? evals(i) : 1.0;
-                total += (cont ? static_cast<double>(b.macs_per_field_eval) * n : static_cast<double>(b.macs)) * cc.cycles_per_mac;
+                const double macs = cont ? static_cast<double>(b.macs_per_field_eval) * n : static_cast<double>(b.macs);
+                const double int_macs = cont ? static_cast<double>(b.int_macs_per_field_eval) * n : static_cast<double>(b.int_macs);
+                total += (macs - int_macs) * cc.cycles_per_mac + int_macs * cc.cycles_per_int_mac;
                 for (const auto& [kind, per_pass] : kinds[i]) {
                     acts += static_cast<double>(per_pass) * n;
                     acts_cycles += static_cast<double>(per_pass) * n * act_cost(kind);

@@ -41,6 +41,10 @@ struct CoreFigures {
     std::map<std::string, double> activation_cycles;
     double cycles_per_state_eval = 0.0;     // solver and checks, per state element per field evaluation
     std::string state_eval_source;
+    // A MAC of a layer whose weights are stored as int8 or int16 (each weight
+    // loaded, converted and scaled before its multiply); 0: no figure.
+    double cycles_per_int_mac = 0.0;
+    std::string int_mac_source;
 };
 const CoreFigures& core_figures(CoreClass c);
 
@@ -88,6 +92,8 @@ struct BlockCost {
     long field_evals = 0;                   // continuous: exact (fixed step) or worst case (adaptive); else 0
     std::optional<EvalSpread> measured;     // continuous, when inputs were given
     long macs = 0;                          // per inference, with `field_evals` evaluations
+    long int_macs_per_field_eval = 0;       // continuous only: the part of macs_per_field_eval in integer layers
+    long int_macs = 0;                      // the part of `macs` in integer layers
     long activations = 0;                   // exp-based activation evaluations per inference (worst case)
 };
 
@@ -101,6 +107,7 @@ struct FunctionSize {
 struct CoreCycles {
     CoreClass core = CoreClass::cortex_m4f;
     double cycles_per_mac = 0.0;
+    double cycles_per_int_mac = 0.0;        // integer-weight layers' MACs
     double cycles_per_activation = 0.0;     // over this model's activations (the per-kind figures weighted by count)
     double cycles_per_state_eval = 0.0;
     bool estimated = false;                 // false: no figure for this precision (no estimate)
@@ -193,6 +200,7 @@ struct CostReport {
     bool any_adaptive = false;
     std::optional<EvalSpread> measured;     // total per inference, when inputs were given
     long macs = 0;                          // per inference, worst case
+    long int_macs = 0;                      // of those, in integer-weight layers
     long activations = 0;                   // per inference, worst case
 
     double cycles_per_mac = 0.0;            // the figure used for `core`

@@ -206,23 +206,31 @@ std::string render_cost_text(const CostReport& r) {
         t += table(f, 2);
     }
 
-    t += fmt::format("\nestimated cycles per inference = MACs x cycles/MAC + activations x their kernel's cycles\n"
+    const bool ints = r.int_macs > 0;
+    t += fmt::format("\nestimated cycles per inference = MACs x cycles/MAC{} + activations x their kernel's cycles\n"
                      "  + field evaluations x state width x cycles/state (solver, checks, copies)\n"
-                     "({} activation evaluations, worst case; cycles/activation: this model's mean)\n",
-                     r.activations);
+                     "({} activation evaluations, worst case; cycles/activation: this model's mean{})\n",
+                     ints ? " (integer-weight layers: x cycles/int MAC)" : "", r.activations,
+                     ints ? fmt::format("; {} of the {} MACs in integer-weight layers", r.int_macs, r.macs) : "");
     std::vector<std::vector<std::string>> c;
-    c.push_back({"core", "cycles/MAC", "cycles/activation", "cycles/state", "worst", r.measured ? "median" : ""});
+    c.push_back({"core", "cycles/MAC"});
+    if (ints) c.back().push_back("cycles/int MAC");
+    for (const char* h : {"cycles/activation", "cycles/state", "worst"}) c.back().push_back(h);
+    c.back().push_back(r.measured ? "median" : "");
     for (const CoreCycles& cc : r.cycles) {
         if (!cc.estimated) {
-            c.push_back({std::string(core_name(cc.core)), "-", "-", "-", "no figure", ""});
+            c.push_back({std::string(core_name(cc.core)), "-"});
+            if (ints) c.back().push_back("-");
+            for (const char* v : {"-", "-", "no figure", ""}) c.back().push_back(v);
             continue;
         }
         // No sourced figure: say so instead of a 0 that reads as "free".
-        c.push_back({std::string(core_name(cc.core)), format_double(cc.cycles_per_mac),
-                     cc.cycles_per_activation > 0 ? fmt::format("{:.1f}", cc.cycles_per_activation) : "not counted",
-                     cc.cycles_per_state_eval > 0 ? format_double(cc.cycles_per_state_eval) : "not counted",
-                     cycles_text(cc.worst),
-                     cc.median ? cycles_text(*cc.median) : ""});
+        c.push_back({std::string(core_name(cc.core)), format_double(cc.cycles_per_mac)});
+        if (ints) c.back().push_back(format_double(cc.cycles_per_int_mac));
+        c.back().push_back(cc.cycles_per_activation > 0 ? fmt::format("{:.1f}", cc.cycles_per_activation) : "not counted");
+        c.back().push_back(cc.cycles_per_state_eval > 0 ? format_double(cc.cycles_per_state_eval) : "not counted");
+        c.back().push_back(cycles_text(cc.worst));
+        c.back().push_back(cc.median ? cycles_text(*cc.median) : "");
     }
     t += table(c, 1);
     t += "figures:\n";
@@ -231,6 +239,9 @@ std::string render_cost_text(const CostReport& r) {
         const CoreFigures& f = core_figures(cc.core);
         const bool user = cc.core == r.core && r.cycles_per_mac_overridden;
         t += fmt::format("  {}: per MAC: {}\n", core_name(cc.core), user ? "given by the user" : f.mac_source);
+        if (ints)
+            t += fmt::format("  {:{}}  per integer-weight MAC: {}\n", "", core_name(cc.core).size(),
+                             f.cycles_per_int_mac > 0 ? f.int_mac_source : "no figure of its own: the float figure");
         if (r.precision == Precision::float32) {
             std::vector<std::string> kinds;
             for (const auto& [k, v] : f.activation_cycles) kinds.push_back(fmt::format("{} {}", k, format_double(v)));
@@ -264,7 +275,7 @@ std::string render_cost_json(const CostReport& r) {
     for (const BlockCost& b : r.blocks) {
         json o{{"name", b.name}, {"kind", b.kind}, {"parameters", b.parameters}, {"weight_bytes", b.weight_bytes},
                {"code_bytes", opt_num(b.code_bytes)}, {"workspace_bytes", b.workspace_bytes}, {"macs", b.macs},
-               {"activations", b.activations}};
+               {"int_macs", b.int_macs}, {"activations", b.activations}};
         if (b.kind == "continuous") {
             o["solver"] = b.solver;
             o["adaptive"] = b.adaptive;
@@ -300,6 +311,7 @@ std::string render_cost_json(const CostReport& r) {
                {"field_evals", r.field_evals},
                {"field_evals_worst_case", r.any_adaptive},
                {"macs", r.macs},
+               {"int_macs", r.int_macs},
                {"activations", r.activations}};
     if (r.measured) total["field_evals_measured"] = spread_json(*r.measured);
     j["total"] = total;
@@ -320,6 +332,7 @@ std::string render_cost_json(const CostReport& r) {
         json o{{"core", core_name(cc.core)}, {"estimated", cc.estimated}};
         if (cc.estimated) {
             o["cycles_per_mac"] = cc.cycles_per_mac;
+            o["cycles_per_int_mac"] = cc.cycles_per_int_mac;
             o["cycles_per_activation"] = cc.cycles_per_activation;
             o["cycles_per_state_eval"] = cc.cycles_per_state_eval;
             json kinds = json::object();

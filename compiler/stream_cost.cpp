@@ -116,6 +116,7 @@ std::vector<std::vector<long>> evals_per_part(const Model& model, const std::vec
 // tests/target/cost_estimate.sh compares the estimate with the measurement (within 20%).
 struct StreamFigures {
     double cycles_per_mac = 0.0;
+    double cycles_per_int_mac = 0.0;  // a layer with integer weights (its per-output part as a float layer's)
     double cycles_per_output = 0.0;
     std::map<std::string, double> activation_cycles;  // overrides of the plain figures
     double cycles_per_state_eval = 0.0;
@@ -129,6 +130,7 @@ StreamFigures stream_figures(CoreClass core) {
     const CoreFigures& plain = core_figures(core);
     StreamFigures f;
     f.cycles_per_mac = plain.cycles_per_mac;
+    f.cycles_per_int_mac = plain.cycles_per_int_mac > 0 ? plain.cycles_per_int_mac : plain.cycles_per_mac;
     f.activation_cycles = plain.activation_cycles;
     f.cycles_per_state_eval = plain.cycles_per_state_eval;
     f.cycles_per_adaptive_state_eval = plain.cycles_per_state_eval;
@@ -138,6 +140,7 @@ StreamFigures stream_figures(CoreClass core) {
         break;
     case CoreClass::cortex_m3:
         f.cycles_per_mac = 108.0;
+        f.cycles_per_int_mac = 193.0;
         f.cycles_per_output = 91.0;
         f.activation_cycles["tanh"] = 1188.0;
         f.cycles_per_state_eval = 200.0;
@@ -149,6 +152,7 @@ StreamFigures stream_figures(CoreClass core) {
     case CoreClass::cortex_m4f:
     case CoreClass::cortex_m7:  // priced with the Cortex-M4 table: the same figures
         f.cycles_per_mac = 4.62;
+        f.cycles_per_int_mac = 9.9;
         f.cycles_per_output = 7.3;
         f.activation_cycles["tanh"] = 50.0;
         f.cycles_per_state_eval = 30.0;
@@ -188,7 +192,9 @@ struct Estimator {
         for (const Block& b : blocks) {
             switch (b.kind) {
             case Block::Kind::dense:
-                c += static_cast<double>(dense_macs(b.dense)) * f.cycles_per_mac + b.dense.out * f.cycles_per_output;
+                c += static_cast<double>(dense_macs(b.dense)) *
+                         (b.dense.storage == WeightStorage::real ? f.cycles_per_mac : f.cycles_per_int_mac) +
+                     b.dense.out * f.cycles_per_output;
                 if (exp_based(b.dense.act)) c += b.dense.out * activation(std::string(activation_name(b.dense.act)));
                 break;
             case Block::Kind::residual: c += pass(b.residual.body, evals); break;
@@ -273,6 +279,7 @@ void estimate_cycles(const Model& model, const std::vector<SequenceRow>& seq, Pr
             Estimator e{model, stream_figures(k), core_figures(k).cycles_per_activation, {}};
             if (k == c.core && cycles_per_mac >= 0) e.f.cycles_per_mac = cycles_per_mac;
             cc.cycles_per_mac = e.f.cycles_per_mac;
+            cc.cycles_per_int_mac = e.f.cycles_per_int_mac;
             cc.cycles_per_output = e.f.cycles_per_output;
             cc.cycles_per_state_eval = e.f.cycles_per_state_eval;
             cc.cycles_per_adaptive_state_eval = e.f.cycles_per_adaptive_state_eval;
@@ -372,6 +379,7 @@ std::optional<StreamCost> measure_stream_cost(const Model& model, const std::vec
                                   : fmt::format("continuous '{}', {}", st.evolve.name, format_solver(st.evolve.solver));
     for_each_model_dense(model, [&](const Dense& d) {
         c.parameters += dense_macs(d) + (d.has_bias ? d.out : 0);
+        c.integer_layers = c.integer_layers || d.storage != WeightStorage::real;
         c.weight_bytes += weight_table_bytes(d, d.storage, opts.precision) +
                           (d.has_bias ? d.out * storage_bytes(WeightStorage::real, opts.precision) : 0);
     });
@@ -445,8 +453,9 @@ std::string render_stream_cost_text(const StreamCost& c) {
     } else {
         o += "  flash and stack: not measured (no cross compiler on PATH)\n";
     }
-    o += "estimated cycles per observation (float32 figures: MACs, activation kernels, Runge-Kutta work per state\n"
-         "element and evaluation, the GRU cell per state element, observe's own work):\n";
+    o += fmt::format("estimated cycles per observation (float32 figures: MACs{}, activation kernels, Runge-Kutta work per\n"
+                     "state element and evaluation, the GRU cell per state element, observe's own work):\n",
+                     c.integer_layers ? " (integer-weight layers' at their own figure)" : "");
     for (const StreamCoreCycles& e : c.cycles) {
         if (!e.estimated) {
             o += fmt::format("  {}: no figures in float64\n", core_name(e.core));
@@ -490,6 +499,7 @@ std::string render_stream_cost_json(const StreamCost& c) {
             if (e.median) o["median"] = *e.median;
             if (e.at_largest_gap) o["at_largest_gap"] = *e.at_largest_gap;
             o["cycles_per_mac"] = e.cycles_per_mac;
+            o["cycles_per_int_mac"] = e.cycles_per_int_mac;
             o["cycles_per_output"] = e.cycles_per_output;
             o["cycles_per_state_eval"] = e.cycles_per_state_eval;
             o["cycles_per_adaptive_state_eval"] = e.cycles_per_adaptive_state_eval;

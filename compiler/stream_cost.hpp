@@ -33,6 +33,7 @@ struct StreamCoreCycles {
     CoreClass core = CoreClass::cortex_m4f;
     bool estimated = false;
     double cycles_per_mac = 0.0;
+    double cycles_per_int_mac = 0.0;               // layers whose weights are int8 or int16
     double cycles_per_output = 0.0;
     double cycles_per_state_eval = 0.0;            // fixed-step methods
     double cycles_per_adaptive_state_eval = 0.0;   // embedded pairs
@@ -53,6 +54,7 @@ struct StreamCost {
     std::string evolution;          // "continuous 'drift', rk4, steps-per-unit 2" or "blend 'cell' (closed form)"
     long parameters = 0;
     long weight_bytes = 0;          // weight tables as emitted (integers with their scales) and biases
+    bool integer_layers = false;    // some layer's weights are stored as int8 or int16
     long macs_per_field_eval = 0;   // the evolution's field
     long worst_field_evals = 0;     // per observation, at the largest gap (evolution and readout)
     long double worst_macs = 0;     // per observation, at the largest gap

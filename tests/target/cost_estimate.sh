@@ -2,8 +2,10 @@
 # The static cycle estimate of `meander cost` against the cycles it measures on
 # the emulated Cortex-M4F, M3 and M7, for one sample:
 #
-#   cost_estimate.sh SAMPLE.mnd WORK_DIR
+#   cost_estimate.sh SAMPLE.mnd WORK_DIR [COST_ARGS...]
 #
+# COST_ARGS go to `meander cost` (`--weights-as int16`: the integer layers'
+# figure).
 # Runs `meander cost --json` over the first 8 rows of the sample's inputs.csv
 # (the Cortex-M3 measures 8 rows at most, so every core and the estimate's
 # median see the same rows) and fails when, on any core, the estimate's median
@@ -19,9 +21,10 @@
 # Environment: MEANDER (the meander binary, default: meander on PATH).
 # Exit status: 0 pass, 1 fail, 77 the cross tools or qemu are missing.
 set -u -o pipefail
-[ $# -eq 2 ] || { echo "usage: cost_estimate.sh SAMPLE.mnd WORK_DIR" >&2; exit 2; }
+[ $# -ge 2 ] || { echo "usage: cost_estimate.sh SAMPLE.mnd WORK_DIR [COST_ARGS...]" >&2; exit 2; }
 mnd=$1
 work=$2
+shift 2
 meander=${MEANDER:-meander}
 inputs=$(dirname "$mnd")/inputs.csv
 for tool in arm-none-eabi-g++ arm-none-eabi-nm arm-none-eabi-addr2line qemu-system-arm; do
@@ -31,8 +34,8 @@ case "$work" in ""|/) echo "cost_estimate.sh: refusing WORK_DIR '$work'" >&2; ex
 rm -rf "$work" && mkdir -p "$work" || exit 1
 # The header line and the first 8 data rows.
 head -n 9 "$inputs" > "$work/rows.csv"
-echo "+ $meander cost $mnd --input $work/rows.csv --json"
-"$meander" cost "$mnd" --input "$work/rows.csv" --json > "$work/cost.json" || { echo "FAIL: meander cost failed"; exit 1; }
+echo "+ $meander cost $mnd --input $work/rows.csv --json $*"
+"$meander" cost "$mnd" --input "$work/rows.csv" --json "$@" > "$work/cost.json" || { echo "FAIL: meander cost failed"; exit 1; }
 /usr/bin/python3 - "$work/cost.json" <<'PY'
 import json, sys
 j = json.load(open(sys.argv[1]))

@@ -27,10 +27,15 @@
 #   cost            `meander cost --json` states the code bytes arm-none-eabi-size
 #                   and the entry frame the .su file give for the emitted object,
 #                   and the header's workspace_bytes
-#   cortex-m4f-int8 | cortex-m3-int8
-#                   as cortex-m4f / cortex-m3 with every layer's weights as int8
-#                   (--weights-as int8), compared with `meander eval --weights-as
-#                   int8` (the quantised model's reference) instead of expected.csv
+#   host-gcc-int8 | cortex-m4f-int8 | cortex-m3-int8 | cortex-m7-int8, and
+#   the same with -int16
+#                   as host-gcc / cortex-m4f / cortex-m3 / cortex-m7 with every
+#                   layer's weights as int8 or int16 (--weights-as), compared with
+#                   `meander eval --weights-as` (the quantised model's reference)
+#                   instead of expected.csv
+#   bits-int8 | bits-int16
+#                   as bits, over those four runs: the Cortex-M4F and M7 take the
+#                   integer steps written in assembly, the others plain C++
 #   flash-int8      the emitted object for the Cortex-M4F (-Os) with float and with
 #                   int8 weights: .text and .rodata from arm-none-eabi-size; fails
 #                   unless the int8 object is smaller
@@ -93,12 +98,16 @@ tol=${MEANDER_TARGET_TOL:-$tol_default}
 
 # Integer weight modes: the storage, and the plain mode they run as.
 storage_args=()
+run_mode=$mode
 case "$mode" in
-    cortex-m4f-int8|cortex-m3-int8) storage_args=(--weights-as int8) ;;
+    host-gcc-int8|cortex-m4f-int8|cortex-m3-int8|cortex-m7-int8|bits-int8)
+        storage_args=(--weights-as int8); run_mode=${mode%-int8} ;;
+    host-gcc-int16|cortex-m4f-int16|cortex-m3-int16|cortex-m7-int16|bits-int16)
+        storage_args=(--weights-as int16); run_mode=${mode%-int16} ;;
 esac
 
-case "$mode" in
-    cortex-m4f|cortex-m3|cortex-m7|image|stack|warnings-arm|contracting-m4f|cortex-m4f-int8|cortex-m3-int8) need arm-none-eabi-g++ ;;
+case "$run_mode" in
+    cortex-m4f|cortex-m3|cortex-m7|image|stack|warnings-arm|contracting-m4f) need arm-none-eabi-g++ ;;
     contracting-host) need g++ objdump ;;
     flash-int8) need arm-none-eabi-g++ arm-none-eabi-size ;;
     cost) need arm-none-eabi-g++ arm-none-eabi-size ;;
@@ -109,15 +118,19 @@ case "$mode" in
     warnings-clang) need clang++ ;;
     *) echo "run_target.sh: unknown mode '$mode'" >&2; exit 2 ;;
 esac
-case "$mode" in
-    cortex-m4f|cortex-m3|cortex-m7|contracting-m4f|cortex-m4f-int8|cortex-m3-int8) need qemu-system-arm ;;
+case "$run_mode" in
+    cortex-m4f|cortex-m3|cortex-m7|contracting-m4f) need qemu-system-arm ;;
     image) need arm-none-eabi-nm ;;
 esac
 command -v timeout > /dev/null 2>&1 || { echo "SKIP: timeout (coreutils) is not installed"; exit 77; }
 
 # The float32 run modes whose bits must agree.
 bit_modes=(host-gcc host-clang arm-linux cortex-m4f cortex-m3 cortex-m7)
-if [ "$mode" = bits ]; then
+if [ "$run_mode" != "$mode" ]; then
+    bit_modes=()
+    for m in host-gcc cortex-m4f cortex-m3 cortex-m7; do bit_modes+=("$m${mode#"$run_mode"}"); done
+fi
+if [ "$run_mode" = bits ]; then
     runs=$(dirname "$work")
     ref=""
     status=0
@@ -154,7 +167,7 @@ expected=$sample_dir/expected.csv
 [ -f "$inputs" ] || fail "$inputs is missing"
 if [ ${#storage_args[@]} -gt 0 ]; then
     # The quantised model's own reference: eval with the same integers and scales.
-    expected=$work/expected-int8.csv
+    expected=$work/expected-integers.csv
     run "$meander" eval "$mnd" --input "$inputs" "${storage_args[@]}" --output "$expected" || fail "meander eval failed"
 fi
 
@@ -306,10 +319,10 @@ board() {
     if [ "$contract" = -ffp-contract=off ]; then emulate "${qemu[@]}"; else expect_caught "${qemu[@]}"; fi
 }
 
-case "$mode" in
+case "$run_mode" in
 host-gcc|host-clang)
     write_inputs
-    if [ "$mode" = host-gcc ]; then cxx=g++; else cxx=clang++; fi
+    if [ "$run_mode" = host-gcc ]; then cxx=g++; else cxx=clang++; fi
     run "$cxx" -std=c++17 -O2 -ffp-contract=off -fno-exceptions -fno-rtti "${driver_defs[@]}" \
         "$here/$driver" "${sources[@]}" -o "$work/app" || fail "host build failed"
     emulate "$work/app"
@@ -328,8 +341,8 @@ contracting-m4f)
     contract=-ffp-contract=fast
     board mps2-an386 "${m4f_flags[@]}"
     ;;
-cortex-m4f|cortex-m4f-int8) board mps2-an386 "${m4f_flags[@]}" ;;
-cortex-m3|cortex-m3-int8)  board mps2-an385 "${m3_flags[@]}" ;;
+cortex-m4f) board mps2-an386 "${m4f_flags[@]}" ;;
+cortex-m3)  board mps2-an385 "${m3_flags[@]}" ;;
 cortex-m7)  board mps2-an500 "${m7_flags[@]}" ;;
 arm-linux|arm-linux-f64)
     write_inputs

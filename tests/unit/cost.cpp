@@ -2,6 +2,7 @@
 // SciPy's own evaluation count, the emitted header, and the cross tools.
 #include "compiler/cost.hpp"
 
+#include <fmt/format.h>
 #include <gtest/gtest.h>
 
 #include <cmath>
@@ -18,6 +19,7 @@
 
 #include "compiler/emit.hpp"
 #include "compiler/lower.hpp"
+#include "compiler/quantise.hpp"
 #include "test_support.hpp"
 
 namespace meander {
@@ -198,6 +200,51 @@ TEST(Cost, CyclesFollowTheStatedFigures) {
     const auto dbl = measure_cost(mixed_model(), d, diags);
     ASSERT_TRUE(dbl);
     for (const CoreCycles& c : dbl->cycles) EXPECT_FALSE(c.estimated);
+}
+
+// Integer-weight layers' MACs are counted apart and priced at the core's integer
+// figure. The mixed model with every layer asked for as int16: lift (15 weights)
+// and head (10) stay float, below the 16-weight threshold (DEVELOPERS.md,
+// "Integer weights"); the rest are integers. By hand, per inference: flow's rk4,
+// 6 steps, takes 24 evaluations of f1 ((5 + t) x 8 = 48) and f2 (8 x 5 = 40),
+// polish r1 and r2 25 each, settle's g1 and g2 30 each per evaluation.
+TEST(Cost, IntegerLayersArePricedAtTheirOwnFigure) {
+    Model m = mixed_model();
+    quantise_model(m, Precision::float32, WeightStorage::int16);
+    Diagnostics diags;
+    const auto rep = measure_cost(m, no_tools(), diags);
+    ASSERT_TRUE(rep) << diags.render();
+    ASSERT_EQ(rep->blocks.size(), 5u);
+    EXPECT_EQ(rep->blocks[0].int_macs, 0);
+    EXPECT_EQ(rep->blocks[1].int_macs_per_field_eval, 48 + 40);
+    EXPECT_EQ(rep->blocks[1].int_macs, 24 * (48 + 40));
+    EXPECT_EQ(rep->blocks[2].int_macs, 50);
+    EXPECT_EQ(rep->blocks[3].int_macs, rep->blocks[3].field_evals * 60);
+    EXPECT_EQ(rep->blocks[4].int_macs, 0);
+    EXPECT_EQ(rep->int_macs, 24 * 88 + 50 + rep->blocks[3].field_evals * 60);
+    const CoreFigures& m4 = core_figures(CoreClass::cortex_m4f);
+    ASSERT_GT(m4.cycles_per_int_mac, m4.cycles_per_mac);
+    for (const CoreCycles& c : rep->cycles)
+        if (c.core == CoreClass::cortex_m4f)
+            EXPECT_DOUBLE_EQ(c.worst, static_cast<double>(rep->macs - rep->int_macs) * m4.cycles_per_mac +
+                                          static_cast<double>(rep->int_macs) * m4.cycles_per_int_mac +
+                                          (5.0 + 8.0 * 24.0) * m4.activation_cycles.at("tanh") +
+                                          6.0 * 122.0 * m4.activation_cycles.at("softplus") +
+                                          static_cast<double>(rep->field_evals) * 5.0 * m4.cycles_per_state_eval);
+    const std::string text = render_cost_text(*rep);
+    EXPECT_NE(text.find("cycles/int MAC"), std::string::npos) << text;
+    EXPECT_NE(text.find(fmt::format("{} of the {} MACs in integer-weight layers", rep->int_macs, rep->macs)),
+              std::string::npos)
+        << text;
+    const nlohmann::json j = nlohmann::json::parse(render_cost_json(*rep));
+    EXPECT_EQ(j["total"]["int_macs"], rep->int_macs);
+    EXPECT_EQ(j["cycles"][0]["cycles_per_int_mac"], rep->cycles[0].cycles_per_int_mac);
+
+    // A float model prints no integer column.
+    const auto plain = measure_cost(mixed_model(), no_tools(), diags);
+    ASSERT_TRUE(plain);
+    EXPECT_EQ(plain->int_macs, 0);
+    EXPECT_EQ(render_cost_text(*plain).find("int MAC"), std::string::npos);
 }
 
 TEST(Cost, CoreNamesRoundTrip) {
