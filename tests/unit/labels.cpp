@@ -127,6 +127,8 @@ TEST(EvalLabels, HeaderIsCheckedAgainstTheOutputNames) {
         EXPECT_EQ(r.status, 1) << r.output;
         for (const std::string& d : diagnostics)
             EXPECT_NE(r.output.find((dir / "labels.csv").string() + ":1:" + d), std::string::npos) << r.output;
+        // The rows are fine: no note of the shape they must have.
+        EXPECT_EQ(r.output.find("note: expected"), std::string::npos) << r.output;
     };
     refused("wall_30s_c,water_30s_c", {"1: error: column 1 is named 'wall_30s_c', but output 'ahead' takes 'water_30s_c' "
                                        "there: 'wall_30s_c' is its column 2\nwall_30s_c,water_30s_c\n^\n"});
