@@ -189,6 +189,65 @@ void count(const std::vector<Block>& blocks, Counts& c) {
     }
 }
 
+// A top-level block's counts for the cycle estimate, for one pass (a continuous
+// block: one field evaluation).
+struct PassCounts {
+    bool continuous = false;
+    long macs = 0;
+    long int_macs = 0;                    // of those, in integer-weight layers
+    std::map<std::string, long> kinds;    // exp-based activation evaluations by name
+    long width = 0;                       // the block's output (a continuous block: its state) width
+};
+
+std::vector<PassCounts> pass_counts(const Model& model) {
+    std::vector<PassCounts> out;
+    for (const Block& b : model.blocks) {
+        Counts c;
+        count({b}, c);
+        PassCounts p;
+        p.continuous = b.kind == Block::Kind::continuous;
+        p.macs = c.macs;
+        p.int_macs = c.int_macs;
+        p.kinds = c.by_kind;
+        p.width = block_out_width(b);
+        out.push_back(std::move(p));
+    }
+    return out;
+}
+
+// One core's prices for the estimate.
+struct Prices {
+    double mac = 0.0;
+    double int_mac = 0.0;
+    double state_eval = 0.0;
+    const CoreFigures* figures = nullptr;  // activations by kind (none: not counted)
+    double activation(const std::string& kind) const {
+        if (figures == nullptr) return 0.0;
+        const auto k = figures->activation_cycles.find(kind);
+        return k != figures->activation_cycles.end() ? k->second : figures->cycles_per_activation;
+    }
+};
+
+// Cycles of one inference with `evals(i)` field evaluations in continuous block i;
+// `acts` and `acts_cycles` get the activation evaluations and their cycles.
+double priced(const std::vector<PassCounts>& blocks, const Prices& p, const std::function<double(std::size_t)>& evals,
+              double& acts_cycles, double& acts) {
+    double total = 0.0;
+    acts_cycles = 0.0;
+    acts = 0.0;
+    for (std::size_t i = 0; i < blocks.size(); ++i) {
+        const PassCounts& b = blocks[i];
+        const double n = b.continuous ? evals(i) : 1.0;
+        total += n * (static_cast<double>(b.macs - b.int_macs) * p.mac + static_cast<double>(b.int_macs) * p.int_mac);
+        for (const auto& [kind, per_pass] : b.kinds) {
+            acts += static_cast<double>(per_pass) * n;
+            acts_cycles += static_cast<double>(per_pass) * n * p.activation(kind);
+        }
+        if (b.continuous) total += n * static_cast<double>(b.width) * p.state_eval;
+    }
+    return total + acts_cycles;
+}
+
 // Every layer and block name inside `blocks` (for attributing buffers and functions).
 void names_in(const std::vector<Block>& blocks, std::set<std::string>& out) {
     for (const Block& b : blocks) {
@@ -350,16 +409,13 @@ std::optional<CostReport> measure_cost(const Model& model, const CostOptions& op
 
     BlockNames block_names;
     // Per top-level block, for the estimate: activations of one pass by kind, and the state width.
-    std::vector<std::map<std::string, long>> kinds(model.blocks.size());
-    std::vector<long> widths(model.blocks.size(), 0);
+    const std::vector<PassCounts> passes = pass_counts(model);
     for (std::size_t i = 0; i < model.blocks.size(); ++i) {
         const Block& b = model.blocks[i];
         BlockCost bc;
         bc.name = block_name(b);
         Counts c;
         count({b}, c);
-        kinds[i] = c.by_kind;
-        widths[i] = block_out_width(b);
         bc.parameters = c.params;
         for_each_dense(std::vector<Block>{b}, [&](const Dense& d) {
             bc.weight_bytes += weight_table_bytes(d, d.storage, opts.precision) + (d.has_bias ? d.out * rep.real_bytes : 0);
@@ -489,30 +545,9 @@ std::optional<CostReport> measure_cost(const Model& model, const CostOptions& op
         cc.estimated = opts.precision == Precision::float32 || (chosen_core && rep.cycles_per_mac_overridden);
         const bool f32 = opts.precision == Precision::float32;
         cc.cycles_per_state_eval = f32 ? f.cycles_per_state_eval : 0.0;
-        auto act_cost = [&](const std::string& kind) {
-            if (!f32) return 0.0;
-            const auto k = f.activation_cycles.find(kind);
-            return k != f.activation_cycles.end() ? k->second : f.cycles_per_activation;
-        };
-        // Cycles of the whole model with `evals(i)` field evaluations in continuous block i.
+        const Prices prices{cc.cycles_per_mac, cc.cycles_per_int_mac, cc.cycles_per_state_eval, f32 ? &f : nullptr};
         auto cycles_with = [&](const std::function<double(std::size_t)>& evals, double& acts_cycles, double& acts) {
-            double total = 0.0;
-            acts_cycles = 0.0;
-            acts = 0.0;
-            for (std::size_t i = 0; i < rep.blocks.size(); ++i) {
-                const BlockCost& b = rep.blocks[i];
-                const bool cont = b.kind == "continuous";
-                const double n = cont ? evals(i) : 1.0;
-                const double macs = cont ? static_cast<double>(b.macs_per_field_eval) * n : static_cast<double>(b.macs);
-                const double int_macs = cont ? static_cast<double>(b.int_macs_per_field_eval) * n : static_cast<double>(b.int_macs);
-                total += (macs - int_macs) * cc.cycles_per_mac + int_macs * cc.cycles_per_int_mac;
-                for (const auto& [kind, per_pass] : kinds[i]) {
-                    acts += static_cast<double>(per_pass) * n;
-                    acts_cycles += static_cast<double>(per_pass) * n * act_cost(kind);
-                }
-                if (cont) total += n * static_cast<double>(widths[i]) * cc.cycles_per_state_eval;
-            }
-            return total + acts_cycles;
+            return priced(passes, prices, evals, acts_cycles, acts);
         };
         if (cc.estimated) {
             double ac = 0.0, an = 0.0;
@@ -530,6 +565,16 @@ std::optional<CostReport> measure_cost(const Model& model, const CostOptions& op
         rep.cycles.push_back(cc);
     }
     return rep;
+}
+
+std::optional<double> estimate_cycles(const Model& model, CoreClass core, Precision p,
+                                      const std::function<double(std::size_t)>& evals) {
+    if (p != Precision::float32) return std::nullopt;
+    const CoreFigures& f = core_figures(core);
+    const Prices prices{f.cycles_per_mac, f.cycles_per_int_mac > 0 ? f.cycles_per_int_mac : f.cycles_per_mac,
+                        f.cycles_per_state_eval, &f};
+    double ac = 0.0, an = 0.0;
+    return priced(pass_counts(model), prices, evals, ac, an);
 }
 
 }  // namespace meander

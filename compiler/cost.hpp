@@ -9,6 +9,7 @@
 // estimate from per-operation figures whose sources the report states.
 #pragma once
 
+#include <functional>
 #include <map>
 #include <optional>
 #include <string>
@@ -216,6 +217,13 @@ struct CostReport {
 // `model` must have passed check_model and bind_weights (the emitter needs
 // the weights, the measured evaluations run the reference evaluator).
 std::optional<CostReport> measure_cost(const Model& model, const CostOptions& opts, Diagnostics& diags);
+
+// The static estimate of one inference's cycles on `core` with the core's own
+// figures (what measure_cost reports as `worst` or `median`), with `evals(i)`
+// field evaluations in the model's top-level block i (continuous blocks; the
+// others run once); nullopt in float64, which has no figures.
+std::optional<double> estimate_cycles(const Model& model, CoreClass core, Precision p,
+                                      const std::function<double(std::size_t)>& evals);
 
 std::string render_cost_text(const CostReport& report);
 std::string render_cost_json(const CostReport& report);
