@@ -47,7 +47,7 @@ std::optional<LoadedWithRows> load_with_rows(const std::string& path, Precision 
 int cmd_tune(const std::string& model_path, const std::string& input, const std::string& precision, double target,
              const std::vector<std::string>& methods, int sweep, bool json, const std::string& labels_path,
              std::optional<double> metric_slack, const std::string& plot_path, bool whole_sweep, int threads,
-             StorageOverride storage, bool storage_sweep);
+             StorageOverride storage, bool storage_sweep, const std::string& core);
 
 // command_refit.cpp. Ctrl-C during refit's training sets g_interrupted (on_interrupt).
 extern std::atomic<bool> g_interrupted;

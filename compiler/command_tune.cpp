@@ -4,8 +4,10 @@
 #include <unistd.h>
 
 #include <cstdio>
+#include <map>
 
 #include "compiler/command_support.hpp"
+#include "compiler/cost.hpp"
 #include "compiler/deviation.hpp"
 #include "compiler/labels.hpp"
 #include "compiler/plot.hpp"
@@ -35,6 +37,7 @@ struct StorageTune {
     TuneReport report;
     bool meets = false;             // every block has a chosen candidate
     long field_evals = 0;           // the chosen candidates' worst case, summed over blocks
+    std::optional<double> cycles;   // the estimate on the report's core with the chosen solvers (float32)
 };
 
 std::string render_storage_choice(const std::vector<StorageTune>& runs, bool json) {
@@ -50,9 +53,11 @@ std::string render_storage_choice(const std::vector<StorageTune>& runs, bool jso
         for (std::size_t i = 0; i < runs.size(); ++i) {
             std::string rep = render_tune_json(runs[i].report);
             while (!rep.empty() && rep.back() == '\n') rep.pop_back();
-            o += fmt::format("    {{\"storage\": \"{}\", \"weight_bytes\": {}, \"meets\": {}, \"field_evals\": {}, \"report\": {}}}{}\n",
+            o += fmt::format("    {{\"storage\": \"{}\", \"weight_bytes\": {}, \"meets\": {}, \"field_evals\": {}, "
+                             "\"worst_cycles\": {}, \"report\": {}}}{}\n",
                              weight_storage_name(runs[i].storage), runs[i].weight_bytes, runs[i].meets ? "true" : "false",
-                             runs[i].field_evals, rep, i + 1 < runs.size() ? "," : "");
+                             runs[i].field_evals, runs[i].cycles ? fmt::format("{:.0f}", *runs[i].cycles) : "null", rep,
+                             i + 1 < runs.size() ? "," : "");
         }
         o += fmt::format("  ],\n  \"chosen\": {}\n}}\n",
                          best ? fmt::format("\"{}\"", weight_storage_name(runs[*best].storage)) : std::string("null"));
@@ -62,11 +67,18 @@ std::string render_storage_choice(const std::vector<StorageTune>& runs, bool jso
     for (const StorageTune& r : runs)
         o += fmt::format("==== weights as {} ({} B of weights, scales and biases)\n{}\n", weight_storage_name(r.storage),
                          r.weight_bytes, render_tune_text(r.report));
-    o += "weight storage and solver (each storage against the reference of the model with real weights)\n";
-    o += fmt::format("  {:<8} {:>12} {:>12}  {}\n", "storage", "weight bytes", "field evals", "meets the target");
+    const std::string core = runs.empty() ? std::string() : runs[0].report.core;
+    const bool cycles = !runs.empty() && runs[0].report.precision == Precision::float32;
+    o += "weight storage and solver (each storage against the reference of the model with real weights";
+    o += cycles ? fmt::format("; cycles: the estimate of one inference on the {} at worst, with the solvers chosen)\n", core)
+                : std::string(")\n");
+    o += fmt::format("  {:<8} {:>12} {:>12}{}  {}\n", "storage", "weight bytes", "field evals",
+                     cycles ? fmt::format(" {:>12}", "cycles") : "", "meets the target");
     for (const StorageTune& r : runs)
-        o += fmt::format("  {:<8} {:>12} {:>12}  {}\n", weight_storage_name(r.storage), r.weight_bytes,
-                         r.meets ? std::to_string(r.field_evals) : "-", r.meets ? "yes" : "no");
+        o += fmt::format("  {:<8} {:>12} {:>12}{}  {}\n", weight_storage_name(r.storage), r.weight_bytes,
+                         r.meets ? std::to_string(r.field_evals) : "-",
+                         cycles ? fmt::format(" {:>12}", r.cycles ? fmt::format("{:.0f}", *r.cycles) : "-") : "",
+                         r.meets ? "yes" : "no");
     if (best) {
         o += fmt::format("recommended: weights-as {}", weight_storage_name(runs[*best].storage));
         for (const TuneBlock& b : runs[*best].report.blocks) o += fmt::format("; {}: {}", b.name, b.solver_line);
@@ -82,7 +94,7 @@ std::string render_storage_choice(const std::vector<StorageTune>& runs, bool jso
 int cmd_tune(const std::string& model_path, const std::string& input, const std::string& precision, double target,
              const std::vector<std::string>& methods, int sweep, bool json, const std::string& labels_path,
              std::optional<double> metric_slack, const std::string& plot_path, bool whole_sweep, int threads,
-             StorageOverride storage, bool storage_sweep) {
+             StorageOverride storage, bool storage_sweep, const std::string& core) {
     Diagnostics diags;
     Precision p = precision_of(precision);
     TuneOptions to;
@@ -93,6 +105,7 @@ int cmd_tune(const std::string& model_path, const std::string& input, const std:
     to.methods = methods;
     to.max_steps_sweep = sweep;
     to.precision = p;
+    to.core = core;
     {
         // A streaming model: its evolution's budget per observation, over a sequence file.
         // (Any other model is loaded again below, with its rows; these diagnostics are then dropped.)
@@ -153,9 +166,21 @@ int cmd_tune(const std::string& model_path, const std::string& input, const std:
             t.storage = st;
             t.weight_bytes = stored_weight_bytes(m->model, p);
             t.meets = true;
+            std::map<std::string, long> evals;  // the chosen candidates' worst case by block
             for (const TuneBlock& b : r->blocks) {
-                if (!b.chosen) t.meets = false;
-                else t.field_evals += b.candidates[*b.chosen].worst_field_evals;
+                if (!b.chosen) {
+                    t.meets = false;
+                } else {
+                    t.field_evals += b.candidates[*b.chosen].worst_field_evals;
+                    evals[b.name] = b.candidates[*b.chosen].worst_field_evals;
+                }
+            }
+            if (t.meets) {
+                const Model& mm = m->model;
+                t.cycles = estimate_cycles(mm, *core_from_name(core), p, [&](std::size_t i) {
+                    const auto e = evals.find(mm.blocks[i].continuous.name);
+                    return static_cast<double>(e != evals.end() ? e->second : worst_field_evals(mm.blocks[i].continuous.solver));
+                });
             }
             t.report = std::move(*r);
             runs.push_back(std::move(t));

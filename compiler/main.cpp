@@ -718,6 +718,8 @@ int main(int argc, char** argv) {
     tune->add_option("--threads", tune_threads, "threads (default: every core; the report does not depend on it)")
         ->check(CLI::NonNegativeNumber);
     tune->add_option("--precision", precision, "float32 (default) or float64")->check(CLI::IsMember(precisions));
+    tune->add_option("--core", core, "core class for each candidate's estimated cycles (default cortex-m4f)")
+        ->check(CLI::IsMember({"cortex-m0", "cortex-m3", "cortex-m4f", "cortex-m7"}));
     tune->add_flag("--json", json, "JSON for tools instead of text");
     add_weights_as(tune);
     bool storage_sweep = false;
@@ -824,7 +826,7 @@ int main(int argc, char** argv) {
         if (*tune)
             return cmd_tune(model, input, precision, target, methods, sweep, json, labels_path,
                             slack_opt->count() ? std::optional<double>(metric_slack) : std::nullopt, plot_path,
-                            whole_sweep, tune_threads, storage, storage_sweep);
+                            whole_sweep, tune_threads, storage, storage_sweep, core);
         if (*refit) return cmd_refit(model, input, refit_out, ra);
         if (*diff) return cmd_diff(model, other, weight_tol, json);
         if (*format) return cmd_format(model, in_place, check_only);

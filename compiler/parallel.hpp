@@ -11,7 +11,7 @@
 namespace meander {
 
 // Every core this process may use (at least 1).
-inline int all_cores() { return static_cast<int>(std::max(1u, std::thread::hardware_concurrency())); }
+inline int hardware_threads() { return static_cast<int>(std::max(1u, std::thread::hardware_concurrency())); }
 
 // Runs fn(i) for i in [0, n) on `threads` threads, i spread round-robin (rows
 // of similar cost sit next to each other, so each thread gets a fair share).

@@ -184,7 +184,7 @@ RefitFigures model_figures(const Model& model, const std::vector<Eigen::VectorXd
     f.worst_field_evals = model_worst_evals(model);
     std::vector<Eigen::VectorXd> outs(rows.size());
     std::vector<EvalResult> res(rows.size());
-    parallel_for(rows.size(), all_cores(),
+    parallel_for(rows.size(), hardware_threads(),
                  [&](std::size_t i) { res[i] = evaluate(model, rows[i]); });
     for (std::size_t r = 0; r < rows.size(); ++r) {
         if (res[r].status != EvalStatus::ok) {
@@ -220,7 +220,7 @@ std::optional<RefitReport> refit_model(const Model& model, const RefitOptions& o
     const Model reference = with_every_solver(model, tight_reference());
     std::vector<Eigen::VectorXd> refs(rows.size());
     std::vector<EvalStatus> ref_status(rows.size());
-    parallel_for(rows.size(), all_cores(), [&](std::size_t i) {
+    parallel_for(rows.size(), hardware_threads(), [&](std::size_t i) {
         const EvalResult r = evaluate(reference, rows[i]);
         ref_status[i] = r.status;
         refs[i] = r.output;
@@ -241,7 +241,7 @@ std::optional<RefitReport> refit_model(const Model& model, const RefitOptions& o
             check_rows.push_back(Eigen::Map<const Eigen::VectorXd>(r.data(), static_cast<Eigen::Index>(r.size())));
         check_refs.assign(check_rows.size(), Eigen::VectorXd());
         std::vector<EvalStatus> st(check_rows.size());
-        parallel_for(check_rows.size(), all_cores(),
+        parallel_for(check_rows.size(), hardware_threads(),
                      [&](std::size_t i) {
                          const EvalResult r = evaluate(reference, check_rows[i]);
                          st[i] = r.status;
@@ -264,7 +264,7 @@ std::optional<RefitReport> refit_model(const Model& model, const RefitOptions& o
     p.targets = &targets;
     p.classification = opts.classification;
     p.way = opts.way;
-    p.threads = opts.threads > 0 ? opts.threads : all_cores();
+    p.threads = opts.threads > 0 ? opts.threads : hardware_threads();
 
     // Split: a seeded Fisher-Yates shuffle (the same on every platform), the last part held out.
     std::mt19937_64 rng(opts.seed);

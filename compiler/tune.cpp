@@ -13,6 +13,7 @@
 #include "../runtime/integrate.hpp"
 #include "../runtime/standardise.hpp"
 #include "../runtime/tableau.hpp"
+#include "cost.hpp"
 #include "format.hpp"
 #include "parallel.hpp"
 
@@ -126,7 +127,7 @@ Run run_block(const Split& sp, const Eigen::VectorXd& x, const SolverSpec& spec)
     return r;
 }
 
-int threads_of(const TuneOptions& opts) { return opts.threads > 0 ? opts.threads : all_cores(); }
+int threads_of(const TuneOptions& opts) { return opts.threads > 0 ? opts.threads : hardware_threads(); }
 
 // Runs `spec` on every row and fills the candidate's deviation and counts.
 // The rows run on threads; the reduction walks them in row order, so the
@@ -237,6 +238,11 @@ bool check_options(const Model& model, const TuneOptions& opts, Diagnostics& dia
             diags.error(kWhere, fmt::format("unknown solver method '{}' (known: {})", m, known));
             good = false;
         }
+    }
+    if (!core_from_name(opts.core)) {
+        diags.error(kWhere, fmt::format("unknown core class '{}' (known: cortex-m0, cortex-m3, cortex-m4f, cortex-m7)",
+                                        opts.core));
+        good = false;
     }
     if (opts.metric_slack && !opts.labels) {
         diags.error(kWhere, "choosing by the task metric needs labels (--labels)");
@@ -461,6 +467,8 @@ std::string failure_text(const TuneCandidate& k) {
     return fmt::format("{} in {} on row {}", k.failure, k.failure_block, k.failure_row + 1);
 }
 
+std::string cycles_text(double c) { return fmt::format("{:.0f}", c); }
+
 std::vector<std::string> candidate_row(const TuneCandidate& k, bool chosen, bool labelled) {
     std::vector<std::string> row{format_solver(k.spec)};
     if (k.ok) {
@@ -472,6 +480,7 @@ std::vector<std::string> candidate_row(const TuneCandidate& k, bool chosen, bool
     row.push_back(fmt::format("{}", k.worst_field_evals));
     row.push_back(k.ok ? fmt::format("{}", k.measured_field_evals) : "-");
     row.push_back(fmt::format("{}", k.worst_macs));
+    if (k.worst_cycles) row.push_back(cycles_text(*k.worst_cycles));
     if (!k.ok)
         row.push_back("fails: " + failure_text(k));
     else
@@ -506,6 +515,7 @@ nlohmann::json candidate_json(const TuneCandidate& k) {
     }
     j["worst_field_evals"] = k.worst_field_evals;
     j["worst_macs"] = k.worst_macs;
+    j["worst_cycles"] = k.worst_cycles ? nlohmann::json(*k.worst_cycles) : nlohmann::json(nullptr);
     j["meets_target"] = k.meets;
     if (k.metric) {
         const TaskMetric& m = *k.metric;
@@ -529,6 +539,7 @@ std::optional<TuneReport> tune_model(const Model& model, const TuneOptions& opts
     report.model = model.name;
     report.target = opts.target;
     report.precision = opts.precision;
+    report.core = opts.core;
     report.rtol_floor = rtol_floor(opts.precision);
     report.rows = static_cast<int>(opts.inputs.size());
     report.outputs = model.output_size;
@@ -548,6 +559,15 @@ std::optional<TuneReport> tune_model(const Model& model, const TuneOptions& opts
         TuneBlock b;
         clock.block_index += 1;
         if (!tune_block(model, i, opts, rows, report.rtol_floor, clock, b, diags)) return std::nullopt;
+        // Each candidate's cycles: this block at the candidate's evaluations, the others deployed.
+        const CoreClass core = *core_from_name(opts.core);
+        auto cycles = [&](const TuneCandidate& k) {
+            return estimate_cycles(model, core, opts.precision, [&](std::size_t j) {
+                return static_cast<double>(j == i ? k.worst_field_evals : worst_field_evals(model.blocks[j].continuous.solver));
+            });
+        };
+        b.deployed.worst_cycles = cycles(b.deployed);
+        for (TuneCandidate& k : b.candidates) k.worst_cycles = cycles(k);
         report.blocks.push_back(std::move(b));
     }
     return report;
@@ -569,6 +589,10 @@ std::string render_tune_text(const TuneReport& r) {
                                             : "root mean square of out - label over every row and output");
     out += "deviations are those of the reference evaluator in double";
     out += r.precision == Precision::float32 ? "; the emitted float code adds its rounding (meander verify measures it)\n" : "\n";
+    if (r.precision == Precision::float32)
+        out += fmt::format("cycles: meander cost's static estimate of one inference on the {} (the whole model, the candidate "
+                           "in its block and the other blocks as deployed; --core for another)\n",
+                           r.core);
     if (r.blocks.empty()) {
         out += "the model has no continuous block: there is no solver to tune\n";
         return out;
@@ -585,6 +609,7 @@ std::string render_tune_text(const TuneReport& r) {
         std::vector<std::vector<std::string>> rows;
         std::vector<std::string> head{"solver", "deviation", "evals (worst)", "evals (measured)", "MACs (worst)", "meets", ""};
         if (r.labelled) head.insert(head.begin() + 2, metric_name(r.classification));
+        if (b.deployed.worst_cycles) head.insert(head.end() - 2, "cycles (worst)");
         rows.push_back(head);
         for (std::size_t i = 0; i < b.candidates.size(); ++i)
             rows.push_back(candidate_row(b.candidates[i], b.chosen && *b.chosen == i, r.labelled));
@@ -600,6 +625,9 @@ std::string render_tune_text(const TuneReport& r) {
             out += fmt::format("    deviation {}, {} field evaluations and {} MACs per inference at worst", deviation_text(k.deviation),
                                k.worst_field_evals, k.worst_macs);
             out += fmt::format(" (deployed: {} and {})\n", b.deployed.worst_field_evals, b.deployed.worst_macs);
+            if (k.worst_cycles && b.deployed.worst_cycles)
+                out += fmt::format("    the model's estimated cycles per inference on the {} at worst: {} (deployed: {})\n",
+                                   r.core, cycles_text(*k.worst_cycles), cycles_text(*b.deployed.worst_cycles));
             if (k.metric && b.deployed.metric)
                 out += fmt::format("    held-out {} {} (deployed {})\n", metric_name(r.classification),
                                    metric_cell(*k.metric), metric_cell(*b.deployed.metric));
@@ -635,6 +663,7 @@ std::string render_tune_json(const TuneReport& r) {
     if (r.labelled) j["metric"] = metric_name(r.classification);
     if (r.metric_slack) j["metric_slack"] = *r.metric_slack;
     j["precision"] = precision_name(r.precision);
+    j["core"] = r.core;
     j["rtol_floor"] = r.rtol_floor;
     j["rows"] = r.rows;
     j["outputs"] = r.outputs;

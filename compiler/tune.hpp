@@ -57,6 +57,9 @@ struct TuneOptions {
     const Model* reference_model = nullptr;
     // Called after each candidate (and the reference) of each block, from the calling thread.
     std::function<void(const TuneProgress&)> progress;
+    // The core whose static cycle estimate (`meander cost`'s, compiler/cost.hpp)
+    // each candidate gets, in float32: a core_name(), "cortex-m4f" by default.
+    std::string core = "cortex-m4f";
 };
 
 // Where a fixed-step sweep stopped early (TuneOptions::whole_sweep false).
@@ -81,6 +84,10 @@ struct TuneCandidate {
     long measured_field_evals = 0;  // of this block: largest over the rows
     long max_attempts = 0;          // adaptive: largest accepted + rejected steps over the rows
     long long worst_macs = 0;       // field MACs x worst_field_evals
+    // The whole model's estimated cycles per inference on the report's core with this
+    // candidate in its block and the other blocks as deployed, at worst_field_evals
+    // (float32; float64 has no figures).
+    std::optional<double> worst_cycles;
     bool meets = false;             // ok and deviation <= target (or the metric rule, TuneOptions::metric_slack)
     std::optional<TaskMetric> metric;  // with labels, when ok
 };
@@ -109,6 +116,7 @@ struct TuneReport {
     std::optional<double> metric_slack;
     std::string output_name;
     Precision precision = Precision::float32;
+    std::string core;               // the core of the candidates' worst_cycles
     double rtol_floor = 0.0;        // smallest rtol swept for this precision
     int rows = 0;
     int outputs = 0;

@@ -25,6 +25,7 @@
 #include <vector>
 
 #include "compiler/check.hpp"
+#include "compiler/cost.hpp"
 #include "compiler/parse.hpp"
 #include "compiler/weights.hpp"
 #include "runtime/model.hpp"
@@ -347,6 +348,52 @@ TEST(TuneFixed, EachBlockIsTunedWithTheOthersAtTheirDeployedSolver) {
         EXPECT_NEAR(fixed_candidate(rep->blocks[0], "heun", n)->deviation, want1, 1e-11);
         EXPECT_NEAR(fixed_candidate(rep->blocks[1], "heun", n)->deviation, want2, 1e-11);
     }
+}
+
+// Each candidate's cycles are `meander cost`'s static estimate of the whole model with
+// that candidate in its block and the other block deployed, on the chosen core; none
+// in float64 (the figures are float32's).
+TEST(TuneReport, CandidateCyclesAreCostsEstimateOfTheModelWithIt) {
+    Model m = scalar_model(-1.0, 0.0, 1.0, fixed("rk4", 2));
+    m.blocks.push_back(linear_continuous(Eigen::MatrixXd::Constant(1, 1, 0.5), 1, 0.0, 1.0, fixed("euler", 4)));
+    m.blocks[1].continuous.name = "soak";
+    TuneOptions o = options(1e-6, {{1.0}, {-0.7}}, Precision::float32);
+    o.methods = {"heun"};
+    o.max_steps_sweep = 16;
+    for (const char* core : {"cortex-m4f", "cortex-m3"}) {
+        SCOPED_TRACE(core);
+        o.core = core;
+        Diagnostics diags;
+        const auto rep = tune_model(m, o, diags);
+        ASSERT_TRUE(rep) << diags.render();
+        EXPECT_EQ(rep->core, core);
+        for (std::size_t b = 0; b < 2; ++b) {
+            for (int n : {1, 4, 16}) {
+                const TuneCandidate* k = fixed_candidate(rep->blocks[b], "heun", n);
+                ASSERT_TRUE(k && k->worst_cycles);
+                Model with = m;
+                with.blocks[b].continuous.solver = k->spec;
+                CostOptions co;
+                co.core = core;
+                co.cross_prefix.clear();
+                co.measure_cycles = false;
+                const auto cost = measure_cost(with, co, diags);
+                ASSERT_TRUE(cost) << diags.render();
+                EXPECT_DOUBLE_EQ(*k->worst_cycles, cost->cycles[0].worst) << "block " << b << ", heun " << n;
+            }
+        }
+        const std::string text = render_tune_text(*rep);
+        EXPECT_NE(text.find("cycles (worst)"), std::string::npos) << text;
+        EXPECT_NE(text.find(std::string("one inference on the ") + core), std::string::npos) << text;
+    }
+    Diagnostics diags;
+    const auto r64 = tune_model(m, options(1e-6, {{1.0}}, Precision::float64), diags);
+    ASSERT_TRUE(r64) << diags.render();
+    for (const TuneCandidate& k : r64->blocks[0].candidates) EXPECT_FALSE(k.worst_cycles);
+    EXPECT_EQ(render_tune_text(*r64).find("cycles (worst)"), std::string::npos);
+    o.core = "cortex-m55";
+    EXPECT_FALSE(tune_model(m, o, diags));
+    EXPECT_NE(diags.render().find("unknown core class 'cortex-m55'"), std::string::npos) << diags.render();
 }
 
 // ---- adaptive --------------------------------------------------------------
