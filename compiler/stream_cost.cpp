@@ -261,6 +261,14 @@ std::vector<std::vector<double>> driver_rows(const std::vector<SequenceRow>& seq
     return rows;
 }
 
+// The worst case of the readout: every continuous block at its worst-case evaluations.
+std::vector<double> worst_readout_evals(const Model& model) {
+    std::vector<double> out;
+    for (const Block& b : model.blocks)
+        out.push_back(b.kind == Block::Kind::continuous ? static_cast<double>(worst_field_evals(b.continuous.solver)) : 0.0);
+    return out;
+}
+
 // `cycles_per_mac` >= 0: the chosen core's figure given with --cycles-per-mac.
 void estimate_cycles(const Model& model, const std::vector<SequenceRow>& seq, Precision p, double cycles_per_mac,
                      StreamCost& c) {
@@ -271,10 +279,7 @@ void estimate_cycles(const Model& model, const std::vector<SequenceRow>& seq, Pr
     std::vector<bool> ok;
     const std::vector<std::vector<long>> per_row = evals_per_part(model, rows, &ok);
     const std::vector<std::vector<long>> at_gap = evals_per_part(model, {largest_gap_row(model, seq)});
-    // The worst case: the evolution's and every readout block's worst-case evaluations.
-    std::vector<double> worst_readout;
-    for (const Block& b : model.blocks)
-        worst_readout.push_back(b.kind == Block::Kind::continuous ? static_cast<double>(worst_field_evals(b.continuous.solver)) : 0.0);
+    const std::vector<double> worst_readout = worst_readout_evals(model);
     for (CoreClass k : order) {
         StreamCoreCycles cc;
         cc.core = k;
@@ -538,6 +543,12 @@ std::string render_stream_cost_json(const StreamCost& c) {
         worst.push_back({{"core", std::string(core_name(m.core))}, {"cycles", m.cycles.max}, {"instructions", m.instructions.max}});
     j["measured_at_largest_gap"] = worst;
     return j.dump(2) + "\n";
+}
+
+std::optional<double> estimate_worst_observation_cycles(const Model& model, CoreClass core, Precision p) {
+    if (p != Precision::float32 || !model.stream) return std::nullopt;
+    Estimator e{model, stream_figures(core), core_figures(core).cycles_per_activation, {}};
+    return e.observation(static_cast<double>(worst_evolve_field_evals(*model.stream)), worst_readout_evals(model));
 }
 
 }  // namespace meander

@@ -76,6 +76,11 @@ struct StreamCost {
 };
 
 // `rows`: a sequence file's rows, or empty.
+// The static estimate of one observation's cycles on `core` at worst (at the largest
+// gap, the evolution and every readout block at their worst-case evaluations): the
+// `worst` of measure_stream_cost's estimate; nullopt in float64.
+std::optional<double> estimate_worst_observation_cycles(const Model& model, CoreClass core, Precision p);
+
 std::optional<StreamCost> measure_stream_cost(const Model& model, const std::vector<SequenceRow>& rows,
                                               const CostOptions& opts, Diagnostics& diags);
 std::string render_stream_cost_text(const StreamCost& c);

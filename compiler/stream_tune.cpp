@@ -9,7 +9,9 @@
 
 #include "../runtime/stream.hpp"
 #include "../runtime/tableau.hpp"
+#include "cost.hpp"
 #include "format.hpp"
+#include "stream_cost.hpp"
 
 namespace meander {
 
@@ -53,6 +55,11 @@ std::optional<StreamTune> tune_stream(const Model& model_in, const std::vector<S
                                       Diagnostics& diags) {
     if (!(opts.target > 0.0) || !std::isfinite(opts.target)) {
         diags.error(kWhere, fmt::format("the target must be a positive finite number, not {}", format_double(opts.target)));
+        return std::nullopt;
+    }
+    const std::optional<CoreClass> core = core_from_name(opts.core);
+    if (!core) {
+        diags.error(kWhere, fmt::format("unknown core class '{}' (known: cortex-m0, cortex-m3, cortex-m4f, cortex-m7)", opts.core));
         return std::nullopt;
     }
     const Stream& st = *model_in.stream;
@@ -115,6 +122,15 @@ std::optional<StreamTune> tune_stream(const Model& model_in, const std::vector<S
             (!t.chosen || t.candidates[i].worst_field_evals < t.candidates[*t.chosen].worst_field_evals))
             t.chosen = i;
     if (t.chosen) t.solver_line = "solver " + format_solver(t.candidates[*t.chosen].spec);
+    // Each budget's cycles per observation at worst on the chosen core.
+    t.core = opts.core;
+    std::vector<StreamTuneCandidate*> all{&t.deployed};
+    for (StreamTuneCandidate& k : t.candidates) all.push_back(&k);
+    Model with = model_in;
+    for (StreamTuneCandidate* c : all) {
+        with.stream->evolve.solver = c->spec;
+        c->worst_cycles = estimate_worst_observation_cycles(with, *core, opts.precision);
+    }
     return t;
 }
 
@@ -122,8 +138,9 @@ namespace {
 
 std::string row_text(const StreamTuneCandidate& c) {
     std::string dev = c.ok ? fmt::format("{:.3g}", c.deviation) : fmt::format("{} at row {}", c.failure, c.failure_row + 1);
-    return fmt::format("  {:<48} {:>22} {:>12} {:>10.1f} {:>10}{}\n", format_solver(c.spec), dev, c.worst_field_evals,
-                       c.mean_field_evals, c.max_field_evals, c.meets ? "  meets" : "");
+    return fmt::format("  {:<48} {:>22} {:>12} {:>10.1f} {:>10}{}{}\n", format_solver(c.spec), dev, c.worst_field_evals,
+                       c.mean_field_evals, c.max_field_evals,
+                       c.worst_cycles ? fmt::format(" {:>12.0f}", *c.worst_cycles) : "", c.meets ? "  meets" : "");
 }
 
 nlohmann::json cand_json(const StreamTuneCandidate& c) {
@@ -132,6 +149,7 @@ nlohmann::json cand_json(const StreamTuneCandidate& c) {
                         {"worst_field_evals_per_observation", c.worst_field_evals},
                         {"mean_field_evals_per_observation", c.mean_field_evals},
                         {"max_field_evals_per_observation", c.max_field_evals},
+                        {"worst_cycles_per_observation", c.worst_cycles ? nlohmann::json(*c.worst_cycles) : nlohmann::json(nullptr)},
                         {"meets_target", c.meets}};
     if (c.ok) j["deviation"] = c.deviation;
     else j["failure"] = {{"result", c.failure}, {"row", c.failure_row + 1}};
@@ -146,22 +164,28 @@ std::string render_stream_tune_text(const StreamTune& t) {
     o += fmt::format("target: deviation <= {}, the deviation being |out - ref| / max(1, |ref|) over every observation and "
                      "output; reference: solver {}\n",
                      format_double(t.target), format_solver(t.reference));
-    o += fmt::format("field evaluations per observation: worst case at the largest gap {}, measured mean and largest\n",
-                     format_number(t.largest_gap));
-    o += fmt::format("  {:<48} {:>22} {:>12} {:>10} {:>10}\n", "solver", "deviation", "worst", "mean", "largest");
+    const bool cycles = t.deployed.worst_cycles.has_value();
+    o += fmt::format("field evaluations per observation: worst case at the largest gap {}, measured mean and largest{}\n",
+                     format_number(t.largest_gap),
+                     cycles ? fmt::format("; cycles: the estimate of one observation at worst on the {}", t.core) : "");
+    o += fmt::format("  {:<48} {:>22} {:>12} {:>10} {:>10}{}\n", "solver", "deviation", "worst", "mean", "largest",
+                     cycles ? fmt::format(" {:>12}", "cycles") : "");
     o += row_text(t.deployed);
     o += "  candidates:\n";
     for (const auto& c : t.candidates) o += row_text(c);
     if (t.chosen)
-        o += fmt::format("recommended: {}  ({} field evaluations per observation at worst)\n", t.solver_line,
-                         t.candidates[*t.chosen].worst_field_evals);
+        o += fmt::format("recommended: {}  ({} field evaluations per observation at worst{})\n", t.solver_line,
+                         t.candidates[*t.chosen].worst_field_evals,
+                         t.candidates[*t.chosen].worst_cycles
+                             ? fmt::format(", about {:.0f} cycles on the {}", *t.candidates[*t.chosen].worst_cycles, t.core)
+                             : "");
     else
         o += fmt::format("no candidate meets the target {}\n", format_double(t.target));
     return o;
 }
 
 std::string render_stream_tune_json(const StreamTune& t) {
-    nlohmann::json j = {{"model", t.model}, {"streaming", true}, {"evolution", t.evolution}, {"target", t.target},
+    nlohmann::json j = {{"model", t.model}, {"streaming", true}, {"evolution", t.evolution}, {"target", t.target}, {"core", t.core},
                         {"largest_gap", t.largest_gap}, {"rows", t.rows}, {"reference", format_solver(t.reference)},
                         {"deployed", cand_json(t.deployed)}};
     j["candidates"] = nlohmann::json::array();

@@ -27,6 +27,9 @@ struct StreamTuneCandidate {
     double mean_field_evals = 0.0;  // measured over the observations
     long max_field_evals = 0;
     bool meets = false;
+    // One observation's estimated cycles at worst on the report's core with this
+    // solver in the evolution (stream cost's static estimate; float32 only).
+    std::optional<double> worst_cycles;
 };
 
 struct StreamTune {
@@ -35,6 +38,7 @@ struct StreamTune {
     double target = 0.0;
     double largest_gap = 0.0;
     int rows = 0;
+    std::string core;               // the core of the candidates' worst_cycles
     SolverSpec reference;
     StreamTuneCandidate deployed;
     std::vector<StreamTuneCandidate> candidates;

@@ -116,4 +116,25 @@ TEST(StreamCommands, TuneSweepsStepsPerUnit) {
     }
 }
 
+// Each budget's cycles per observation at worst on --core: for the deployed solver, the
+// `worst` that `meander cost` estimates for the same model on that core; more steps, more cycles.
+TEST(StreamCommands, TuneCyclesAreCostsWorstEstimate) {
+    for (const char* core : {"cortex-m4f", "cortex-m3"}) {
+        SCOPED_TRACE(core);
+        const auto t = run_json(
+            fmt::format("tune {0}/parcel_chill.mnd --input {0}/inputs.csv --target 1e-3 --core {1} --json", kSample, core));
+        const auto c = run_json(fmt::format("cost {0}/parcel_chill.mnd --input {0}/inputs.csv --estimate-only --json", kSample));
+        EXPECT_EQ(t["core"], core);
+        double worst = -1;
+        for (const auto& e : c["cycles"])
+            if (e["core"] == core) worst = e["worst"].get<double>();
+        EXPECT_DOUBLE_EQ(t["deployed"]["worst_cycles_per_observation"].get<double>(), worst);
+        double previous = 0;
+        for (const auto& k : t["candidates"]) {
+            EXPECT_GT(k["worst_cycles_per_observation"].get<double>(), previous) << k.dump();
+            previous = k["worst_cycles_per_observation"].get<double>();
+        }
+    }
+}
+
 }  // namespace
