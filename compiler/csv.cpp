@@ -228,13 +228,14 @@ bool parse_number(std::string_view field, double& out) { return read_number(fiel
 std::optional<std::vector<std::vector<double>>> read_csv_rows(const std::string& path, int width, Diagnostics& diags,
                                                               bool float32_range, std::vector<int>* lines,
                                                               std::string_view vector_name, const VectorInfo* info,
-                                                              std::string_view role) {
+                                                              std::string_view role, bool* header_only) {
     auto text = read_file(path, diags);
     if (!text) return std::nullopt;
     Source src(path, *text);
     std::vector<std::vector<double>> rows;
     bool first_content = true;
     RowProblems problems;
+    std::size_t header_problems = 0;  // of `problems`, the header's names' (check_csv_header)
     for (std::size_t li = 1; li <= src.line_starts.size(); ++li) {
         const std::string_view line = src.line_text(static_cast<int>(li));
         if (is_blank(line) || line.front() == '#') continue;
@@ -268,7 +269,9 @@ std::optional<std::vector<std::vector<double>>> read_csv_rows(const std::string&
                 names.push_back(f.text);
                 starts.push_back(f.start);
             }
+            const std::size_t before = problems.size();
             check_csv_header(names, starts, 0, ln, vector_name, info, problems, role);
+            header_problems = problems.size() - before;
             continue;
         }
         bool fits = true;
@@ -298,6 +301,7 @@ std::optional<std::vector<std::vector<double>>> read_csv_rows(const std::string&
         if (lines) lines->push_back(ln);
     }
     if (!problems.empty()) {
+        if (header_only) *header_only = problems.size() == header_problems;
         problems.report(src, diags);
         return std::nullopt;
     }

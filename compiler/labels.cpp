@@ -2,9 +2,7 @@
 
 #include <fmt/format.h>
 
-#include <algorithm>
 #include <cmath>
-#include <cstdlib>
 
 #include "format.hpp"
 
@@ -21,28 +19,6 @@ int field_column(std::string_view line, std::size_t index) {
         pos = comma + 1;
     }
     return static_cast<int>(pos) + 1;
-}
-
-// The line of the file's header (its first line that is not blank or a comment,
-// when some field of it is not a number), or 0 when it has none.
-int header_line(const Source& src) {
-    for (int li = 1; li <= static_cast<int>(src.line_starts.size()); ++li) {
-        const std::string_view line = src.line_text(li);
-        if (line.empty() || line.front() == '#') continue;
-        std::size_t start = 0;
-        while (start <= line.size()) {
-            const std::size_t comma = std::min(line.find(',', start), line.size());
-            const std::string field(line.substr(start, comma - start));
-            char* end = nullptr;
-            std::strtod(field.c_str(), &end);
-            const auto rest = static_cast<std::size_t>(end - field.c_str());
-            const bool number = rest > 0 && field.find_first_not_of(" \t\r", rest) == std::string::npos;
-            if (!number) return li;
-            start = comma + 1;
-        }
-        return 0;
-    }
-    return 0;
 }
 
 }  // namespace
@@ -71,19 +47,17 @@ std::optional<Labels> read_labels(const std::string& path, const Model& model, s
             break;
         }
     }
-    const std::size_t before = diags.all().size();
+    const int errors = diags.error_count();
     std::vector<int> lines;
+    bool header_only = false;
     // Rows of the output's width have their header checked against its names; a column of class
     // indices may be headed freely.
-    auto values = width == k ? read_csv_rows(path, width, diags, false, &lines, model.output_name, &model.output_info, "output")
+    auto values = width == k ? read_csv_rows(path, width, diags, false, &lines, model.output_name, &model.output_info,
+                                             "output", &header_only)
                              : read_csv_rows(path, width, diags, false, &lines);
     if (!values) {
         // The shape the file must have, unless the only trouble is its header's names.
-        const int header = header_line(*src);
-        bool rows_wrong = false;
-        for (std::size_t i = before; i < diags.all().size(); ++i)
-            rows_wrong = rows_wrong || (diags.all()[i].severity == Severity::error && diags.all()[i].loc.line != header);
-        if (rows_wrong) diags.note(*src, Loc{}, "expected " + shape);
+        if (diags.error_count() > errors && !header_only) diags.note(*src, Loc{}, "expected " + shape);
         return std::nullopt;
     }
     Labels out;

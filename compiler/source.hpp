@@ -146,12 +146,13 @@ std::uint64_t fnv1a64(std::string_view bytes, std::uint64_t seed = 0xcbf29ce4842
 // `lines`, when given, receives the 1-based file line of each row.
 // `vector_name` and `info`, when given (the description's input name, say "vib",
 // and what it says of the values; `role` "output" for the output's), check a header
-// line: see check_csv_header.
+// line: see check_csv_header. `header_only`, when given, is set on a refusal
+// for the header's names alone (the rows were fine).
 std::optional<std::vector<std::vector<double>>> read_csv_rows(const std::string& path, int width, Diagnostics& diags,
                                                               bool float32_range = false, std::vector<int>* lines = nullptr,
                                                               std::string_view vector_name = {},
                                                               const VectorInfo* info = nullptr,
-                                                              std::string_view role = "input");
+                                                              std::string_view role = "input", bool* header_only = nullptr);
 
 // One CSV field as a number (blanks around allowed; strtod spelling, so "nan",
 // "-nan", "inf" and "-inf", everything eval writes, read too; a subnormal or
@@ -170,6 +171,7 @@ public:
     void add(const std::string& key, Loc loc, std::string message);
     void report(const Source& src, Diagnostics& diags) const;
     bool empty() const { return list_.empty(); }
+    std::size_t size() const { return list_.size(); }  // distinct problems
 
 private:
     struct Problem {
