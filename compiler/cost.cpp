@@ -539,7 +539,7 @@ std::optional<CostReport> measure_cost(const Model& model, const CostOptions& op
         const bool chosen_core = c == rep.core;
         cc.cycles_per_mac = chosen_core ? rep.cycles_per_mac : f.cycles_per_mac;
         // --cycles-per-mac is the float layers' figure; integer layers keep the core's.
-        cc.cycles_per_int_mac = f.cycles_per_int_mac > 0 ? f.cycles_per_int_mac : cc.cycles_per_mac;
+        cc.cycles_per_int_mac = f.cycles_per_int_mac;
         // The figures are for float32; double precision has none unless the
         // user gives one for the chosen core (then MACs only).
         cc.estimated = opts.precision == Precision::float32 || (chosen_core && rep.cycles_per_mac_overridden);
@@ -571,8 +571,7 @@ std::optional<double> estimate_cycles(const Model& model, CoreClass core, Precis
                                       const std::function<double(std::size_t)>& evals) {
     if (p != Precision::float32) return std::nullopt;
     const CoreFigures& f = core_figures(core);
-    const Prices prices{f.cycles_per_mac, f.cycles_per_int_mac > 0 ? f.cycles_per_int_mac : f.cycles_per_mac,
-                        f.cycles_per_state_eval, &f};
+    const Prices prices{f.cycles_per_mac, f.cycles_per_int_mac, f.cycles_per_state_eval, &f};
     double ac = 0.0, an = 0.0;
     return priced(pass_counts(model), prices, evals, ac, an);
 }

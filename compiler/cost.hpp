@@ -43,7 +43,7 @@ struct CoreFigures {
     double cycles_per_state_eval = 0.0;     // solver and checks, per state element per field evaluation
     std::string state_eval_source;
     // A MAC of a layer whose weights are stored as int8 or int16 (each weight
-    // loaded, converted and scaled before its multiply); 0: no figure.
+    // loaded, converted and scaled before its multiply); every core has one.
     double cycles_per_int_mac = 0.0;
     std::string int_mac_source;
 };

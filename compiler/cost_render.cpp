@@ -240,8 +240,7 @@ std::string render_cost_text(const CostReport& r) {
         const bool user = cc.core == r.core && r.cycles_per_mac_overridden;
         t += fmt::format("  {}: per MAC: {}\n", core_name(cc.core), user ? "given by the user" : f.mac_source);
         if (ints)
-            t += fmt::format("  {:{}}  per integer-weight MAC: {}\n", "", core_name(cc.core).size(),
-                             f.cycles_per_int_mac > 0 ? f.int_mac_source : "no figure of its own: the float figure");
+            t += fmt::format("  {:{}}  per integer-weight MAC: {}\n", "", core_name(cc.core).size(), f.int_mac_source);
         if (r.precision == Precision::float32) {
             std::vector<std::string> kinds;
             for (const auto& [k, v] : f.activation_cycles) kinds.push_back(fmt::format("{} {}", k, format_double(v)));
@@ -280,6 +279,7 @@ std::string render_cost_json(const CostReport& r) {
             o["solver"] = b.solver;
             o["adaptive"] = b.adaptive;
             o["macs_per_field_eval"] = b.macs_per_field_eval;
+            o["int_macs_per_field_eval"] = b.int_macs_per_field_eval;
             o["field_evals"] = b.field_evals;
             if (b.measured) o["field_evals_measured"] = spread_json(*b.measured);
         }

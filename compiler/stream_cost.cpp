@@ -134,7 +134,7 @@ StreamFigures stream_figures(CoreClass core) {
     const CoreFigures& plain = core_figures(core);
     StreamFigures f;
     f.cycles_per_mac = plain.cycles_per_mac;
-    f.cycles_per_int_mac = plain.cycles_per_int_mac > 0 ? plain.cycles_per_int_mac : plain.cycles_per_mac;
+    f.cycles_per_int_mac = plain.cycles_per_int_mac;
     f.activation_cycles = plain.activation_cycles;
     f.cycles_per_state_eval = plain.cycles_per_state_eval;
     f.cycles_per_adaptive_state_eval = plain.cycles_per_state_eval;
