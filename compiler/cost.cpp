@@ -141,6 +141,12 @@ std::optional<CoreClass> core_from_name(std::string_view name) {
     return std::nullopt;
 }
 
+std::string unknown_core(std::string_view name) {
+    std::string known;
+    for (CoreClass c : all_cores()) known += (known.empty() ? "" : ", ") + std::string(core_name(c));
+    return fmt::format("unknown core class '{}' (known: {})", name, known);
+}
+
 const CoreFigures& core_figures(CoreClass c) {
     static const std::vector<CoreFigures> figures = make_figures();
     return figures[static_cast<std::size_t>(c)];
@@ -373,8 +379,7 @@ std::optional<long> header_workspace_size(const std::vector<EmittedFile>& files,
 std::optional<CostReport> measure_cost(const Model& model, const CostOptions& opts, Diagnostics& diags) {
     const std::optional<CoreClass> core = core_from_name(opts.core);
     if (!core) {
-        diags.error("cost", fmt::format("unknown core class '{}' (known: cortex-m0, cortex-m3, cortex-m4f, cortex-m7)",
-                                        opts.core));
+        diags.error("cost", unknown_core(opts.core));
         return std::nullopt;
     }
     CostReport rep;

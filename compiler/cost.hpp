@@ -26,6 +26,7 @@ enum class CoreClass { cortex_m0, cortex_m3, cortex_m4f, cortex_m7 };
 
 std::string_view core_name(CoreClass c);                         // "cortex-m4f"
 std::optional<CoreClass> core_from_name(std::string_view name);  // nullopt when unknown
+std::string unknown_core(std::string_view name);                 // "unknown core class 'NAME' (known: ...)"
 const std::vector<CoreClass>& all_cores();
 
 // The default figures of a core class and where they come from.

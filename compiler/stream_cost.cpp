@@ -372,7 +372,7 @@ std::optional<StreamCost> measure_stream_cost(const Model& model, const std::vec
                                               const CostOptions& opts, Diagnostics& diags) {
     const std::optional<CoreClass> core = core_from_name(opts.core);
     if (!core) {
-        diags.error("cost", fmt::format("unknown core class '{}' (known: cortex-m0, cortex-m3, cortex-m4f, cortex-m7)", opts.core));
+        diags.error("cost", unknown_core(opts.core));
         return std::nullopt;
     }
     const Stream& st = *model.stream;

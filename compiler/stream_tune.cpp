@@ -59,7 +59,7 @@ std::optional<StreamTune> tune_stream(const Model& model_in, const std::vector<S
     }
     const std::optional<CoreClass> core = core_from_name(opts.core);
     if (!core) {
-        diags.error(kWhere, fmt::format("unknown core class '{}' (known: cortex-m0, cortex-m3, cortex-m4f, cortex-m7)", opts.core));
+        diags.error(kWhere, unknown_core(opts.core));
         return std::nullopt;
     }
     const Stream& st = *model_in.stream;

@@ -240,8 +240,7 @@ bool check_options(const Model& model, const TuneOptions& opts, Diagnostics& dia
         }
     }
     if (!core_from_name(opts.core)) {
-        diags.error(kWhere, fmt::format("unknown core class '{}' (known: cortex-m0, cortex-m3, cortex-m4f, cortex-m7)",
-                                        opts.core));
+        diags.error(kWhere, unknown_core(opts.core));
         good = false;
     }
     if (opts.metric_slack && !opts.labels) {
